@@ -1,0 +1,5 @@
+import sys
+
+from snnconvert.cli import main
+
+sys.exit(main())

@@ -1,0 +1,240 @@
+"""The integer arithmetic of the single-spike network, defined once.
+
+The converter, the vectorized simulator, the event-by-event reference simulator, the exporter
+and `verify` all call these functions; none of them re-implements rounding, clamping or
+thresholds. Every function accepts numpy arrays or torch tensors (int64) and returns the same kind.
+
+Scales (float model ~ integer network):
+    activation of layer l:  x_l ~ s_l * a_l,   a_l integer in 0..Q,  Q = 2^p - 1
+    weights:                w   ~ s_w * W,     W integer in [-(2^(k-1)-1), 2^(k-1)-1]
+    bias:                   B   = round(b / (s_w * s_in))
+
+One layer, integer only:
+    V   = sum_i W_i * a_i + B                       (accumulated potential at window close)
+    M   = s_w * s_in / s_out = M0 * 2^-n            (fixed-point multiplier, M0 >= 0 integer)
+    a   = clamp((V * M0 + 2^(n-1)) >> n, 0, Q)      (round half up; >> is an arithmetic shift = floor)
+
+Tie rule: exact halves round up (towards +inf), everywhere, at run time. Offline quantization of
+float weights uses round-half-to-even (`np.rint`), like `torch.fake_quantize_per_tensor_affine`.
+
+Time-to-first-spike form of the same value (falling threshold):
+    during the output window, at step t in 0..Q-1 the neuron fires if
+        V * M0 + 2^(n-1) >= (Q - t) * 2^n
+    the first such t is t = Q - a, so the spike time carries exactly the payload value a;
+    a = 0 never crosses (the threshold never falls below 1 * 2^n) and sends nothing.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+try:  # torch is a hard dependency of the package, but keep this module importable alone
+    import torch
+except ImportError:  # pragma: no cover
+    torch = None
+
+ROUNDING_WORDS = ("requantize the potential with an integer multiply and an arithmetic right shift; "
+                  "exact halves round up (towards +infinity); clamp to 0..Q")
+ROUNDING_FORMULA = "a = clamp((V * M0 + 2^(n-1)) >> n, 0, Q)"
+TTFS_FORMULA = "fire at the first step t in 0..Q-1 with V * M0 + 2^(n-1) >= (Q - t) * 2^n; then a = Q - t"
+
+# Widest multiplier mantissa we allow; with it V * M0 must stay inside int64.
+MAX_MULTIPLIER_BITS = 31
+
+
+def _is_torch(x) -> bool:
+    return torch is not None and isinstance(x, torch.Tensor)
+
+
+def clip(x, lo, hi):
+    """clamp(x, lo, hi) for numpy or torch integer arrays."""
+    if _is_torch(x):
+        return x.clamp(lo, hi)
+    return np.clip(x, lo, hi)
+
+
+def payload_max(bits: int) -> int:
+    """Q = 2^p - 1: the largest payload of p bits (p = 1 is binary, Q = 1)."""
+    return (1 << int(bits)) - 1
+
+
+def weight_max(bits: int) -> int:
+    """2^(k-1) - 1: symmetric signed range, so k = 2 gives ternary weights {-1, 0, 1}."""
+    return (1 << (int(bits) - 1)) - 1
+
+
+def time_steps(bits: int) -> int:
+    """T = 2^p steps per layer window in ttfs coding (steps 0..Q-1 carry values Q..1)."""
+    return 1 << int(bits)
+
+
+def round_half_even(x: np.ndarray) -> np.ndarray:
+    """Offline float->int rounding: half to even, like torch.round / np.round."""
+    return np.rint(np.asarray(x, dtype=np.float64)).astype(np.int64)
+
+
+def weight_scale(w: np.ndarray, bits: int, per_channel: bool, rule: str = "max",
+                 percentile: float = 99.99, eps: float = 1e-12) -> np.ndarray:
+    """s_w = r / (2^(k-1) - 1), with r = max|w| (rule "max") or the given percentile of |w|.
+
+    Returns one scale per output channel (axis 0); per-layer scales are repeated so callers
+    always see shape (O,). A zero range (all-zero weights) falls back to eps so W = 0, not NaN.
+    """
+    w = np.asarray(w, dtype=np.float64)
+    a = np.abs(w.reshape(w.shape[0], -1))  # (O, fan_in)
+    if not per_channel:
+        a = a.reshape(1, -1)
+    if rule == "max":
+        r = a.max(axis=1)
+    elif rule == "percentile":
+        r = np.percentile(a, percentile, axis=1)
+    else:
+        raise ValueError(f"unknown weight scale rule {rule!r}; use 'max' or 'percentile'")
+    s = np.maximum(r, eps) / weight_max(bits)
+    if not per_channel:
+        s = np.repeat(s, w.shape[0])
+    return s.astype(np.float64)
+
+
+def quantize_weights(w: np.ndarray, scale: np.ndarray, bits: int) -> np.ndarray:
+    """W = clamp(round_half_even(w / s_w[o]), -(2^(k-1)-1), 2^(k-1)-1), per output channel o."""
+    w = np.asarray(w, dtype=np.float64)
+    s = np.asarray(scale, dtype=np.float64).reshape((-1,) + (1,) * (w.ndim - 1))
+    qm = weight_max(bits)
+    return np.clip(round_half_even(w / s), -qm, qm)
+
+
+def quantize_bias(b: np.ndarray, w_scale: np.ndarray, in_scale: float) -> np.ndarray:
+    """B = round_half_even(b / (s_w[o] * s_in)): the bias at the accumulator's scale."""
+    return round_half_even(np.asarray(b, dtype=np.float64) / (np.asarray(w_scale) * float(in_scale)))
+
+
+def fixed_point_multiplier(m: np.ndarray, bits: int = 16) -> tuple[np.ndarray, np.ndarray]:
+    """Split each real multiplier M > 0 into integers (M0, n) with M ~ M0 * 2^-n.
+
+    M0 has exactly `bits` significant bits (2^(bits-1) <= M0 < 2^bits) and n >= 1, so the
+    rounding constant 2^(n-1) is an integer. Edge cases: M = 0 gives (0, 1), which makes every
+    payload 0; a multiplier too large for n >= 1 keeps n = 1 and a wider M0 (never seen in
+    practice: it would mean an output scale far below the input scale).
+    Relative error of the split: at most 2^-bits.
+    """
+    if not 2 <= bits <= MAX_MULTIPLIER_BITS:
+        raise ValueError(f"multiplier bits must be in [2, {MAX_MULTIPLIER_BITS}], got {bits}")
+    m = np.atleast_1d(np.asarray(m, dtype=np.float64))
+    if np.any(m < 0) or not np.all(np.isfinite(m)):
+        raise ValueError("multipliers must be finite and >= 0")
+    m0 = np.zeros(m.shape, dtype=np.int64)
+    n = np.ones(m.shape, dtype=np.int64)
+    for i, mi in enumerate(m):
+        if mi == 0:
+            continue
+        e = math.floor(math.log2(mi))
+        ni = bits - 1 - e
+        q = int(round(mi * 2.0 ** ni))
+        if q >= 1 << bits:  # rounding pushed it to the next power of two
+            q //= 2
+            ni -= 1
+        if ni < 1:
+            q = int(round(mi * 2.0))
+            ni = 1
+        m0[i], n[i] = q, ni
+    return m0, n
+
+
+def requantize(v, m0, n, q: int, channel_axis: int = 1):
+    """a = clamp((V * M0 + 2^(n-1)) >> n, 0, Q).
+
+    `v` is the int64 potential, shape (N, C, ...) or (N, C); `m0` and `n` are per channel,
+    shape (C,), broadcast along `channel_axis`. Exact halves round up. Negative potentials
+    floor to negative values and clamp to 0, i.e. no spike.
+    """
+    m0b, nb = _per_channel(v, m0, n, channel_axis)
+    half = _shl(1, nb - 1, v)
+    out = (v * m0b + half) >> nb
+    return clip(out, 0, int(q))
+
+
+def ttfs_crosses(v, m0, n, q: int, t: int, channel_axis: int = 1):
+    """Boolean: does the falling threshold at step t (0 <= t < Q) lie at or below the potential?
+
+        V * M0 + 2^(n-1) >= (Q - t) * 2^n
+
+    The first step where this holds is t = Q - a with a = requantize(V); it never holds for a = 0.
+    """
+    m0b, nb = _per_channel(v, m0, n, channel_axis)
+    half = _shl(1, nb - 1, v)
+    return v * m0b + half >= _shl(int(q) - int(t), nb, v)
+
+
+def encode_time(a, q: int):
+    """Spike step of a payload in ttfs coding: t = Q - a for a > 0, and -1 (no spike) for a = 0."""
+    if _is_torch(a):
+        return torch.where(a > 0, int(q) - a, torch.full_like(a, -1))
+    a = np.asarray(a)
+    return np.where(a > 0, int(q) - a, -1)
+
+
+def decode_time(t, q: int):
+    """Payload carried by a spike at step t: a = Q - t; no spike (-1) decodes to 0."""
+    if _is_torch(t):
+        return torch.where(t >= 0, int(q) - t, torch.zeros_like(t))
+    t = np.asarray(t)
+    return np.where(t >= 0, int(q) - t, 0)
+
+
+def accumulator_bits(fan_in: int, w_absmax: int, q_in: int, b_absmax: int) -> int:
+    """Signed width that can never overflow: ceil(log2(F * max|W| * Q_in + |B| + 1)) + 1."""
+    bound = int(fan_in) * int(w_absmax) * int(q_in) + int(b_absmax)
+    return max(1, math.ceil(math.log2(bound + 1))) + 1
+
+
+def limit_accumulator(v, bits: int, mode: str):
+    """Apply a declared accumulator width to the potential at window close.
+
+    mode "saturate": clamp to [-2^(b-1), 2^(b-1)-1]; mode "wrap": two's complement wrap-around.
+    Returns (limited, overflow_mask). The check is on the potential at window close, so it is
+    independent of event order (wrap-around is order-free anyway; a per-add saturating adder can
+    differ from this when a partial sum leaves the range and comes back).
+    """
+    lo, hi = -(1 << (bits - 1)), (1 << (bits - 1)) - 1
+    over = (v < lo) | (v > hi)
+    if mode == "saturate":
+        return clip(v, lo, hi), over
+    if mode == "wrap":
+        span = 1 << bits
+        return ((v - lo) % span) + lo, over
+    raise ValueError(f"unknown overflow mode {mode!r}; use 'saturate' or 'wrap'")
+
+
+def argmax_first(v, axis: int = -1):
+    """Decision readout: index of the largest potential; ties go to the lowest index."""
+    if _is_torch(v):
+        # torch.argmax does not promise the first index on ties; compute it explicitly
+        mx = v.max(dim=axis, keepdim=True).values
+        idx = torch.arange(v.shape[axis]).reshape([-1 if d == (axis % v.ndim) else 1 for d in range(v.ndim)])
+        big = torch.where(v == mx, idx, torch.full_like(idx, v.shape[axis]).expand_as(v))
+        return big.min(dim=axis).values
+    return np.argmax(np.asarray(v), axis=axis)  # numpy documents first occurrence
+
+
+def _per_channel(v, m0, n, axis):
+    if _is_torch(v):
+        m0 = torch.as_tensor(np.asarray(m0), dtype=torch.int64)
+        n = torch.as_tensor(np.asarray(n), dtype=torch.int64)
+    else:
+        m0 = np.asarray(m0, dtype=np.int64)
+        n = np.asarray(n, dtype=np.int64)
+    if m0.ndim == 0:
+        return m0, n
+    shape = [1] * v.ndim
+    shape[axis] = -1
+    return m0.reshape(shape), n.reshape(shape)
+
+
+def _shl(base: int, shift, like):
+    """base << shift for scalar base and array shift, in the array library of `like`."""
+    if _is_torch(like):
+        return torch.as_tensor(base, dtype=torch.int64) << shift
+    return np.left_shift(np.int64(base), shift)

@@ -1,0 +1,80 @@
+"""Command-line entry: `snnconvert <command> ...` and `python -m snnconvert`.
+
+Each command lives in its own module `snnconvert/cli/<command>.py` exposing
+`HELP` (one line), `add_arguments(parser)` and `run(args) -> int`.
+
+Exit codes: 0 success, 1 unexpected failure (or a failed check such as verify), 2 usage error
+(bad argument, bad file, bad recipe value), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import sys
+import traceback
+
+from snnconvert.errors import UsageError
+
+# Order is the order of the job; `run` chains them all.
+COMMANDS = ["events", "train", "convert", "simulate", "sweep", "export", "verify", "report", "run"]
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one `error: ...` line and exit code 2."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        raise UsageError(f"{self.prog}: {message}")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from snnconvert import __version__
+    parser = _Parser(prog="snnconvert", description="DVS events -> frame CNN -> single-spike integer network -> hardware tables.")
+    parser.add_argument("--version", action="version", version=f"snnconvert {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in COMMANDS:
+        try:
+            mod = importlib.import_module(f"snnconvert.cli.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"snnconvert.cli.{name}":
+                continue  # command not built yet
+            raise
+        p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else list(argv)
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "_run", None):
+            parser.print_help()
+            return 2
+        return int(args._run(args) or 0)
+    except UsageError as exc:
+        print(f"error: {_one_line(str(exc))}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted; finished stages and files are intact", file=sys.stderr)
+        return 130
+    except SystemExit as exc:  # --help / --version
+        return int(exc.code or 0) if isinstance(exc.code, int) else 0
+    except Exception as exc:  # a bug, not a user error
+        print(f"error: unexpected failure: {type(exc).__name__}: {_one_line(str(exc))}", file=sys.stderr)
+        if os.environ.get("SNNCONVERT_DEBUG"):
+            traceback.print_exc()
+        else:
+            print("(set SNNCONVERT_DEBUG=1 for the traceback)", file=sys.stderr)
+        return 1
+
+
+def _one_line(msg: str) -> str:
+    return " ".join(msg.split())
+
+
+def entry() -> None:
+    sys.exit(main())

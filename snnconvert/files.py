@@ -1,0 +1,162 @@
+"""Atomic file output, safe loading and fingerprints.
+
+Every artifact is written to a temp file in the same folder and then renamed over the target,
+so a crash (or Ctrl-C) never leaves a half-written file behind. Loading never executes code:
+`np.load(allow_pickle=False)`, `torch.load(weights_only=True)`, JSON.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from snnconvert.errors import FormatError, UsageError
+
+
+def atomic_write_bytes(path, data: bytes) -> Path:
+    """Write `data` to `path` via temp file + fsync + rename. Parent folders are created."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return path
+
+
+def atomic_write_text(path, text: str) -> Path:
+    return atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def atomic_write_json(path, obj: Any) -> Path:
+    """JSON with sorted keys and a trailing newline, so equal content gives equal bytes."""
+    return atomic_write_text(path, json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n")
+
+
+def atomic_save_npz(path, **arrays) -> Path:
+    """Uncompressed NPZ written atomically. Object arrays are refused (files are data, never code)."""
+    for k, a in arrays.items():
+        if np.asarray(a).dtype == object:
+            raise TypeError(f"array '{k}' has dtype object; NPZ artifacts hold plain numeric arrays only")
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    return atomic_write_bytes(path, buf.getvalue())
+
+
+def atomic_torch_save(obj, path) -> Path:
+    import torch
+    buf = io.BytesIO()
+    torch.save(obj, buf)
+    return atomic_write_bytes(path, buf.getvalue())
+
+
+def load_json(path) -> Any:
+    path = Path(path)
+    if not path.is_file():
+        raise UsageError(f"file not found: {path}")
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise FormatError(f"{path}: not valid JSON ({exc})") from None
+
+
+def load_npz(path) -> dict[str, np.ndarray]:
+    """Load every array of an NPZ into memory; pickled content is refused."""
+    path = Path(path)
+    if not path.is_file():
+        raise UsageError(f"file not found: {path}")
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            return {k: z[k] for k in z.files}
+    except (ValueError, OSError, EOFError) as exc:
+        raise FormatError(f"{path}: not a readable NPZ file ({exc})") from None
+
+
+def load_torch(path):
+    """`torch.load(weights_only=True)`: tensors and plain containers only."""
+    import torch
+    path = Path(path)
+    if not path.is_file():
+        raise UsageError(f"file not found: {path}")
+    try:
+        return torch.load(path, map_location="cpu", weights_only=True)
+    except Exception as exc:  # torch raises many types for corrupt files
+        raise FormatError(f"{path}: not a readable checkpoint ({type(exc).__name__}: {exc})") from None
+
+
+def resolve_inside(folder, relative: str, what: str = "path") -> Path:
+    """Resolve a path listed in an index file; anything escaping `folder` is rejected."""
+    folder = Path(folder).resolve()
+    rel = Path(relative)
+    if rel.is_absolute():
+        raise UsageError(f"{what} '{relative}' is absolute; paths in an index must be relative to {folder}")
+    target = (folder / rel).resolve()
+    if target != folder and folder not in target.parents:
+        raise UsageError(f"{what} '{relative}' escapes the folder {folder}")
+    return target
+
+
+def sha256_bytes(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def fingerprint(*items: Any) -> str:
+    """A short stable hash of arrays, tensors, dicts and scalars (by value, not identity)."""
+    h = hashlib.sha256()
+    for item in items:
+        _feed(h, item)
+    return h.hexdigest()[:16]
+
+
+def _feed(h, item) -> None:
+    try:
+        import torch
+        if isinstance(item, torch.Tensor):
+            item = item.detach().cpu().numpy()
+    except ImportError:  # pragma: no cover
+        pass
+    if isinstance(item, np.ndarray):
+        a = np.ascontiguousarray(item)
+        h.update(f"nd{a.dtype.str}{a.shape}".encode())
+        h.update(a.tobytes())
+    elif isinstance(item, dict):
+        h.update(b"{")
+        for k in sorted(item, key=str):
+            _feed(h, str(k))
+            _feed(h, item[k])
+        h.update(b"}")
+    elif isinstance(item, (list, tuple)):
+        h.update(b"[")
+        for x in item:
+            _feed(h, x)
+        h.update(b"]")
+    else:
+        h.update(repr(item).encode())
+
+
+def _json_default(o):
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return float(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
