@@ -1,0 +1,18 @@
+"""Hardware export: manifest, Verilog memory tables, golden vectors, and `verify`.
+
+The export folder stands on its own: a hardware team needs nothing else to implement the
+integer network and to check their implementation event for event.
+"""
+
+from __future__ import annotations
+
+from snnconvert.schema import Key
+
+# Recipe section [export].
+SCHEMA: dict[str, Key] = {
+    "vectors": Key(16, "int", "16 samples exercise every class of a small test set yet keep the golden files small enough to diff by hand",
+                   lo=0, hi=100000),
+    "csv": Key(True, "bool", "CSV tables and per-layer vector files are what testbench scripts and spreadsheets read most easily"),
+}
+
+__all__ = ["SCHEMA"]
