@@ -238,3 +238,19 @@ def _shl(base: int, shift, like):
     if _is_torch(like):
         return torch.as_tensor(base, dtype=torch.int64) << shift
     return np.left_shift(np.int64(base), shift)
+
+
+def quantize_input(x, q: int):
+    """a0 = clamp(round_half_even(frame), 0, Q_in): frame values become the input payloads.
+
+    Binary frames (Q_in = 1) give one spike per active pixel; count frames are clipped to Q_in.
+    NaN frames are refused. Returns int64 (numpy or torch, like `x`).
+    """
+    if _is_torch(x):
+        if torch.isnan(x).any():
+            raise ValueError("frames contain NaN")
+        return torch.round(x.double()).clamp(0, int(q)).to(torch.int64)
+    x = np.asarray(x, dtype=np.float64)
+    if np.isnan(x).any():
+        raise ValueError("frames contain NaN")
+    return np.clip(round_half_even(x), 0, int(q))
