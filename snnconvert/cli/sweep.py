@@ -25,7 +25,7 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
-    from snnconvert import data, sweep, train
+    from snnconvert import sweep
     from snnconvert.errors import UsageError
 
     # Grid typos are reported before the checkpoint and the data set are loaded.
@@ -38,6 +38,7 @@ def run(args) -> int:
     path = Path(args.train_dir)
     if not path.exists():
         raise UsageError(f"training folder not found: {path}")
+    from snnconvert import data, train
     model, ckpt = train.load_checkpoint(path)
     recipe = ckpt["recipe"]
     section = {k: key.default for k, key in sweep.SCHEMA.items()}
