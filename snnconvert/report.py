@@ -53,7 +53,12 @@ def write_report(run_dir) -> Path:
     run = Path(run_dir)
     if not run.is_dir():
         raise UsageError(f"run folder not found: {run}")
-    parts = {sid: fn(run) for sid, fn in _BUILDERS.items()}
+    parts = {}
+    for sid, fn in _BUILDERS.items():
+        try:
+            parts[sid] = fn(run)
+        except FormatError as exc:  # one unreadable file costs its section, not the report
+            parts[sid] = _missing(f"This section cannot be shown: {exc}")
     name = _recipe_name(run) or run.name
     nav = " ".join(f'<a href="#{sid}">{_e(title)}</a>' for sid, title in SECTIONS)
     body = "\n".join(f'<section id="{sid}">\n<h2>{_e(title)}</h2>\n{parts[sid]}\n</section>' for sid, title in SECTIONS)
@@ -74,13 +79,13 @@ def _missing(text: str) -> str:
 
 
 def _json(path: Path):
-    """The parsed JSON file, or None when it is absent; a corrupt file is reported as such."""
+    """The parsed JSON object, or None when the file is absent; FormatError when it is unreadable."""
     if not path.is_file():
         return None
-    try:
-        return files.load_json(path)
-    except FormatError as exc:
-        return {"_error": str(exc)}
+    obj = files.load_json(path)
+    if not isinstance(obj, dict):
+        raise FormatError(f"{path}: expected a JSON object, got {type(obj).__name__}")
+    return obj
 
 
 def _img(path: Path, alt: str) -> str:
