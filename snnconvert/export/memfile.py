@@ -1,0 +1,168 @@
+"""Verilog memory files (`$readmemh`) and CSV tables of integer arrays.
+
+A memory file holds one word per line, exactly ceil(bits/4) hex digits, signed values in two's
+complement:  word = v mod 2^bits  (so -1 in 4 bits is `f`, -3 in 6 bits is `3d`).
+Words are listed in row-major order of the table (last index fastest), so the word at address
+k is `table.ravel()[k]`. The file carries no width of its own: the header comment and the
+manifest state it. Reading (`parse_mem`) accepts what IEEE 1364-2005 §17.2.9 allows in a file
+(whitespace, `//` and `/* */` comments, `@hhhh` address lines) and refuses anything else.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from snnconvert.errors import FormatError
+
+_HEX = re.compile(r"[0-9a-fA-F_]+")
+
+
+def hex_digits(bits: int) -> int:
+    """ceil(bits / 4): the hex digits of one word."""
+    return -(-int(bits) // 4)
+
+
+def signed_bits(values) -> int:
+    """Smallest two's complement width b with -2^(b-1) <= v <= 2^(b-1) - 1 for every v (at least 2).
+
+    Two bits minimum so that a table of zeros still has a sign bit, like every other signed table.
+    """
+    v = np.asarray(values, dtype=np.int64)
+    if v.size == 0:
+        return 2
+    hi, lo = int(v.max()), int(v.min())
+    return max(2, hi.bit_length() + 1, (-lo - 1).bit_length() + 1 if lo < 0 else 0)
+
+
+def unsigned_bits(values) -> int:
+    """Smallest width b with 0 <= v <= 2^b - 1 for every v (at least 1)."""
+    v = np.asarray(values, dtype=np.int64)
+    if v.size and int(v.min()) < 0:
+        raise ValueError("unsigned table holds a negative value")
+    return max(1, int(v.max()).bit_length() if v.size else 1)
+
+
+def fits(values, bits: int, signed: bool) -> bool:
+    v = np.asarray(values, dtype=np.int64)
+    if v.size == 0:
+        return True
+    lo, hi = (-(1 << (bits - 1)), (1 << (bits - 1)) - 1) if signed else (0, (1 << bits) - 1)
+    return bool(v.min() >= lo and v.max() <= hi)
+
+
+def to_words(values, bits: int) -> np.ndarray:
+    """word = v mod 2^bits (two's complement for negatives), as int64 (bits <= 62)."""
+    return np.asarray(values, dtype=np.int64).ravel() & ((1 << bits) - 1)
+
+
+def from_words(words, bits: int, signed: bool) -> np.ndarray:
+    """Inverse of `to_words`: sign-extend bit (bits-1) when signed: v = w - 2^bits if w >= 2^(bits-1)."""
+    w = np.asarray(words, dtype=np.int64)
+    if not signed:
+        return w
+    return np.where(w >= (1 << (bits - 1)), w - (1 << bits), w)
+
+
+def format_mem(values, bits: int, signed: bool, header: list[str]) -> str:
+    """The text of a memory file: `//` header lines, then one word per line, no address lines.
+
+    Values that do not fit the width are refused (a simulator would silently drop high bits).
+    """
+    if not 1 <= bits <= 62:
+        raise ValueError(f"word width {bits} is outside 1..62 bits")
+    if not fits(values, bits, signed):
+        kind = "signed" if signed else "unsigned"
+        raise ValueError(f"values do not fit {bits}-bit {kind} words")
+    d = hex_digits(bits)
+    lines = [f"// {h}" for h in header]
+    lines += [format(int(w), f"0{d}x") for w in to_words(values, bits)]
+    return "\n".join(lines) + "\n"
+
+
+def parse_mem(text: str, bits: int, signed: bool, depth: int, name: str = "memory file") -> tuple[np.ndarray, np.ndarray]:
+    """Read a `$readmemh` file into `depth` words of `bits` bits; returns (values, line_of_word).
+
+    Values are sign-extended when `signed`. `line_of_word[k]` is the 1-based line of word k, so a
+    mismatch can be named by file and line. Errors (FormatError, naming file and line): a token
+    that is not hex (x/z digits included: hardware tables must be fully defined), a word wider
+    than `bits`, an address outside the memory, a word missing or given twice.
+    """
+    words = np.full(depth, -1, dtype=np.int64)
+    lines = np.zeros(depth, dtype=np.int64)
+    addr = 0
+    text = _strip_block_comments(text)
+    for lineno, raw in enumerate(text.split("\n"), start=1):
+        for tok in raw.split("//", 1)[0].split():
+            if tok.startswith("@"):
+                if not _HEX.fullmatch(tok[1:]):
+                    raise FormatError(f"{name} line {lineno}: bad address {tok!r}")
+                addr = int(tok[1:].replace("_", ""), 16)
+                continue
+            if not _HEX.fullmatch(tok):
+                raise FormatError(f"{name} line {lineno}: {tok!r} is not a hex word")
+            w = int(tok.replace("_", ""), 16)
+            if w >> bits:
+                raise FormatError(f"{name} line {lineno}: word {tok!r} is wider than {bits} bits")
+            if addr >= depth:
+                raise FormatError(f"{name} line {lineno}: address {addr} is outside the memory of depth {depth}")
+            if lines[addr]:
+                raise FormatError(f"{name} line {lineno}: address {addr} was already given on line {lines[addr]}")
+            words[addr], lines[addr] = w, lineno
+            addr += 1
+    missing = np.flatnonzero(lines == 0)
+    if missing.size:
+        raise FormatError(f"{name}: {missing.size} of {depth} words missing (first at address {missing[0]})")
+    return from_words(words, bits, signed), lines
+
+
+def _strip_block_comments(text: str) -> str:
+    """Remove /* ... */ comments but keep their newlines, so line numbers stay right."""
+    return re.sub(r"/\*.*?\*/", lambda m: "\n" * m.group(0).count("\n"), text, flags=re.S)
+
+
+def format_csv(values, index_names: list[str]) -> str:
+    """One row per element: the indices as columns, then `value`; row-major order (= word address)."""
+    a = np.asarray(values, dtype=np.int64)
+    if a.ndim != len(index_names):
+        raise ValueError(f"{len(index_names)} index names for a {a.ndim}-d table")
+    idx = np.indices(a.shape).reshape(a.ndim, -1).T  # (n, ndim)
+    rows = [",".join(index_names + ["value"])]
+    rows += [",".join(map(str, r)) + f",{v}" for r, v in zip(idx.tolist(), a.ravel().tolist())]
+    return "\n".join(rows) + "\n"
+
+
+def parse_csv_table(text: str, index_names: list[str], shape: tuple, name: str = "CSV table") -> tuple[np.ndarray, np.ndarray]:
+    """Read a table written by `format_csv`; returns (values with `shape`, 1-based line of each element).
+
+    Rows may come in any order but every index must appear exactly once.
+    """
+    lines = text.split("\n")
+    want = ",".join(index_names + ["value"])
+    if not lines or lines[0].strip() != want:
+        raise FormatError(f"{name} line 1: header must be {want!r}")
+    n = int(np.prod(shape)) if shape else 1
+    out = np.zeros(n, dtype=np.int64)
+    where = np.zeros(n, dtype=np.int64)
+    for lineno, row in enumerate(lines[1:], start=2):
+        if not row.strip():
+            continue
+        parts = row.split(",")
+        try:
+            nums = [int(p) for p in parts]
+        except ValueError:
+            raise FormatError(f"{name} line {lineno}: {row!r} is not a row of integers") from None
+        if len(nums) != len(index_names) + 1:
+            raise FormatError(f"{name} line {lineno}: expected {len(index_names) + 1} columns, got {len(nums)}")
+        ix = nums[:-1]
+        if any(i < 0 or i >= s for i, s in zip(ix, shape)):
+            raise FormatError(f"{name} line {lineno}: index {ix} is outside the shape {list(shape)}")
+        k = int(np.ravel_multi_index(ix, shape)) if shape else 0
+        if where[k]:
+            raise FormatError(f"{name} line {lineno}: index {ix} was already given on line {where[k]}")
+        out[k], where[k] = nums[-1], lineno
+    if not where.all():
+        k = int(np.flatnonzero(where == 0)[0])
+        raise FormatError(f"{name}: index {list(np.unravel_index(k, shape))} is missing")
+    return out.reshape(shape), where.reshape(shape)

@@ -1,0 +1,260 @@
+"""verify: check an export folder bit for bit, reading nothing but the folder.
+
+Checks, in this order (the first failure found is the one reported):
+1. every listed file exists and the manifest is readable (else FormatError/UsageError: exit 2);
+2. tables: the memory files are the source of truth; tables.npz, the CSV tables and the
+   manifest's bias/m0/shift lists must hold the same values, word for word;
+3. vectors: the network rebuilt from manifest + memory files is re-simulated by the reference
+   simulator on every golden input; every stream's events, the potentials and the decisions must
+   equal vectors.npz and the CSV files exactly;
+4. sha256 of every listed file (a changed file whose values still agree is reported last).
+Nothing is written to the folder.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert.errors import FormatError, UsageError
+from snnconvert.export import manifest as M
+from snnconvert.export import vectors as V
+from snnconvert.export.memfile import parse_csv_table, parse_mem
+from snnconvert.export.writer import MANIFEST
+from snnconvert.files import load_json, load_npz, resolve_inside, sha256_bytes
+
+
+@dataclass
+class Mismatch:
+    """One disagreement. `expected` is what the export's file says, `got` what the check recomputed."""
+    kind: str                      # table | event | potential | decision | early_decision | sha256
+    file: str                      # file (relative to the folder) holding the wrong or disagreeing value
+    line: int | None = None        # 1-based line in `file`, when it is a text file
+    sample: int | None = None
+    layer: str | None = None       # layer id (L<i>_<name>) or "input"
+    neuron: int | None = None      # flat neuron address (or class index, or word address of a table)
+    index: list | None = None      # (c, y, x) of the neuron, or the table index
+    expected: object = None
+    got: object = None
+
+    def message(self) -> str:
+        at = f"{self.file}" + (f" line {self.line}" if self.line else "")
+        if self.kind == "table":
+            return (f"table mismatch in {at}: layer {self.layer}, word {self.neuron} {self.index}: "
+                    f"expected {self.expected}, got {self.got}")
+        if self.kind == "sha256":
+            return f"sha256 of {self.file} differs from the manifest: expected {self.expected}, got {self.got}"
+        where = f"sample {self.sample}, layer {self.layer}"
+        if self.kind == "event":
+            nidx = f" {tuple(self.index)}" if self.index else ""
+            return (f"first mismatch: {where}, neuron {self.neuron}{nidx}: expected {self.expected}, "
+                    f"got {self.got} [{at}]")
+        if self.kind == "potential":
+            return (f"first mismatch: {where}, potential of class {self.neuron}: expected {self.expected}, "
+                    f"got {self.got} [{at}]")
+        return f"first mismatch: sample {self.sample}, {self.kind}: expected {self.expected}, got {self.got} [{at}]"
+
+
+@dataclass
+class VerifyResult:
+    passed: bool
+    samples: int
+    layers: int
+    events: int                                        # golden events compared (per source file)
+    words: int                                         # table words compared
+    first_mismatch: Mismatch | None = None
+    mismatches: int = 0                                # count of disagreeing places (each counted once per check)
+    sha256_failures: list = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        if self.first_mismatch is not None:
+            d["first_mismatch"]["message"] = self.first_mismatch.message()
+        return d
+
+    def summary(self) -> str:
+        if self.passed:
+            return (f"verify: passed: {self.samples} samples, {self.layers} layers, {self.events} events and "
+                    f"{self.words} table words match bit-exactly")
+        more = f" ({self.mismatches} mismatching places in all)" if self.mismatches > 1 else ""
+        return f"verify: FAILED: {self.first_mismatch.message()}{more}"
+
+
+class _Checker:
+    def __init__(self, folder: Path):
+        self.folder = folder
+        self.first: Mismatch | None = None
+        self.count = 0
+        self.events = 0
+        self.words = 0
+
+    def fail(self, m: Mismatch):
+        self.count += 1
+        if self.first is None:
+            self.first = m
+
+    def read(self, rel: str) -> bytes:
+        path = resolve_inside(self.folder, rel, "file")
+        if not path.is_file():
+            raise UsageError(f"{path}: file listed in the manifest is missing")
+        return path.read_bytes()
+
+    def text(self, rel: str) -> str:
+        try:
+            return self.read(rel).decode("utf-8")
+        except UnicodeDecodeError:
+            raise FormatError(f"{self.folder / rel}: not UTF-8 text") from None
+
+
+def _table_index(spec, k):
+    return [int(i) for i in np.unravel_index(k, spec["shape"])] if spec["shape"] else []
+
+
+def _check_tables(ck: _Checker, man: dict) -> dict:
+    """Parse every memory file (the truth) and compare the other copies; returns {layer id: {kind: array}}."""
+    npz = load_npz(resolve_inside(ck.folder, man["tables_npz"], "file"))
+    arrays = {}
+    for d in man["layers"]:
+        for kind, spec in (d.get("tables") or {}).items():
+            name = spec["file"]
+            shape = tuple(spec["shape"])
+            vals, lines = parse_mem(ck.text(name), int(spec["bits"]), bool(spec["signed"]), int(spec["depth"]),
+                                    name=str(ck.folder / name))
+            if vals.size != int(np.prod(shape)):
+                raise FormatError(f"{ck.folder / name}: depth {vals.size} does not match shape {list(shape)}")
+            arrays.setdefault(d["id"], {})[kind] = vals.reshape(shape)
+            ck.words += vals.size
+            copies = []
+            if spec["npz_key"] not in npz:
+                raise FormatError(f"{ck.folder / man['tables_npz']}: array {spec['npz_key']!r} is missing")
+            copies.append((man["tables_npz"], np.asarray(npz[spec["npz_key"]]).reshape(-1), None))
+            if spec.get("csv"):
+                cv, cl = parse_csv_table(ck.text(spec["csv"]), spec["index_names"], shape, name=str(ck.folder / spec["csv"]))
+                copies.append((spec["csv"], cv.reshape(-1), cl.reshape(-1)))
+            if kind in ("bias", "m0", "shift"):
+                copies.append((MANIFEST, np.asarray(d[kind], dtype=np.int64).reshape(-1), None))
+            for file, other, other_lines in copies:
+                if other.shape != vals.shape:
+                    raise FormatError(f"{ck.folder / file}: {spec['npz_key']} has {other.size} values, the memory file {vals.size}")
+                bad = np.flatnonzero(other != vals)
+                if bad.size:
+                    k = int(bad[0])
+                    # the memory file is the truth; the other copy says what it should have held
+                    ck.fail(Mismatch("table", name, int(lines[k]), layer=d["id"], neuron=k,
+                                     index=_table_index(spec, k), expected=int(other[k]), got=int(vals[k])))
+                    ck.count += bad.size - 1
+    return arrays
+
+
+def _neuron_index(shape, addr):
+    if len(shape) == 3 and 0 <= addr < int(np.prod(shape)):
+        return [int(i) for i in np.unravel_index(addr, shape)]
+    return None
+
+
+def _fmt_event(e) -> str:
+    if e is None:
+        return "no event"
+    return f"(addr {int(e[0])}, t {int(e[1])}, payload {int(e[2])})"
+
+
+def _compare_stream(ck, s, sid, shape, expected, got, file, lines):
+    ck.events += len(expected)
+    k = V.first_difference(expected, got)
+    if k is None:
+        return
+    exp = expected[k] if k < len(expected) else None
+    gt = got[k] if k < len(got) else None
+    addr = int((exp if exp is not None else gt)[0])
+    line = int(lines[k]) if lines is not None and k < len(lines) else None
+    ck.fail(Mismatch("event", file, line, sample=s, layer=sid, neuron=addr, index=_neuron_index(shape, addr),
+                     expected=_fmt_event(exp), got=_fmt_event(gt)))
+
+
+def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
+    vec = man["vectors"]
+    if not vec.get("count"):
+        return 0
+    z = load_npz(resolve_inside(ck.folder, vec["npz"], "file"))
+    for key in ("x", "potentials", "decision", "early_decision", "sample_index", "label"):
+        if key not in z:
+            raise FormatError(f"{ck.folder / vec['npz']}: array {key!r} is missing")
+    x = np.asarray(z["x"])
+    n = int(vec["count"])
+    if x.shape != (n,) + tuple(net.input_shape) or x.dtype.kind not in "iu":
+        raise FormatError(f"{ck.folder / vec['npz']}: 'x' must be int ({n}, {', '.join(map(str, net.input_shape))}); got {x.dtype} {x.shape}")
+    streams = V.event_streams(net)
+    shapes = {V.INPUT: tuple(net.input_shape)}
+    shapes.update({sid: tuple(net.layers[i].out_shape) for sid, i in streams[1:]})
+    for sid, _ in streams:
+        if f"{sid}.events" not in z:
+            raise FormatError(f"{ck.folder / vec['npz']}: array '{sid}.events' is missing")
+    csv = bool(vec.get("csv_folder"))
+    summary = None
+    if csv:
+        summary, summary_lines = V.parse_csv_rows(ck.text("vectors/summary.csv"), V.SUMMARY_COLUMNS,
+                                                  str(ck.folder / "vectors/summary.csv"))
+    traces = V.simulate(net, x.astype(np.int64), progress, desc="verify")
+    for s, tr in enumerate(traces):
+        got = V.trace_streams(net, tr)
+        for sid, _ in streams:
+            ev = np.asarray(z[f"{sid}.events"], dtype=np.int64)
+            _compare_stream(ck, s, sid, shapes[sid], ev[ev[:, 0] == s, 1:], got[sid], vec["npz"], None)
+            if csv:
+                rel = f"{V.sample_folder(s)}/{sid}.csv"
+                rows, lines = V.parse_csv_rows(ck.text(rel), V.EVENT_COLUMNS, str(ck.folder / rel))
+                _compare_stream(ck, s, sid, shapes[sid], rows, got[sid], rel, lines)
+        pot = np.asarray(tr.potentials, dtype=np.int64).reshape(-1)
+        pot_sources = [(vec["npz"], np.asarray(z["potentials"][s], dtype=np.int64).reshape(-1), None)]
+        if csv:
+            rel = f"{V.sample_folder(s)}/potentials.csv"
+            rows, lines = V.parse_csv_rows(ck.text(rel), ["class", "potential"], str(ck.folder / rel))
+            pot_sources.append((rel, rows[:, 1], lines))
+        for file, exp, lines in pot_sources:
+            k = V.first_difference(exp.reshape(-1, 1), pot.reshape(-1, 1))
+            if k is not None:
+                ck.fail(Mismatch("potential", file, int(lines[k]) if lines is not None and k < len(lines) else None,
+                                 sample=s, layer="output", neuron=k,
+                                 expected=int(exp[k]) if k < exp.size else None,
+                                 got=int(pot[k]) if k < pot.size else None))
+        dec_sources = [(vec["npz"], int(z["decision"][s]), int(z["early_decision"][s]), None)]
+        if csv:
+            hit = np.flatnonzero(summary[:, 0] == s)
+            if hit.size != 1:
+                raise FormatError(f"{ck.folder / 'vectors/summary.csv'}: sample {s} must appear exactly once")
+            r = summary[hit[0]]
+            dec_sources.append(("vectors/summary.csv", int(r[3]), int(r[4]), int(summary_lines[hit[0]])))
+        for file, dec, early, line in dec_sources:
+            for what, exp, gt in (("decision", dec, int(tr.decision)), ("early_decision", early, int(tr.early_decision))):
+                if exp != gt:
+                    ck.fail(Mismatch(what, file, line, sample=s, layer="output", expected=exp, got=gt))
+    return n
+
+
+def verify(out_dir, progress: bool = True) -> VerifyResult:
+    """Check the export folder `out_dir`; see the module docstring. Raises UsageError/FormatError
+    (ValueError subclasses) when a file is missing or unreadable; returns the result otherwise."""
+    folder = Path(out_dir)
+    if not folder.is_dir():
+        raise UsageError(f"export folder not found: {folder}")
+    man = load_json(folder / MANIFEST)
+    if not isinstance(man, dict):
+        raise FormatError(f"{folder / MANIFEST}: not a manifest object")
+    ck = _Checker(folder)
+    files = man.get("files")
+    if not isinstance(files, dict):
+        raise FormatError(f"{folder / MANIFEST}: field 'files' must map file names to sha256")
+    data = {rel: ck.read(rel) for rel in sorted(files)}  # every listed file must exist before anything else
+    try:
+        arrays = _check_tables(ck, man)
+        net = M.network_from_manifest(man, arrays, name=str(folder / MANIFEST))
+        n = _check_vectors(ck, man, net, progress)
+    except (KeyError, TypeError, IndexError) as exc:
+        raise FormatError(f"{folder / MANIFEST}: missing or invalid field ({type(exc).__name__}: {exc})") from None
+    sha_bad = [rel for rel in sorted(files) if sha256_bytes(data[rel]) != files[rel]]
+    for rel in sha_bad:
+        ck.fail(Mismatch("sha256", rel, expected=files[rel], got=sha256_bytes(data[rel])))
+    return VerifyResult(passed=ck.first is None, samples=n, layers=len(net.layers), events=ck.events, words=ck.words,
+                        first_mismatch=ck.first, mismatches=ck.count, sha256_failures=sha_bad)

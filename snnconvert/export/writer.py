@@ -1,0 +1,143 @@
+"""export_network: write the self-contained hardware export folder.
+
+Everything but the manifest's `created` field is a pure function of the network and the input
+payloads, so two exports of the same network are byte-identical: tables in layer order,
+JSON with sorted keys, NPZ members with the fixed zip date, no timestamps in tables or vectors.
+"""
+
+from __future__ import annotations
+
+import io
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert.errors import UsageError, check_bool, check_int
+from snnconvert.export import manifest as M
+from snnconvert.export.memfile import format_csv, format_mem
+from snnconvert.export.vectors import csv_files, golden_vectors, pick_samples
+from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, resolve_inside, sha256_bytes
+from snnconvert.intnet import IntNetwork
+
+MANIFEST = "manifest.json"
+TABLES_NPZ = "tables.npz"
+VECTORS_NPZ = "vectors.npz"
+# File suffix of each table kind: <layer id>_<suffix>.mem / .csv
+TABLE_SUFFIX = {"weight": "weights", "bias": "bias", "m0": "m0", "shift": "shift"}
+
+
+def npz_bytes(arrays: dict[str, np.ndarray]) -> bytes:
+    """Uncompressed NPZ in memory (zip members carry numpy's fixed date, so equal arrays give equal bytes)."""
+    for k, a in arrays.items():
+        if np.asarray(a).dtype == object:
+            raise TypeError(f"array '{k}' has dtype object; NPZ artifacts hold plain numeric arrays only")
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    return buf.getvalue()
+
+
+def mem_header(lid: str, layer_type: str, kind: str, spec: dict, file: str) -> list[str]:
+    shape, depth, bits = spec["shape"], spec["depth"], spec["bits"]
+    sign = "signed two's complement" if spec["signed"] else "unsigned"
+    return [f"snnconvert export: layer {lid} ({layer_type}), table {kind}",
+            f"shape {shape}, layout {spec['layout']}, row-major: word address = flat index, last index fastest",
+            f"{depth} words of {bits} bits, {sign}, {spec['hex_digits']} hex digit(s) per word",
+            f"Verilog: reg [{bits - 1}:0] mem [0:{depth - 1}]; initial $readmemh(\"{file}\", mem);"]
+
+
+def _check_inputs(net, x_int, labels, vectors):
+    if not isinstance(net, IntNetwork):
+        raise TypeError(f"The 'net' parameter of export must be an IntNetwork. Got {type(net).__name__} instead.")
+    vectors = check_int(vectors, "vectors", "export", 0)
+    x = np.asarray(x_int)
+    want = (None,) + tuple(net.input_shape)
+    if x.ndim != 4 or tuple(x.shape[1:]) != tuple(net.input_shape) or x.dtype.kind not in "iu":
+        raise UsageError(f"The 'x_int' parameter of export must be an int array of shape {want} "
+                         f"(integer input payloads). Got {x.dtype} of shape {x.shape} instead.")
+    x = x.astype(np.int64)
+    if x.size and (x.min() < 0 or x.max() > net.input_q):
+        raise UsageError(f"The 'x_int' parameter of export must hold payloads in [0, {net.input_q}]. "
+                         f"Got values in [{x.min()}, {x.max()}] instead.")
+    if labels is not None:
+        labels = np.asarray(labels).reshape(-1)
+        if labels.shape[0] != x.shape[0] or labels.dtype.kind not in "iu":
+            raise UsageError(f"The 'labels' parameter of export must be {x.shape[0]} integer labels. "
+                             f"Got {labels.dtype} of shape {labels.shape} instead.")
+    return x, labels, vectors
+
+
+def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
+                   recipe: dict | None = None, csv: bool = True, progress: bool = True) -> Path:
+    """Write the export folder `out_dir` and return its manifest path.
+
+    x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
+    classes when `labels` are given) become golden vectors. vectors = 0 writes tables only.
+    An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
+    a non-empty folder that holds no export is refused.
+    """
+    x, labels, vectors = _check_inputs(net, x_int, labels, vectors)
+    csv = check_bool(csv, "csv", "export")
+    out = Path(out_dir)
+    old_files = _previous_export_files(out)
+
+    files: dict[str, bytes] = {}
+    npz_tables, specs = {}, {}
+    for i, tables in M.layer_tables(net):
+        lid = M.layer_id(i, net.layers[i].name)
+        specs[i] = {}
+        for kind, (spec, a) in tables.items():
+            stem = f"{lid}_{TABLE_SUFFIX[kind]}"
+            spec = dict(spec, file=f"{stem}.mem", csv=f"{stem}.csv" if csv else None, npz_key=f"{lid}.{kind}")
+            try:
+                files[spec["file"]] = format_mem(a, spec["bits"], spec["signed"],
+                                                 mem_header(lid, net.layers[i].kind, kind, spec, spec["file"])).encode()
+            except ValueError as exc:
+                raise ValueError(f"layer {lid}, table {kind}: {exc}") from None
+            if csv:
+                files[spec["csv"]] = format_csv(a, spec["index_names"]).encode()
+            npz_tables[spec["npz_key"]] = a
+            specs[i][kind] = spec
+    files[TABLES_NPZ] = npz_bytes(npz_tables)
+
+    idx = pick_samples(x.shape[0], vectors, labels)
+    vec_info = {"count": int(idx.size), "npz": None, "csv_folder": None}
+    if idx.size:
+        arrays = golden_vectors(net, x[idx], idx, None if labels is None else labels[idx], progress=progress)
+        files[VECTORS_NPZ] = npz_bytes(arrays)
+        vec_info.update(npz=VECTORS_NPZ, npz_keys=sorted(arrays))
+        if csv:
+            files.update(csv_files(net, arrays))
+            vec_info.update(csv_folder="vectors", sample_folder="vectors/sample_NNNN (NNNN = sample, 4 digits)")
+    if recipe is not None:
+        from snnconvert import recipe as recipe_mod
+        files["recipe.toml"] = recipe_mod.dumps(recipe).encode()
+
+    man = M.build_manifest(net, specs, {k: sha256_bytes(v) for k, v in sorted(files.items())}, vec_info, TABLES_NPZ,
+                           created=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    # The old manifest goes first and the new one comes last: a crash in between leaves no manifest
+    # that vouches for a half-written folder.
+    (out / MANIFEST).unlink(missing_ok=True)
+    for rel in sorted(old_files - set(files)):
+        resolve_inside(out, rel, "file").unlink(missing_ok=True)
+    for rel, data in files.items():
+        atomic_write_bytes(resolve_inside(out, rel, "file"), data)
+    return atomic_write_json(out / MANIFEST, man)
+
+
+def _previous_export_files(out: Path) -> set[str]:
+    """Files listed by an export already in `out`; refuses a non-empty folder that is not an export."""
+    if not out.exists():
+        return set()
+    if not out.is_dir():
+        raise UsageError(f"export folder {out} exists and is not a folder")
+    if not any(out.iterdir()):
+        return set()
+    man_path = out / MANIFEST
+    if not man_path.is_file():
+        raise UsageError(f"export folder {out} is not empty and holds no {MANIFEST}; choose an empty or new folder")
+    man = load_json(man_path)
+    if not isinstance(man, dict) or man.get("format") != M.FORMAT:
+        raise UsageError(f"{man_path} is not an snnconvert export manifest; refusing to overwrite {out}")
+    files = man.get("files", {})
+    return set(files) if isinstance(files, dict) else set()
