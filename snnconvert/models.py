@@ -1,0 +1,449 @@
+"""Frame models: a recipe's layer list -> an ordinary `torch.nn.Sequential`, plus the
+conversion-aware modules (clip-and-quantize activation, fake-quantized weights).
+
+Layer tables in `[model] layers` (all other keys are rejected with a did-you-mean hint):
+    {type="conv", out=8, kernel=3, stride=1, padding=1, bn=false}   padding defaults to kernel // 2
+    {type="maxpool", size=2, stride=2}  /  {type="avgpool", size=2, stride=2}   stride defaults to size
+    {type="dense", units=64, bn=false}
+    {type="dropout", p=0.1}
+Hidden conv/dense layers are followed by (BatchNorm, if bn) then ReLU. The LAST table must be a
+dense layer: it is the classifier and gives the class scores (no BN, no ReLU). Its `units` may be
+left out (it is then the number of classes of the data); if given it must equal that number.
+A Flatten is inserted before the first dense layer that follows a (C, H, W) tensor.
+
+The built model holds only Conv2d, BatchNorm2d/1d, ReLU, MaxPool2d, AvgPool2d, Dropout, Flatten
+and Linear, so the converter and users' own code see a plain torch model; a hand-written
+Sequential of the same pattern is accepted wherever a recipe model is (see `spec_from_model`).
+"""
+
+from __future__ import annotations
+
+import copy
+import sys
+
+import numpy as np
+import torch
+from torch import nn
+
+from snnconvert import arith
+from snnconvert.errors import (UsageError, check_bool, check_choice, check_float, check_int,
+                               unknown_key_message)
+from snnconvert.schema import Key
+
+LAYER_TYPES = ("conv", "maxpool", "avgpool", "dense", "dropout")
+
+# Per type: key -> (kind, lo, hi, required). Defaults that depend on other keys are filled in _layer.
+_LAYER_KEYS = {
+    "conv": {"out": ("int", 1, 4096, True), "kernel": ("int", 1, 15, False), "stride": ("int", 1, 8, False),
+             "padding": ("int", 0, 7, False), "bn": ("bool", None, None, False)},
+    "maxpool": {"size": ("int", 1, 8, True), "stride": ("int", 1, 8, False)},
+    "avgpool": {"size": ("int", 1, 8, True), "stride": ("int", 1, 8, False)},
+    "dense": {"units": ("int", 1, 65536, False), "bn": ("bool", None, None, False)},
+    "dropout": {"p": ("float", 0.0, 0.9, True)},
+}
+
+# Two 3x3 convs with max pooling then one hidden dense layer: on 16x16 digit frames this trains to
+# ~99% in a few CPU seconds per epoch; widths stay small so the integer network stays small.
+DEFAULT_LAYERS = [
+    {"type": "conv", "out": 16, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
+    {"type": "maxpool", "size": 2, "stride": 2},
+    {"type": "conv", "out": 32, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
+    {"type": "maxpool", "size": 2, "stride": 2},
+    {"type": "dense", "units": 64, "bn": False},
+    {"type": "dense"},
+]
+
+
+def check_layers(value, key: str = "layers", section: str = "model") -> list[dict]:
+    """Validate a layer list; returns it normalised (every optional key filled in)."""
+    if not isinstance(value, list) or not value:
+        raise UsageError(f"The '{key}' parameter of {section} must be a non-empty list of layer tables. "
+                         f"Got {value!r} instead.")
+    out = [_layer(item, f"{section}.{key}[{i}]") for i, item in enumerate(value)]
+    if out[-1]["type"] != "dense":
+        raise UsageError(f"The last layer of {section}.{key} must be a dense layer (the class scores). "
+                         f"Got type {out[-1]['type']!r} instead.")
+    if out[-1].get("bn"):
+        raise UsageError(f"The output layer {section}.{key}[{len(out) - 1}] cannot have bn=true: "
+                         f"class scores are not normalised.")
+    for i, layer in enumerate(out[:-1]):
+        if layer["type"] == "dense" and "units" not in layer:
+            raise UsageError(f"The 'units' parameter of {section}.{key}[{i}] is required for a hidden dense layer.")
+    return out
+
+
+def _layer(item, owner: str) -> dict:
+    if not isinstance(item, dict):
+        raise UsageError(f"The layer {owner} must be a table like {{type=\"conv\", out=8}}. Got {item!r} instead.")
+    if "type" not in item:
+        raise UsageError(f"The layer {owner} has no 'type'; use one of {', '.join(LAYER_TYPES)}.")
+    kind = check_choice(item["type"], "type", owner, LAYER_TYPES)
+    spec = _LAYER_KEYS[kind]
+    for k in item:
+        if k != "type" and k not in spec:
+            raise UsageError(unknown_key_message(k, f"{owner} ({kind})", list(spec) + ["type"]))
+    layer = {"type": kind}
+    for k, (kk, lo, hi, required) in spec.items():
+        if k not in item:
+            if required:
+                raise UsageError(f"The '{k}' parameter of {owner} ({kind}) is required.")
+            continue
+        v = item[k]
+        if kk == "int":
+            layer[k] = check_int(v, k, owner, lo, hi)
+        elif kk == "float":
+            layer[k] = check_float(v, k, owner, lo, hi)
+        else:
+            layer[k] = check_bool(v, k, owner)
+    if kind == "conv":
+        layer.setdefault("kernel", 3)
+        layer.setdefault("stride", 1)
+        layer.setdefault("padding", layer["kernel"] // 2)
+        layer.setdefault("bn", False)
+    elif kind in ("maxpool", "avgpool"):
+        layer.setdefault("stride", layer["size"])
+    elif kind == "dense":
+        layer.setdefault("bn", False)
+    return {k: layer[k] for k in ["type", *spec] if k in layer}
+
+
+SCHEMA = {
+    "layers": Key(DEFAULT_LAYERS, "any",
+                  "2 conv + 2 maxpool + 1 hidden dense: reaches ~99% on 16x16 digit frames in seconds on a laptop CPU",
+                  validator=check_layers),
+}
+
+
+# ---------------------------------------------------------------- building
+
+def build_model(model_section, input_shape, n_classes: int, quiet: bool = False) -> nn.Sequential:
+    """The [model] section (or its layer list) -> nn.Sequential for inputs of shape (C, H, W).
+
+    Every layer's output shape is computed here, so a kernel larger than its input or a conv
+    after a dense layer is reported at build time with the layer and both shapes.
+    """
+    layers = model_section.get("layers") if isinstance(model_section, dict) else model_section
+    layers = check_layers(layers)
+    n_classes = check_int(n_classes, "n_classes", "build_model", 2, 1_000_000)
+    shape = tuple(int(s) for s in input_shape)
+    if len(shape) != 3 or min(shape) < 1:
+        raise UsageError(f"The input shape of the model must be (C, H, W) with positive sizes. Got {shape} instead.")
+    mods: list[nn.Module] = []
+    last = len(layers) - 1
+    for i, L in enumerate(layers):
+        where = f"model.layers[{i}] ({L['type']})"
+        if L["type"] == "conv":
+            if len(shape) != 3:
+                raise UsageError(f"{where} needs a (C, H, W) input but gets shape {shape} from a dense layer before it.")
+            out_hw = _out_hw(shape, L["kernel"], L["stride"], L["padding"], where)
+            mods.append(nn.Conv2d(shape[0], L["out"], L["kernel"], L["stride"], L["padding"]))
+            if L["bn"]:
+                mods.append(nn.BatchNorm2d(L["out"]))
+            mods.append(nn.ReLU())
+            shape = (L["out"], *out_hw)
+        elif L["type"] in ("maxpool", "avgpool"):
+            if len(shape) != 3:
+                raise UsageError(f"{where} needs a (C, H, W) input but gets shape {shape} from a dense layer before it.")
+            out_hw = _out_hw(shape, L["size"], L["stride"], 0, where)
+            pool = nn.MaxPool2d if L["type"] == "maxpool" else nn.AvgPool2d
+            mods.append(pool(L["size"], L["stride"]))
+            shape = (shape[0], *out_hw)
+        elif L["type"] == "dropout":
+            mods.append(nn.Dropout(L["p"]))
+        else:  # dense
+            if len(shape) == 3:
+                mods.append(nn.Flatten())
+                shape = (int(np.prod(shape)),)
+            units = L.get("units", n_classes) if i == last else L["units"]
+            if i == last and units != n_classes:
+                raise UsageError(f"{where} is the output layer: its units must equal the number of classes. "
+                                 f"Got units={units} for {n_classes} classes.")
+            mods.append(nn.Linear(shape[0], units))
+            if i != last:
+                if L["bn"]:
+                    mods.append(nn.BatchNorm1d(units))
+                mods.append(nn.ReLU())
+            shape = (units,)
+    model = nn.Sequential(*mods)
+    if not quiet:
+        d = describe(model, input_shape)
+        print(f"model: {d['params']:,} parameters, {d['macs']:,} multiply-accumulates per sample", file=sys.stderr)
+    return model
+
+
+def _out_hw(shape, k: int, s: int, p: int, where: str) -> tuple[int, int]:
+    """floor((H + 2p - k) / s) + 1 per spatial axis (torch's rule); < 1 is a shape error."""
+    h = (shape[1] + 2 * p - k) // s + 1
+    w = (shape[2] + 2 * p - k) // s + 1
+    if h < 1 or w < 1:
+        raise UsageError(f"{where} with kernel {k}, stride {s}, padding {p} cannot take input shape {tuple(shape)}: "
+                         f"output shape would be ({shape[0]}, {h}, {w}).")
+    return h, w
+
+
+def describe(model: nn.Module, input_shape) -> dict:
+    """params = number of parameters; macs = dense multiply-accumulates per sample:
+    conv: C_out * H_out * W_out * (C_in / groups) * kh * kw;  linear: in * out.
+    Pooling, BN and ReLU are not counted (no multiplies by weights)."""
+    macs = 0
+
+    def hook(mod, inp, out):
+        nonlocal macs
+        if isinstance(mod, nn.Conv2d):
+            macs += out[0].numel() * (mod.in_channels // mod.groups) * mod.kernel_size[0] * mod.kernel_size[1]
+        elif isinstance(mod, nn.Linear):
+            macs += mod.in_features * mod.out_features
+
+    handles = [m.register_forward_hook(hook) for m in model.modules() if isinstance(m, (nn.Conv2d, nn.Linear))]
+    was_training = model.training
+    try:
+        model.eval()
+        with torch.no_grad():
+            model(torch.zeros((1, *[int(s) for s in input_shape])))  # (1, C, H, W)
+    finally:
+        for h in handles:
+            h.remove()
+        model.train(was_training)
+    return {"params": int(sum(p.numel() for p in model.parameters())), "macs": int(macs)}
+
+
+def spec_from_model(model: nn.Sequential) -> list[dict]:
+    """The layer list that `build_model` turns back into `model` (same module order and sizes).
+
+    Accepts the build pattern: Conv2d [BatchNorm2d] ReLU | MaxPool2d | AvgPool2d | Dropout |
+    Flatten | Linear [BatchNorm1d] ReLU | final Linear; the conversion-aware twins are accepted
+    too (QConv2d, QLinear, ClipQuant in place of ReLU). Anything else raises UsageError.
+    """
+    mods = list(model)
+    out, i = [], 0
+    while i < len(mods):
+        m = mods[i]
+        if isinstance(m, nn.Conv2d):
+            if m.groups != 1 or m.dilation != (1, 1) or m.kernel_size[0] != m.kernel_size[1] \
+                    or m.stride[0] != m.stride[1] or m.padding[0] != m.padding[1] or m.bias is None:
+                raise UsageError(f"layer {i} (Conv2d): only square, undilated, ungrouped convolutions with bias are supported")
+            L = {"type": "conv", "out": m.out_channels, "kernel": m.kernel_size[0], "stride": m.stride[0],
+                 "padding": m.padding[0], "bn": False}
+            i += 1
+            if i < len(mods) and isinstance(mods[i], nn.BatchNorm2d):
+                L["bn"] = True
+                i += 1
+            i = _expect_act(mods, i, "Conv2d")
+            out.append(L)
+        elif isinstance(m, (nn.MaxPool2d, nn.AvgPool2d)):
+            k, s = _pair(m.kernel_size), _pair(m.stride if m.stride is not None else m.kernel_size)
+            if k[0] != k[1] or s[0] != s[1] or _pair(m.padding) != (0, 0):
+                raise UsageError(f"layer {i} ({type(m).__name__}): only square pools without padding are supported")
+            out.append({"type": "maxpool" if isinstance(m, nn.MaxPool2d) else "avgpool", "size": k[0], "stride": s[0]})
+            i += 1
+        elif isinstance(m, nn.Dropout):
+            out.append({"type": "dropout", "p": float(m.p)})
+            i += 1
+        elif isinstance(m, nn.Flatten):
+            i += 1
+        elif isinstance(m, nn.Linear):
+            if m.bias is None:
+                raise UsageError(f"layer {i} (Linear): a bias is required")
+            L = {"type": "dense", "units": m.out_features, "bn": False}
+            i += 1
+            if i == len(mods):
+                out.append({"type": "dense", "units": m.out_features})
+                break
+            if isinstance(mods[i], nn.BatchNorm1d):
+                L["bn"] = True
+                i += 1
+            i = _expect_act(mods, i, "Linear")
+            out.append(L)
+        else:
+            raise UsageError(f"layer {i} ({type(m).__name__}) is not supported; use Conv2d, BatchNorm, ReLU, "
+                             f"MaxPool2d, AvgPool2d, Dropout, Flatten, Linear")
+    return check_layers(out)
+
+
+def _expect_act(mods, i, after: str) -> int:
+    if i >= len(mods) or not isinstance(mods[i], (nn.ReLU, ClipQuant)):
+        raise UsageError(f"layer {i}: a hidden {after} must be followed by ReLU")
+    return i + 1
+
+
+def _pair(v):
+    return tuple(v) if isinstance(v, (tuple, list)) else (v, v)
+
+
+# ---------------------------------------------------------------- batch-norm folding
+
+def fold_batchnorm(model: nn.Sequential) -> nn.Sequential:
+    """A copy of `model` with every BatchNorm folded into the conv/linear layer before it:
+        g = gamma / sqrt(running_var + eps);  w' = w * g[o];  b' = (b - running_mean) * g + beta
+    Exact for the model in eval mode (up to float rounding). A BatchNorm not directly after a
+    conv/linear raises UsageError. The input model is not modified.
+    """
+    mods = [copy.deepcopy(m) for m in model]
+    out: list[nn.Module] = []
+    for i, m in enumerate(mods):
+        if isinstance(m, (nn.BatchNorm2d, nn.BatchNorm1d)):
+            prev = out[-1] if out else None
+            if not isinstance(prev, (nn.Conv2d, nn.Linear)):
+                raise UsageError(f"layer {i} ({type(m).__name__}) must follow a Conv2d or Linear to be folded")
+            with torch.no_grad():
+                g = (m.weight if m.affine else torch.ones_like(m.running_var)) / torch.sqrt(m.running_var + m.eps)
+                beta = m.bias if m.affine else torch.zeros_like(m.running_mean)
+                prev.weight.mul_(g.reshape(-1, *[1] * (prev.weight.dim() - 1)))  # (O, ...)
+                b = prev.bias if prev.bias is not None else torch.zeros_like(g)
+                new_b = (b - m.running_mean) * g + beta
+                if prev.bias is None:
+                    prev.bias = nn.Parameter(new_b)
+                else:
+                    prev.bias.copy_(new_b)
+            continue
+        out.append(m)
+    folded = nn.Sequential(*out)
+    folded.train(model.training)
+    return folded
+
+
+# ---------------------------------------------------------------- conversion-aware modules
+
+def _round_ste(u: torch.Tensor) -> torch.Tensor:
+    """round half to even forward, identity gradient (straight-through; Bengio et al. 2013)."""
+    return u + (torch.round(u) - u).detach()
+
+
+class ClipQuant(nn.Module):
+    """y = a_max/L * clamp(round(x * L/a_max), 0, L),  L = levels = 2^p - 1.
+
+    The ReLU of a conversion-aware model: clip to [0, a_max] then quantize to L levels, so the
+    float model sees exactly the payload grid of the spike network (clip-floor activation,
+    Bu et al. 2022; straight-through gradients, Bengio et al. 2013). With learn=True, a_max
+    gets the gradient of the clip (1 above a_max) and of the rounding residual (in range).
+    a_max is kept >= 1e-6 in the forward pass so the scale never reaches zero.
+    """
+
+    def __init__(self, a_max: float = 1.0, levels: int = 1, learn: bool = True):
+        super().__init__()
+        self.levels = check_int(levels, "levels", "ClipQuant", 1, 2**16)
+        self.a_max = nn.Parameter(torch.tensor(float(a_max), dtype=torch.float32), requires_grad=bool(learn))
+
+    def forward(self, x):
+        s = self.a_max.clamp_min(1e-6) / self.levels
+        q = torch.clamp(_round_ste(x / s), 0, self.levels)
+        return q * s
+
+    def extra_repr(self) -> str:
+        return f"levels={self.levels}, a_max={float(self.a_max):.4g}, learn={self.a_max.requires_grad}"
+
+
+def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
+    """w_q = s * clamp(round(w * (1/s)), -(2^(k-1)-1), 2^(k-1)-1),  s = max|w| / (2^(k-1)-1)
+    (max over the layer or over each output channel; the rule of `arith.weight_scale`;
+    Jacob et al. 2018). Rounds half to even and multiplies by 1/s in float32, like
+    torch.fake_quantize_per_tensor_affine. Gradients pass straight through; s is not learned.
+    An all-zero weight tensor gives s = 1e-12 / qmax and w_q = 0.
+    """
+    qm = arith.weight_max(bits)
+    flat = w.detach().abs().reshape(w.shape[0], -1)  # (O, fan_in)
+    r = flat.amax(dim=1) if per_channel else flat.amax().expand(w.shape[0])
+    s = (r.clamp_min(1e-12) / qm).reshape(-1, *[1] * (w.dim() - 1))  # (O, 1, ...)
+    inv = 1.0 / s
+    wq = torch.clamp(torch.round(w.detach() * inv), -qm, qm) * s
+    return w + (wq - w).detach()
+
+
+class QConv2d(nn.Conv2d):
+    """Conv2d whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
+
+    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.weight_bits = check_int(weight_bits, "weight_bits", "QConv2d", 2, 16)
+        self.per_channel = check_bool(per_channel, "per_channel", "QConv2d")
+
+    def forward(self, x):
+        return self._conv_forward(x, weight_fake_quant(self.weight, self.weight_bits, self.per_channel), self.bias)
+
+    def extra_repr(self) -> str:
+        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+
+
+class QLinear(nn.Linear):
+    """Linear whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
+
+    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.weight_bits = check_int(weight_bits, "weight_bits", "QLinear", 2, 16)
+        self.per_channel = check_bool(per_channel, "per_channel", "QLinear")
+
+    def forward(self, x):
+        return nn.functional.linear(x, weight_fake_quant(self.weight, self.weight_bits, self.per_channel), self.bias)
+
+    def extra_repr(self) -> str:
+        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+
+
+def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_channel: bool,
+               act_max=None, learn_act_max: bool = True) -> nn.Sequential:
+    """The conversion-aware twin of `model`: BN folded, Conv2d/Linear -> QConv2d/QLinear,
+    ReLU -> ClipQuant(a_max, 2^p - 1). `act_max` gives one a_max per ReLU (in order); None
+    starts every a_max at 1.0 (calibrate with `activation_ranges` for a better start).
+    The input model is not modified.
+    """
+    weight_bits = check_int(weight_bits, "weight_bits", "convert", 2, 16)
+    payload_bits = check_int(payload_bits, "payload_bits", "convert", 1, 16)
+    per_channel = check_bool(per_channel, "per_channel", "convert")
+    folded = fold_batchnorm(model)
+    n_act = sum(isinstance(m, (nn.ReLU, ClipQuant)) for m in folded)
+    if act_max is not None:
+        act_max = [float(a) for a in act_max]
+        if len(act_max) != n_act:
+            raise UsageError(f"act_max has {len(act_max)} values but the model has {n_act} activations")
+        for j, a in enumerate(act_max):
+            check_float(a, f"act_max[{j}]", "make_aware", 0.0, None, lo_open=True)
+    levels = arith.payload_max(payload_bits)
+    out, j = [], 0
+    for m in folded:
+        if isinstance(m, nn.Conv2d):
+            q = QConv2d(m.in_channels, m.out_channels, m.kernel_size, m.stride, m.padding, m.dilation, m.groups,
+                        m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
+            q.load_state_dict(m.state_dict())
+            out.append(q)
+        elif isinstance(m, nn.Linear):
+            q = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
+            q.load_state_dict(m.state_dict())
+            out.append(q)
+        elif isinstance(m, (nn.ReLU, ClipQuant)):
+            a = act_max[j] if act_max is not None else (float(m.a_max) if isinstance(m, ClipQuant) else 1.0)
+            out.append(ClipQuant(a, levels, learn=learn_act_max))
+            j += 1
+        else:
+            out.append(copy.deepcopy(m))
+    aware = nn.Sequential(*out)
+    aware.train(model.training)
+    return aware
+
+
+def activation_ranges(model: nn.Sequential, x: torch.Tensor, percentile: float = 99.99,
+                      batch_size: int = 512) -> list[float]:
+    """r_l = the given percentile of the float activation after each ReLU/ClipQuant over `x`
+    (robust normalisation, Rueckauer et al. 2017; 100 = the maximum). Zero-only layers give
+    a small positive range (1e-3) so a scale can still be formed.
+    """
+    check_float(percentile, "percentile", "activation_ranges", 0.0, 100.0, lo_open=True)
+    acts = [m for m in model if isinstance(m, (nn.ReLU, ClipQuant))]
+    bufs: list[list[torch.Tensor]] = [[] for _ in acts]
+    hooks = [m.register_forward_hook(lambda mod, inp, out, j=j: bufs[j].append(inp[0].detach().clamp_min(0).flatten()))
+             for j, m in enumerate(acts)]
+    was_training = model.training
+    model.eval()
+    try:
+        with torch.no_grad():
+            for i in range(0, len(x), batch_size):
+                model(x[i:i + batch_size])  # (B, C, H, W)
+    finally:
+        for h in hooks:
+            h.remove()
+        model.train(was_training)
+    out = []
+    for b in bufs:
+        v = torch.cat(b).double().numpy()
+        r = float(np.percentile(v, percentile)) if v.size else 0.0
+        out.append(r if r > 0 else 1e-3)
+    return out

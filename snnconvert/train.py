@@ -1,0 +1,489 @@
+"""Train the frame CNN on CPU; optional conversion-aware fine-tuning; checkpoint and evaluation.
+
+One call, `train(recipe, dataset, out_dir)`, writes to out_dir:
+    model.pt       checkpoint (torch.load(weights_only=True) safe: tensors and plain containers)
+    recipe.toml    the resolved recipe
+    metrics.json   frame_accuracy, per_class_accuracy, confusion, epochs, train_seconds, ...
+    history.csv    one row per epoch (phase float/aware)
+    curves.png     loss and accuracy per epoch;  confusion.png  test confusion matrix
+
+Every random draw comes from the recipe seed: weight init and dropout (torch.manual_seed of a
+sub-seed), batch order and augmentation (a torch.Generator of another sub-seed). Same recipe,
+same data, same thread count -> bit-identical checkpoint.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import copy
+import csv
+import io
+import math
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import torch
+from torch import nn
+from tqdm import tqdm
+
+from snnconvert import files, models
+from snnconvert import recipe as recipe_mod
+from snnconvert.errors import FormatError, UsageError, check_bool, check_int
+from snnconvert.schema import Key
+
+CHECKPOINT_FORMAT = "snnconvert-checkpoint"
+CHECKPOINT_VERSION = 1
+
+SCHEMA: dict[str, Key] = {
+    "optimizer": Key("adam", "choice", "Adam needs no learning-rate search for small CNNs", choices=("adam", "sgd")),
+    "lr": Key(0.003, "float", "a little above Adam's usual 1e-3: small batches of binary frames train stably at it",
+              lo=0.0, hi=10.0),
+    "momentum": Key(0.9, "float", "the usual SGD momentum (common practice); unused by Adam", lo=0.0, hi=0.999),
+    "weight_decay": Key(0.0001, "float", "light L2 keeps weights small, which helps low-bit quantization",
+                        lo=0.0, hi=1.0),
+    "schedule": Key("cosine", "choice", "cosine decay to zero ends training at a flat, quantization-friendly point",
+                    choices=("constant", "step", "cosine")),
+    "step_epochs": Key(10, "int", "step schedule: decay every 10 epochs (common practice)", lo=1),
+    "step_gamma": Key(0.1, "float", "step schedule: divide by 10 at each step (common practice)", lo=0.0, hi=1.0),
+    "batch_size": Key(32, "int", "small batches give more updates per second on 2 CPU cores", lo=1, hi=65536),
+    "epochs": Key(15, "int", "enough for ~99% on the digits frames within the 60 s budget", lo=1, hi=10000),
+    "patience": Key(0, "int", "0 = no early stop: with a cosine schedule the last epochs are the best; "
+                    "the best-validation model is kept either way", lo=0),
+    "shift": Key(1, "int", "shifting frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
+    "event_dropout": Key(0.1, "float", "removing 10% of input events mimics sensor noise and threshold mismatch",
+                         lo=0.0, hi=0.9),
+    "threads": Key(0, "int", "0 = auto: one torch thread per available core, at most 2 on the target laptop",
+                   lo=0, hi=256),
+    "aware": Key(False, "bool", "conversion-aware fine-tuning is opt-in: plain float training is the baseline"),
+    "aware_epochs": Key(3, "int", "a few epochs recover most accuracy lost to low-bit weights and payloads",
+                        lo=1, hi=1000),
+    "aware_lr": Key(0.0005, "float", "fine-tuning: a tenth of a training rate keeps the float solution", lo=0.0, hi=10.0),
+    "learn_act_max": Key(True, "bool", "a trainable clip range adapts to the quantized grid (PACT-style clipping)"),
+    "act_percentile": Key(99.99, "float", "start each clip range at a robust maximum (Rueckauer et al. 2017)",
+                          lo=50.0, hi=100.0),
+}
+
+
+# ---------------------------------------------------------------- public API
+
+def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tuple[nn.Sequential, dict]:
+    """Train the recipe's model on `dataset`, evaluate on its test split, write the artifacts.
+
+    `init`: None (train from scratch), a checkpoint file/folder, or an nn.Sequential to start
+    from. With `[train] aware = true` the float model (trained here, or `init`) is fine-tuned
+    conversion-aware for `aware_epochs` with the [convert] weight_bits/payload_bits/per_channel.
+    Returns (model in eval mode, metrics dict).
+    """
+    cfg = recipe["train"]
+    seed = int(recipe["seed"])
+    out_dir = Path(out_dir)
+    _check_dataset(dataset)
+    n_classes = len(dataset.classes)
+    input_shape = tuple(int(s) for s in dataset.input_shape)
+    with _threads(cfg["threads"]):
+        ss = np.random.SeedSequence(seed)
+        init_seed, data_seed, aware_seed = (int(s.generate_state(1)[0]) for s in ss.spawn(3))
+        history: list[dict] = []
+        t0 = time.perf_counter()
+        float_acc = None
+        if init is None:
+            torch.manual_seed(init_seed)
+            model = models.build_model(recipe["model"], input_shape, n_classes, quiet=quiet)
+            model, hist = _fit(model, dataset, cfg, cfg["epochs"], cfg["lr"], data_seed, quiet, "float")
+            history += hist
+        else:
+            model = _init_model(init, input_shape, n_classes)
+            if not cfg["aware"]:
+                torch.manual_seed(init_seed)
+                model, hist = _fit(model, dataset, cfg, cfg["epochs"], cfg["lr"], data_seed, quiet, "float")
+                history += hist
+        aware_info, act_max = None, None
+        if cfg["aware"]:
+            float_acc = evaluate(model, *dataset.test)["accuracy"]
+            conv = recipe.get("convert", {})
+            for k in ("weight_bits", "payload_bits", "per_channel"):
+                if k not in conv:
+                    raise UsageError(f"aware training needs '{k}' in the [convert] section of the recipe")
+            model, act_max, hist = _finetune(model, dataset, recipe, conv["weight_bits"], conv["payload_bits"],
+                                             conv["per_channel"], cfg["aware_epochs"], aware_seed, quiet)
+            history += hist
+            aware_info = {"weight_bits": int(conv["weight_bits"]), "payload_bits": int(conv["payload_bits"]),
+                          "per_channel": bool(conv["per_channel"]), "learn_act_max": bool(cfg["learn_act_max"])}
+        train_seconds = time.perf_counter() - t0
+        ev = evaluate(model, *dataset.test)
+
+    d = models.describe(model, input_shape)
+    cm = ev["confusion"]
+    per_class = {}
+    for i, name in enumerate(dataset.classes):
+        total = int(cm[i].sum())
+        per_class[str(name)] = float(cm[i, i] / total) if total else None  # no test samples of that class
+    val_best = max((h["val_accuracy"] for h in history if h["val_accuracy"] is not None), default=None)
+    metrics = {
+        "frame_accuracy": ev["accuracy"],
+        "test_correct": ev["correct"],
+        "test_count": ev["count"],
+        "per_class_accuracy": per_class,
+        "confusion": cm.tolist(),
+        "classes": [str(c) for c in dataset.classes],
+        "epochs": sum(1 for h in history if h["phase"] == "float"),
+        "aware_epochs": sum(1 for h in history if h["phase"] == "aware"),
+        "best_val_accuracy": val_best,
+        "train_seconds": round(train_seconds, 3),
+        "threads": _resolve_threads(cfg["threads"]),
+        "params": d["params"],
+        "macs": d["macs"],
+        "float_frame_accuracy": float_acc,
+        "aware": aware_info,
+        "data_fingerprint": str(dataset.fingerprint),
+    }
+    # an aware model has no BN left, so its spec rebuilds the folded float skeleton for make_aware
+    spec = {"layers": models.spec_from_model(model), "input_shape": list(input_shape), "n_classes": n_classes,
+            "classes": [str(c) for c in dataset.classes], "input_q": int(dataset.input_q)}
+    ckpt = {
+        "format": CHECKPOINT_FORMAT, "version": CHECKPOINT_VERSION,
+        "state_dict": {k: v.detach().clone() for k, v in model.state_dict().items()},
+        "model_spec": spec,
+        "recipe": recipe_mod.plain(recipe),
+        "data_fingerprint": str(dataset.fingerprint),
+        "metrics": metrics,
+        "act_max": act_max,
+        "aware": aware_info,
+    }
+    out_dir.mkdir(parents=True, exist_ok=True)
+    files.atomic_torch_save(ckpt, out_dir / "model.pt")
+    recipe_mod.save(recipe, out_dir)
+    files.atomic_write_json(out_dir / "metrics.json", metrics)
+    _write_history(history, out_dir / "history.csv")
+    plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training")
+    plot_confusion(cm, dataset.classes, out_dir / "confusion.png",
+                   f"frame model, test accuracy {100 * ev['accuracy']:.2f}% ({ev['correct']}/{ev['count']})")
+    return model, metrics
+
+
+def finetune_aware(model: nn.Sequential, dataset, recipe: dict, weight_bits: int, payload_bits: int,
+                   per_channel: bool, epochs: int, seed: int, quiet: bool = True) -> tuple[nn.Sequential, list]:
+    """Conversion-aware fine-tuning of a float model for one (k, p) budget.
+
+    a_max starts at the `[train] act_percentile` of each float activation on the training split,
+    then (if `learn_act_max`) trains with the weights. Uses the recipe's [train] optimiser,
+    batch size, augmentation and `aware_lr` (cosine to zero). Keeps the best-validation epoch.
+    Returns (aware model in eval mode, act_max list of floats, one per activation).
+    Deterministic for a given seed; the input model is not modified.
+    """
+    with _threads(recipe["train"]["threads"]):
+        aware, act_max, _ = _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel,
+                                      epochs, int(seed), quiet)
+    return aware, act_max
+
+
+def load_checkpoint(path) -> tuple[nn.Sequential, dict]:
+    """Load `model.pt` (or `folder/model.pt`) and rebuild its model in eval mode.
+
+    Refuses anything but this project's checkpoint format/version; never unpickles code.
+    """
+    path = Path(path)
+    if path.is_dir():
+        path = path / "model.pt"
+    ckpt = files.load_torch(path)
+    if not isinstance(ckpt, dict) or ckpt.get("format") != CHECKPOINT_FORMAT:
+        got = ckpt.get("format") if isinstance(ckpt, dict) else type(ckpt).__name__
+        raise FormatError(f"{path}: field 'format' must be {CHECKPOINT_FORMAT!r}. Got {got!r} instead.")
+    if ckpt.get("version") != CHECKPOINT_VERSION:
+        raise FormatError(f"{path}: field 'version' must be {CHECKPOINT_VERSION}. Got {ckpt.get('version')!r} instead.")
+    for k in ("state_dict", "model_spec", "recipe", "data_fingerprint", "metrics", "act_max", "aware"):
+        if k not in ckpt:
+            raise FormatError(f"{path}: checkpoint has no field '{k}'")
+    spec = ckpt["model_spec"]
+    try:
+        model = models.build_model({"layers": spec["layers"]}, spec["input_shape"], spec["n_classes"], quiet=True)
+        if ckpt["aware"]:
+            a = ckpt["aware"]
+            model = models.make_aware(model, a["weight_bits"], a["payload_bits"], a["per_channel"],
+                                      act_max=ckpt["act_max"], learn_act_max=a.get("learn_act_max", True))
+        model.load_state_dict(ckpt["state_dict"])
+    except (UsageError, KeyError, TypeError, RuntimeError) as exc:
+        raise FormatError(f"{path}: model_spec does not match state_dict ({type(exc).__name__}: "
+                          f"{' '.join(str(exc).split())[:300]})") from None
+    model.eval()
+    return model, ckpt
+
+
+def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int = 1024) -> dict:
+    """accuracy = mean(argmax(model(x)) == y) in eval mode; plus the confusion matrix (rows = true)."""
+    from sklearn.metrics import confusion_matrix
+    x, y = torch.as_tensor(x), torch.as_tensor(y)
+    was = model.training
+    model.eval()
+    preds = []
+    with torch.no_grad():
+        for i in range(0, len(x), batch_size):
+            preds.append(model(x[i:i + batch_size]).argmax(1))  # (B,)
+    model.train(was)
+    pred = torch.cat(preds) if preds else torch.zeros(0, dtype=torch.long)
+    n_out = _n_outputs(model)
+    correct = int((pred == y).sum())
+    cm = confusion_matrix(y.numpy(), pred.numpy(), labels=list(range(n_out)))
+    return {"accuracy": correct / len(y) if len(y) else float("nan"), "correct": correct, "count": int(len(y)),
+            "confusion": cm, "pred": pred}
+
+
+def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
+    """PNG of a confusion matrix (rows = true class, columns = predicted), counts written in cells."""
+    plt = _pyplot()
+    cm = np.asarray(cm)
+    n = cm.shape[0]
+    fig, ax = plt.subplots(figsize=(1.2 + 0.45 * n, 1.0 + 0.45 * n), dpi=100)
+    ax.imshow(cm, cmap="Blues")
+    hi = cm.max() if cm.size else 0
+    for i in range(n):
+        for j in range(cm.shape[1]):
+            if cm[i, j]:
+                ax.text(j, i, str(int(cm[i, j])), ha="center", va="center", fontsize=8,
+                        color="white" if cm[i, j] > hi / 2 else "black")
+    labels = [str(c) for c in classes]
+    ax.set_xticks(range(cm.shape[1]), labels[:cm.shape[1]])
+    ax.set_yticks(range(n), labels[:n])
+    ax.set_xlabel("predicted")
+    ax.set_ylabel("true")
+    ax.set_title(title, fontsize=9)
+    return _save_fig(fig, path)
+
+
+def plot_curves(history: list[dict], path, title: str = "training") -> Path:
+    """PNG: loss (left) and accuracy (right) per epoch, train and validation; aware epochs shaded."""
+    plt = _pyplot()
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=100)
+    ep = [i + 1 for i in range(len(history))]
+    a1.plot(ep, [h["train_loss"] for h in history], label="train")
+    a1.plot(ep, [h["val_loss"] if h["val_loss"] is not None else math.nan for h in history], label="validation")
+    a2.plot(ep, [100 * h["train_accuracy"] for h in history], label="train")
+    a2.plot(ep, [100 * h["val_accuracy"] if h["val_accuracy"] is not None else math.nan for h in history],
+            label="validation")
+    aware = [e for e, h in zip(ep, history) if h["phase"] == "aware"]
+    for ax in (a1, a2):
+        if aware:
+            ax.axvspan(aware[0] - 0.5, aware[-1] + 0.5, color="orange", alpha=0.15, label="conversion-aware")
+        ax.set_xlabel("epoch")
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=8)
+    a1.set_ylabel("cross-entropy loss")
+    a2.set_ylabel("accuracy (%)")
+    fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return _save_fig(fig, path)
+
+
+# ---------------------------------------------------------------- the loop
+
+def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
+    """Mini-batch training with the recipe's optimiser/schedule/augmentation; returns the model
+    with the best-validation weights loaded (last epoch if there is no validation split) and
+    one history row per epoch. Early stop after `patience` epochs without improvement (0: off)."""
+    xtr, ytr = (torch.as_tensor(a) for a in dataset.train)
+    xva, yva = (torch.as_tensor(a) for a in dataset.val)
+    n = len(ytr)
+    if n == 0:
+        raise UsageError("the training split is empty; check the [data] section")
+    bs = min(cfg["batch_size"], n)
+    steps = math.ceil(n / bs)
+    total = epochs * steps
+    gen = torch.Generator().manual_seed(int(seed))
+    params = [p for p in model.parameters() if p.requires_grad]
+    if cfg["optimizer"] == "adam":
+        opt = torch.optim.Adam(params, lr=lr, weight_decay=cfg["weight_decay"])
+    else:
+        opt = torch.optim.SGD(params, lr=lr, momentum=cfg["momentum"], weight_decay=cfg["weight_decay"])
+    loss_fn = nn.CrossEntropyLoss()
+    integral = bool(torch.equal(xtr, xtr.round()))
+    best_acc, best_state, bad, history = -1.0, None, 0, []
+    step = 0
+    for epoch in range(epochs):
+        model.train()
+        t_ep = time.perf_counter()
+        perm = torch.randperm(n, generator=gen)
+        loss_sum, correct = 0.0, 0
+        bar = tqdm(range(steps), desc=f"{phase} epoch {epoch + 1}/{epochs}", file=sys.stderr, disable=quiet,
+                   leave=False, dynamic_ncols=True)
+        for b in bar:
+            for g in opt.param_groups:
+                g["lr"] = _lr_at(cfg, lr, step, total, epoch)
+            idx = perm[b * bs:(b + 1) * bs]
+            xb = augment(xtr[idx], cfg["shift"], cfg["event_dropout"], gen, integral)  # (B, C, H, W)
+            yb = ytr[idx]
+            out = model(xb)  # (B, classes)
+            loss = loss_fn(out, yb)
+            opt.zero_grad(set_to_none=True)
+            loss.backward()
+            opt.step()
+            step += 1
+            loss_sum += float(loss.detach()) * len(idx)
+            correct += int((out.argmax(1) == yb).sum())
+            if not quiet and (b % 10 == 0 or b == steps - 1):
+                bar.set_postfix(loss=f"{loss_sum / min(n, (b + 1) * bs):.3f}",
+                                acc=f"{100 * correct / min(n, (b + 1) * bs):.1f}%")
+        bar.close()
+        row = {"phase": phase, "epoch": epoch + 1, "lr": _lr_at(cfg, lr, max(step - 1, 0), total, epoch),
+               "train_loss": loss_sum / n, "train_accuracy": correct / n, "val_loss": None, "val_accuracy": None}
+        if len(yva):
+            model.eval()
+            with torch.no_grad():
+                out = model(xva)  # (Nv, classes)
+            row["val_loss"] = float(loss_fn(out, yva))
+            row["val_accuracy"] = float((out.argmax(1) == yva).float().mean())
+            score = row["val_accuracy"]
+        else:
+            score = epoch  # no validation split: keep the last epoch
+        row["seconds"] = round(time.perf_counter() - t_ep, 3)
+        history.append(row)
+        if not quiet:
+            va = "-" if row["val_accuracy"] is None else f"{100 * row['val_accuracy']:.2f}%"
+            print(f"{phase} epoch {epoch + 1}/{epochs}: loss {row['train_loss']:.4f}, "
+                  f"train {100 * row['train_accuracy']:.2f}%, val {va}", file=sys.stderr)
+        if score > best_acc:
+            best_acc, bad = score, 0
+            best_state = copy.deepcopy(model.state_dict())
+        else:
+            bad += 1
+            if cfg["patience"] and bad >= cfg["patience"]:
+                break
+    model.load_state_dict(best_state)
+    model.eval()
+    return model, history
+
+
+def _lr_at(cfg, lr, step, total, epoch) -> float:
+    """constant: lr;  step: lr * gamma^floor(epoch / step_epochs);  cosine: lr * (1 + cos(pi * step / total)) / 2."""
+    if cfg["schedule"] == "cosine":
+        return lr * 0.5 * (1.0 + math.cos(math.pi * step / max(total, 1)))
+    if cfg["schedule"] == "step":
+        return lr * cfg["step_gamma"] ** (epoch // cfg["step_epochs"])
+    return lr
+
+
+def augment(x: torch.Tensor, shift: int, event_dropout: float, gen: torch.Generator,
+            integral: bool = True) -> torch.Tensor:
+    """Random shift of each frame by (dy, dx) in [-shift, shift]^2 (zero fill, events leaving the
+    frame are lost; no wrap-around), then event dropout: each of the x events of a pixel survives
+    with probability 1 - event_dropout (binomial thinning; for binary frames a pixel mask).
+    Non-integer frames get a per-pixel mask instead. shift = 0 and event_dropout = 0 return x.
+    """
+    if shift > 0:
+        n, c, h, w = x.shape
+        pad = torch.nn.functional.pad(x, (shift, shift, shift, shift))  # (N, C, H+2s, W+2s)
+        off = torch.randint(0, 2 * shift + 1, (n, 2), generator=gen)     # (N, 2) crop offsets
+        rows = (off[:, 0, None] + torch.arange(h))[:, None, :, None]     # (N, 1, H, 1)
+        cols = (off[:, 1, None] + torch.arange(w))[:, None, None, :]     # (N, 1, 1, W)
+        bidx = torch.arange(n)[:, None, None, None]
+        cidx = torch.arange(c)[None, :, None, None]
+        x = pad[bidx, cidx, rows, cols]                                   # (N, C, H, W)
+    if event_dropout > 0:
+        keep = torch.full_like(x, 1.0 - event_dropout)
+        if integral:
+            x = torch.binomial(x.clamp_min(0), keep, generator=gen)
+        else:
+            x = x * torch.bernoulli(keep, generator=gen)
+    return x
+
+
+def _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel, epochs, seed, quiet):
+    cfg = recipe["train"]
+    check_int(epochs, "aware_epochs", "train", 1, 100000)
+    check_bool(per_channel, "per_channel", "convert")
+    xtr = torch.as_tensor(dataset.train[0])
+    folded = models.fold_batchnorm(model).eval()
+    act0 = models.activation_ranges(folded, xtr, cfg["act_percentile"])
+    aware = models.make_aware(folded, weight_bits, payload_bits, per_channel, act_max=act0,
+                              learn_act_max=cfg["learn_act_max"])
+    torch.manual_seed(int(seed))
+    aware, hist = _fit(aware, dataset, cfg, epochs, cfg["aware_lr"], int(seed) ^ 0x5EED, quiet, "aware")
+    act_max = [float(m.a_max.detach().clamp_min(1e-6)) for m in aware if isinstance(m, models.ClipQuant)]
+    return aware, act_max, hist
+
+
+# ---------------------------------------------------------------- helpers
+
+def _init_model(init, input_shape, n_classes):
+    if isinstance(init, nn.Module):
+        if not isinstance(init, nn.Sequential):
+            raise UsageError(f"init must be an nn.Sequential or a checkpoint path. Got {type(init).__name__} instead.")
+        models.spec_from_model(init)  # rejects unsupported layer patterns early
+        model = copy.deepcopy(init)
+    else:
+        model, ckpt = load_checkpoint(init)
+        if ckpt["aware"]:
+            raise UsageError(f"init checkpoint {init} is already conversion-aware; start from a float checkpoint")
+    model.eval()
+    try:
+        with torch.no_grad():
+            out = model(torch.zeros((1, *input_shape)))  # (1, classes)
+    except RuntimeError as exc:
+        raise UsageError(f"init model does not accept input shape {tuple(input_shape)}: "
+                         f"{' '.join(str(exc).split())[:200]}") from None
+    if out.shape[1] != n_classes:
+        raise UsageError(f"init model gives {out.shape[1]} class scores but the data has {n_classes} classes")
+    return model
+
+
+def _check_dataset(ds) -> None:
+    for attr in ("train", "val", "test", "classes", "input_shape", "input_q", "fingerprint"):
+        if not hasattr(ds, attr):
+            raise TypeError(f"dataset has no attribute '{attr}' (see the data contract in DEVELOPERS.md)")
+    for split in ("train", "val", "test"):
+        x, y = getattr(ds, split)
+        if len(x) != len(y):
+            raise UsageError(f"dataset split '{split}' has {len(x)} frames but {len(y)} labels")
+
+
+def _n_outputs(model) -> int:
+    last = [m for m in model.modules() if isinstance(m, nn.Linear)]
+    return last[-1].out_features if last else 0
+
+
+def _resolve_threads(threads: int) -> int:
+    if threads:
+        return int(threads)
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(2, cores))
+
+
+@contextlib.contextmanager
+def _threads(threads: int):
+    """Set torch's intra-op threads for the block and restore the caller's setting after."""
+    before = torch.get_num_threads()
+    torch.set_num_threads(_resolve_threads(threads))
+    try:
+        yield
+    finally:
+        torch.set_num_threads(before)
+
+
+def _write_history(history, path) -> None:
+    buf = io.StringIO()
+    cols = ["phase", "epoch", "lr", "train_loss", "train_accuracy", "val_loss", "val_accuracy", "seconds"]
+    w = csv.DictWriter(buf, fieldnames=cols, lineterminator="\n")
+    w.writeheader()
+    for h in history:
+        w.writerow({k: ("" if h.get(k) is None else h[k]) for k in cols})
+    files.atomic_write_text(path, buf.getvalue())
+
+
+def _pyplot():
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    return plt
+
+
+def _save_fig(fig, path) -> Path:
+    plt = _pyplot()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    plt.close(fig)
+    return files.atomic_write_bytes(path, buf.getvalue())
