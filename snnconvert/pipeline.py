@@ -1,0 +1,248 @@
+"""`snnconvert run`: every stage of a recipe, in order, into one run folder.
+
+    data -> train -> convert -> sweep -> export -> verify -> report -> summary.json
+
+Each stage fingerprints its inputs (the recipe sections it reads plus the fingerprints of the
+stages it depends on). A stage whose fingerprint matches the one recorded in `stages.json`, and
+whose outputs are all present, is reused instead of redone; `--force STAGE` redoes that stage and
+every stage after it. `stages.json` is rewritten atomically after each stage, so Ctrl-C leaves the
+finished stages intact and the next run picks up where this one stopped.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import recipe as recipe_mod
+from snnconvert.errors import UsageError
+from snnconvert.files import atomic_write_json, fingerprint, load_json
+
+STAGES = ["data", "train", "convert", "sweep", "export", "verify", "report"]
+STAGE_LOG_VERSION = 1
+
+# What each stage reads: recipe sections, and the stages whose results it consumes.
+_READS = {
+    "data": (["data", "frames"], []),
+    "train": (["model", "train", "convert"], ["data"]),
+    "convert": (["convert"], ["train"]),
+    "sweep": (["sweep", "convert"], ["train"]),
+    "export": (["export"], ["convert"]),
+    "verify": ([], ["export"]),
+    "report": ([], ["data", "train", "convert", "sweep", "export", "verify"]),
+}
+_OUTPUTS = {
+    "data": ["data/summary.json"],
+    "train": ["train/model.pt", "train/metrics.json"],
+    "convert": ["net/network.json", "net/network.npz", "net/metrics.json"],
+    "sweep": ["sweep/results.jsonl"],
+    "export": ["export/manifest.json"],
+    "verify": ["verify.json"],
+    "report": ["report.html"],
+}
+
+
+def _say(msg: str) -> None:
+    print(msg, file=sys.stderr, flush=True)
+
+
+class Run:
+    """One run folder and its stage log."""
+
+    def __init__(self, recipe: dict, out: Path, force: str | None = None):
+        self.recipe = recipe
+        self.out = Path(out)
+        self.force = force
+        self.log_path = self.out / "stages.json"
+        self.log = self._read_log()
+        self.fingerprints: dict[str, str] = {}
+        self._dataset = None
+        self.actions: dict[str, str] = {}
+
+    def _read_log(self) -> dict:
+        if self.log_path.is_file():
+            log = load_json(self.log_path)
+            if log.get("version") == STAGE_LOG_VERSION:
+                return log
+        return {"version": STAGE_LOG_VERSION, "stages": {}}
+
+    def _write_log(self) -> None:
+        atomic_write_json(self.log_path, self.log)
+
+    def dataset(self):
+        if self._dataset is None:
+            from snnconvert.data import load_dataset
+            self._dataset = load_dataset(self.recipe)
+        return self._dataset
+
+    def stage(self, name: str, fn) -> None:
+        sections, deps = _READS[name]
+        fp = fingerprint(name, self.recipe.get("seed"), {s: self.recipe.get(s) for s in sections},
+                         [self.fingerprints[d] for d in deps if d in self.fingerprints])
+        self.fingerprints[name] = fp
+        rec = self.log["stages"].get(name)
+        forced = self.force is not None and STAGES.index(name) >= STAGES.index(self.force)
+        outputs_ok = all((self.out / p).exists() for p in _OUTPUTS[name])
+        if rec and rec.get("fingerprint") == fp and rec.get("status") == "done" and outputs_ok and not forced:
+            self.actions[name] = "reused"
+            rec["last_action"] = "reused"
+            self._write_log()
+            _say(f"[{name}] reused (inputs unchanged, fingerprint {fp})")
+            return
+        _say(f"[{name}] running ...")
+        t0 = time.perf_counter()
+        self.log["stages"][name] = {"fingerprint": fp, "status": "running"}
+        self._write_log()
+        fn()
+        secs = time.perf_counter() - t0
+        self.log["stages"][name] = {"fingerprint": fp, "status": "done", "seconds": round(secs, 2),
+                                    "last_action": "ran"}
+        self.actions[name] = "ran"
+        self._write_log()
+        _say(f"[{name}] done in {secs:.1f} s")
+
+
+def default_out(recipe: dict) -> Path:
+    return Path("runs") / recipe["name"]
+
+
+def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
+    """Run the whole job for a recipe; returns the summary dict (also written to summary.json)."""
+    if force is not None and force not in STAGES:
+        raise UsageError(f"The 'force' parameter of run must be one of {', '.join(map(repr, STAGES))}. Got {force!r} instead.")
+    r = recipe_mod.load(recipe_path, overrides)
+    out = Path(out) if out else default_out(r)
+    out.mkdir(parents=True, exist_ok=True)
+    recipe_mod.save(r, out)
+    run_ = Run(r, out, force)
+
+    run_.stage("data", lambda: _data_stage(run_))
+    run_.stage("train", lambda: _train_stage(run_))
+    run_.stage("convert", lambda: _convert_stage(run_))
+    if r["sweep"]["enabled"]:
+        run_.stage("sweep", lambda: _sweep_stage(run_))
+    run_.stage("export", lambda: _export_stage(run_))
+    run_.stage("verify", lambda: _verify_stage(run_))
+    run_.stage("report", lambda: _report_stage(run_))
+    summary = _summary(run_)
+    atomic_write_json(out / "summary.json", summary)
+    _print_summary(summary)
+    return summary
+
+
+# --- stages -------------------------------------------------------------------------------
+
+def _data_stage(run_: Run) -> None:
+    from snnconvert import frames as frames_mod
+    ds = run_.dataset()
+    d = run_.out / "data"
+    d.mkdir(parents=True, exist_ok=True)
+    Xtr, ytr = ds.train
+    events_per_frame = float(np.mean(Xtr.reshape(len(Xtr), -1).sum(axis=1))) if len(Xtr) else 0.0
+    summary = {
+        "classes": list(ds.classes),
+        "input_shape": list(ds.input_shape),
+        "input_q": int(ds.input_q),
+        "fingerprint": ds.fingerprint,
+        "samples": {k: int(len(getattr(ds, k)[1])) for k in ("train", "val", "test")},
+        "mean_input_events_per_frame": round(events_per_frame, 2),
+    }
+    frames_mod.plot_frames(Xtr[:32], ytr[:32], d / "frames.png")
+    example = _example_recording(run_)
+    if example is not None:
+        summary["example_recording"] = example
+    atomic_write_json(d / "summary.json", summary)
+    _say(f"[data] {summary['samples']} samples, frames {tuple(ds.input_shape)}, "
+         f"{events_per_frame:.1f} input events per frame (mean, train split)")
+
+
+def _example_recording(run_: Run) -> dict | None:
+    """Plot one recording (rate trace, bursts, frames) if the dataset exposes its recordings."""
+    from snnconvert import data as data_mod
+    fn = getattr(data_mod, "example_recording", None)
+    if fn is None:
+        return None
+    return fn(run_.recipe, run_.out / "data" / "events.png")
+
+
+def _train_stage(run_: Run) -> None:
+    from snnconvert.train import train
+    train(run_.recipe, run_.dataset(), run_.out / "train")
+
+
+def _convert_settings(r: dict) -> dict:
+    return dict(r["convert"])
+
+
+def _convert_stage(run_: Run) -> None:
+    from snnconvert.convert import convert_checkpoint, save_conversion
+    net, metrics = convert_checkpoint(run_.out / "train", _convert_settings(run_.recipe))
+    save_conversion(net, metrics, run_.out / "net", run_.recipe)
+
+
+def _sweep_stage(run_: Run) -> None:
+    from snnconvert.sweep import run_from_recipe
+    run_from_recipe(run_.out / "train", run_.recipe, run_.out / "sweep")
+
+
+def _export_stage(run_: Run) -> None:
+    from snnconvert.export import export_from_run
+    export_from_run(run_.out / "net", run_.out / "export", run_.recipe)
+
+
+def _verify_stage(run_: Run) -> None:
+    from snnconvert.export import verify
+    res = verify(run_.out / "export")
+    atomic_write_json(run_.out / "verify.json", res.to_dict())
+
+
+def _report_stage(run_: Run) -> None:
+    from snnconvert.report import write_report
+    write_report(run_.out)
+
+
+# --- summary ------------------------------------------------------------------------------
+
+def _summary(run_: Run) -> dict:
+    out = run_.out
+    m = load_json(out / "net" / "metrics.json")
+    v = load_json(out / "verify.json")
+    rec = None
+    if (out / "sweep" / "recommendation.json").is_file():
+        rec = load_json(out / "sweep" / "recommendation.json")
+    paths = {"report": "report.html", "export": "export", "network": "net", "checkpoint": "train/model.pt"}
+    if rec is not None:
+        paths["sweep"] = "sweep/sweep.csv"
+    keys = ["frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
+            "weight_bits", "payload_bits", "coding", "spikes_per_sample", "sops_per_sample",
+            "macs_per_sample", "max_spikes_per_neuron", "weight_memory_bits"]
+    s = {k: m.get(k) for k in keys}
+    s.update({
+        "name": run_.recipe["name"],
+        "verify_passed": bool(v.get("passed")),
+        "recommended": rec,
+        "tolerance_pp": run_.recipe["convert"]["tolerance_pp"],
+        "paths": paths,
+        "stages": {k: run_.actions.get(k, "skipped") for k in STAGES},
+    })
+    return s
+
+
+def _print_summary(s: dict) -> None:
+    def fmt(v):
+        if isinstance(v, float):
+            return f"{v:.4g}"
+        if isinstance(v, dict):
+            return v.get("label") or ", ".join(f"{k}={v[k]}" for k in list(v)[:4])
+        return str(v)
+    rows = [(k, s[k]) for k in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
+                                 "weight_bits", "payload_bits", "coding", "spikes_per_sample",
+                                 "sops_per_sample", "macs_per_sample", "verify_passed", "recommended")]
+    w = max(len(k) for k, _ in rows)
+    print(f"summary of run '{s['name']}'")
+    for k, v in rows:
+        print(f"  {k:<{w}}  {fmt(v)}")
+    print(f"  {'report':<{w}}  {s['paths']['report']}")
