@@ -5,7 +5,18 @@ Recipe section [convert]: every key below carries the reason for its default.
 
 from __future__ import annotations
 
-from snnconvert.errors import UsageError, check_str
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import arith
+from snnconvert.convert.calibrate import activation_ranges, calibration_subset
+from snnconvert.convert.fold import fold, folded_forward
+from snnconvert.convert.quantize import build_network
+from snnconvert.errors import (UsageError, check_bool, check_choice, check_int, check_str,
+                               unknown_key_message)
+from snnconvert.files import fingerprint
+from snnconvert.intnet import IntNetwork
 from snnconvert.schema import Key
 
 
@@ -53,4 +64,93 @@ SCHEMA: dict[str, Key] = {
                         lo=0.0, hi=100.0),
 }
 
-__all__ = ["SCHEMA", "parse_range_rule"]
+
+def _check_settings(weight_bits, payload_bits, coding, per_channel, calibration, weight_scale, input_q,
+                    multiplier_bits, acc_limit_bits, overflow):
+    o = "convert"
+    check_int(weight_bits, "weight_bits", o, 2, 16)
+    check_int(payload_bits, "payload_bits", o, 1, 8)
+    check_choice(coding, "coding", o, ["payload", "ttfs", "binary"])
+    check_bool(per_channel, "per_channel", o)
+    check_int(input_q, "input_q", o, 1, 255)
+    check_int(multiplier_bits, "multiplier_bits", o, 2, 31)
+    check_int(acc_limit_bits, "accumulator_bits", o, 0, 62)
+    check_choice(overflow, "overflow", o, ["saturate", "wrap"])
+    return parse_range_rule(calibration, "calibration", o), parse_range_rule(weight_scale, "weight_scale", o)
+
+
+def convert(model, calib_x, *, weight_bits: int, payload_bits: int, coding: str, per_channel: bool = False,
+            calibration: str = "percentile:99.9", weight_scale: str = "max", input_q: int = 1,
+            multiplier_bits: int = 16, acc_limit_bits: int = 0, overflow: str = "saturate",
+            act_max=None, quiet: bool = True) -> IntNetwork:
+    """Frame model -> single-spike integer network: a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, 2^p - 1).
+
+    `calib_x` (N, C, H, W) float frames are used whole (pick the subset with
+    `calibrate.calibration_subset`). Binary coding is the p = 1 case, so `payload_bits` is forced
+    to 1. Input payloads are clamp(round(frame), 0, Q_in) with Q_in = min(input_q, 2^p - 1): count
+    frames larger than what p bits carry are clipped (the float model saw them unclipped).
+    """
+    cal, wrule = _check_settings(weight_bits, payload_bits, coding, per_channel, calibration, weight_scale,
+                                 input_q, multiplier_bits, acc_limit_bits, overflow)
+    ops = fold(model)                       # validates every layer before any work
+    calib_x = np.asarray(calib_x, dtype=np.float32)
+    if calib_x.ndim != 4 or calib_x.shape[0] == 0:
+        raise UsageError(f"calibration frames must have shape (N, C, H, W) with N >= 1; got {calib_x.shape}")
+    p = 1 if coding == "binary" else int(payload_bits)
+    ranges = activation_ranges(ops, calib_x, cal[0], cal[1], act_max=act_max, quiet=quiet)
+    net = build_network(ops, ranges, input_shape=calib_x.shape[1:], input_q=min(int(input_q), arith.payload_max(p)),
+                        weight_bits=weight_bits, payload_bits=p, coding=coding, per_channel=per_channel,
+                        weight_rule=wrule, multiplier_bits=multiplier_bits, acc_limit_bits=acc_limit_bits,
+                        overflow=overflow)
+    net.meta.update(calibration=calibration, weight_scale=weight_scale, calib_samples=int(calib_x.shape[0]),
+                    calib_fingerprint=fingerprint(calib_x), frame_input_q=int(input_q),
+                    act_max=None if act_max is None else [float(a) for a in act_max])
+    return net
+
+
+def settings_from(settings: dict) -> dict:
+    """[convert] section (defaults filled in) -> keyword arguments of `convert`."""
+    s = {k: key.default for k, key in SCHEMA.items()}
+    unknown = set(settings) - set(SCHEMA)
+    if unknown:
+        raise UsageError(unknown_key_message(sorted(unknown)[0], "convert", SCHEMA))
+    s.update(settings)
+    for k, key in SCHEMA.items():
+        s[k] = key.check(s[k], k, "convert")
+    return s
+
+
+def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: bool = False):
+    """Convert with the [convert] `settings`, calibrate on the training split, measure on the test split.
+
+    Deterministic: the calibration subset is evenly spaced, and nothing draws random numbers.
+    Returns (net, metrics dict).
+    """
+    from snnconvert.sim.metrics import measure
+    s = settings_from(dict(settings))
+    Xtr = np.asarray(dataset.train[0])
+    idx = calibration_subset(len(Xtr), s["calib_samples"])
+    net = convert(model, Xtr[idx], weight_bits=s["weight_bits"], payload_bits=s["payload_bits"], coding=s["coding"],
+                  per_channel=s["per_channel"], calibration=s["calibration"], weight_scale=s["weight_scale"],
+                  input_q=int(dataset.input_q), multiplier_bits=s["multiplier_bits"],
+                  acc_limit_bits=s["accumulator_bits"], overflow=s["overflow"], act_max=act_max, quiet=quiet)
+    net.meta.update(data_fingerprint=getattr(dataset, "fingerprint", None), classes=list(getattr(dataset, "classes", [])),
+                    convert=s)
+    Xte, yte = dataset.test
+    metrics = measure(model, net, Xte, yte, tolerance_pp=s["tolerance_pp"], quiet=quiet)
+    return net, metrics
+
+
+def convert_checkpoint(train_dir, settings: dict, quiet: bool = False):
+    """Load `train_dir/model.pt` and its dataset, then `convert_and_measure`. Returns (net, metrics)."""
+    from snnconvert.data import load_dataset
+    from snnconvert.train import load_checkpoint
+    model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
+    dataset = load_dataset(ckpt["recipe"])
+    net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet)
+    net.meta.update(recipe=ckpt["recipe"], train_fingerprint=ckpt.get("data_fingerprint"))
+    return net, metrics
+
+
+__all__ = ["SCHEMA", "parse_range_rule", "convert", "convert_and_measure", "convert_checkpoint", "settings_from",
+           "fold", "folded_forward", "calibration_subset"]

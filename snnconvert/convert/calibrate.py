@@ -1,0 +1,69 @@
+"""Activation ranges of the folded float model, from a deterministic calibration subset.
+
+    r_l = max(x_l)                 rule "max"
+    r_l = percentile_Q(x_l)        rule "percentile:Q" (99.9 by default; Rueckauer et al. 2017)
+
+The statistic is taken over the positive activations only: zeros send no spike and carry no
+range information, and ReLU layers are often more than half zeros, which would pull a percentile
+down to values that clip ordinary activity. The output layer's range is taken over its positive
+logits (it only matters for the ttfs early decision). A layer with no positive value has r = 0;
+quantize.py turns it into a silent layer.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import torch
+from tqdm import tqdm
+
+from snnconvert.convert.fold import FoldedOp, apply_op
+from snnconvert.errors import UsageError
+
+
+def calibration_subset(n_total: int, n: int) -> np.ndarray:
+    """Evenly spaced indices 0..n_total-1 (all of them when n >= n_total): deterministic, no RNG."""
+    if n >= n_total:
+        return np.arange(n_total)
+    return np.unique(np.round(np.linspace(0, n_total - 1, n)).astype(np.int64))
+
+
+def range_statistic(values: np.ndarray, rule: str, q: float) -> float:
+    """max or the q-th percentile (linear interpolation, numpy's default) of the positive values; 0 if none."""
+    v = values[values > 0]
+    if v.size == 0:
+        return 0.0
+    return float(v.max()) if rule == "max" else float(np.percentile(v, q))
+
+
+@torch.no_grad()
+def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max=None,
+                      batch: int = 256, quiet: bool = True) -> list[float | None]:
+    """One range per op: conv/dense get r_l, pools get None (they keep their input's scale).
+
+    Priority for hidden layers: `act_max` (ranges learned by conversion-aware training, one per
+    hidden activation, in order), then a ClipQuant's own `a_max`, then the calibration statistic.
+    """
+    hidden = [i for i, op in enumerate(ops) if op.kind in ("conv", "dense") and op.act is not None]
+    if act_max is not None:
+        act_max = [float(a) for a in act_max]
+        if len(act_max) != len(hidden):
+            raise UsageError(f"act_max has {len(act_max)} ranges but the model has {len(hidden)} hidden activations")
+    x = torch.as_tensor(np.asarray(calib_x), dtype=torch.float64)                  # (N, C, H, W)
+    collected: dict[int, list[np.ndarray]] = {i: [] for i, op in enumerate(ops) if op.kind in ("conv", "dense")}
+    starts = range(0, x.shape[0], batch)
+    for s in tqdm(starts, desc="calibrate", disable=quiet, file=None):
+        h = x[s:s + batch]
+        for i, op in enumerate(ops):
+            h = apply_op(op, h)
+            if i in collected:
+                collected[i].append(h.reshape(-1).numpy())
+    ranges: list[float | None] = [None] * len(ops)
+    for i in collected:
+        allv = np.concatenate(collected[i]) if collected[i] else np.zeros(0)
+        ranges[i] = range_statistic(allv, rule, q)
+    for j, i in enumerate(hidden):
+        if act_max is not None:
+            ranges[i] = act_max[j]
+        elif ops[i].a_max is not None:
+            ranges[i] = ops[i].a_max
+    return ranges
