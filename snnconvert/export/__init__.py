@@ -15,9 +15,10 @@ SCHEMA: dict[str, Key] = {
     "csv": Key(True, "bool", "CSV tables and per-layer vector files are what testbench scripts and spreadsheets read most easily"),
 }
 
+from snnconvert.export.fromrun import export_from_run  # noqa: E402
 from snnconvert.export.manifest import LAYER_FIELDS, MANIFEST_FIELDS, TABLE_FIELDS  # noqa: E402
 from snnconvert.export.verify import Mismatch, VerifyResult, verify  # noqa: E402
 from snnconvert.export.writer import export_network  # noqa: E402
 
-__all__ = ["SCHEMA", "MANIFEST_FIELDS", "LAYER_FIELDS", "TABLE_FIELDS", "export_network", "verify",
+__all__ = ["SCHEMA", "MANIFEST_FIELDS", "LAYER_FIELDS", "TABLE_FIELDS", "export_network", "export_from_run", "verify",
            "VerifyResult", "Mismatch"]

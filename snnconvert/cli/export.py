@@ -1,0 +1,36 @@
+"""`snnconvert export NET_DIR OUT_DIR`: hardware tables, manifest and golden vectors."""
+
+from __future__ import annotations
+
+import argparse
+
+HELP = "write Verilog memory tables, a manifest and golden vectors of a converted network"
+
+
+def add_arguments(p) -> None:
+    p.add_argument("net_dir", metavar="NET_DIR", help="folder holding network.json, network.npz and recipe.toml")
+    p.add_argument("out_dir", metavar="OUT_DIR", help="export folder to write (new, empty, or an earlier export)")
+    p.add_argument("--vectors", type=int, metavar="N", help="golden vectors to write (default: recipe [export] vectors, 16)")
+    p.add_argument("--inputs", metavar="FILE.npz",
+                   help="test inputs instead of the recipe's data set: array x int (N, C, H, W), optional y")
+    p.add_argument("--csv", action=argparse.BooleanOptionalAction, default=None,
+                   help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def run(args) -> int:
+    from pathlib import Path
+
+    from snnconvert.errors import check_int
+    from snnconvert.export import export_from_run
+    from snnconvert.files import load_json
+
+    if args.vectors is not None:
+        check_int(args.vectors, "vectors", "export", 0)
+    man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv,
+                               inputs=args.inputs, progress=not args.quiet)
+    man = load_json(man_path)
+    out = Path(args.out_dir)
+    print(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
+          f"{man['vectors']['count']} golden vectors -> {out}")
+    return 0

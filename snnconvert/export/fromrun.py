@@ -1,0 +1,68 @@
+"""Export a converted network folder (network.json/npz + recipe.toml) with its test inputs.
+
+The golden inputs are the test split of the network's own data set, quantized to input payloads
+by arith.quantize_input, or an NPZ given by the user (`x` int (N, C, H, W), optional `y`).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import arith
+from snnconvert.errors import FormatError, UsageError
+from snnconvert.files import load_npz
+from snnconvert.intnet import IntNetwork
+
+
+def load_inputs(path) -> tuple[np.ndarray, np.ndarray | None]:
+    """(x int64 (N, C, H, W), y int64 (N,) or None) from an NPZ with array `x` and optional `y`."""
+    path = Path(path)
+    z = load_npz(path)
+    if "x" not in z:
+        raise FormatError(f"{path}: array 'x' (int input payloads, shape (N, C, H, W)) is missing; found {sorted(z)}")
+    x = z["x"]
+    if x.dtype.kind not in "iu" or x.ndim != 4:
+        raise FormatError(f"{path}: array 'x' must be int (N, C, H, W); got {x.dtype} of shape {x.shape}")
+    y = z.get("y")
+    if y is not None and (y.dtype.kind not in "iu" or y.shape != (x.shape[0],)):
+        raise FormatError(f"{path}: array 'y' must be int ({x.shape[0]},); got {y.dtype} of shape {y.shape}")
+    return x.astype(np.int64), None if y is None else y.astype(np.int64)
+
+
+def test_inputs(net: IntNetwork, recipe: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Test frames of the recipe's data set as input payloads: a0 = clamp(round(frame), 0, Q_in)."""
+    from snnconvert import data
+    ds = data.load_dataset(recipe)
+    x, y = ds.test                                                   # (N, C, H, W) float32, (N,)
+    return arith.quantize_input(x, net.input_q).astype(np.int64), np.asarray(y, dtype=np.int64)
+
+
+def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int | None = None,
+                    csv: bool | None = None, inputs=None, progress: bool = True) -> Path:
+    """Export the network in `net_dir` to `out_dir`; returns the manifest path.
+
+    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv: default from the
+    recipe's [export] section. inputs: an NPZ path to use instead of the data set's test split.
+    """
+    from snnconvert import recipe as recipe_mod
+    from snnconvert.export import SCHEMA
+    from snnconvert.export.writer import export_network
+
+    net_dir = Path(net_dir)
+    if not (net_dir / "network.json").is_file():
+        raise UsageError(f"network folder {net_dir} holds no network.json (run `snnconvert convert` first)")
+    net = IntNetwork.load(net_dir)
+    if recipe is None and (net_dir / "recipe.toml").is_file():
+        recipe = recipe_mod.load(net_dir / "recipe.toml")
+    section = (recipe or {}).get("export", {})
+    vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
+    csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
+    if inputs is not None:
+        x, y = load_inputs(inputs)
+    elif recipe is None:
+        raise UsageError(f"{net_dir / 'recipe.toml'} is missing, so the test data is unknown; give --inputs FILE.npz")
+    else:
+        x, y = test_inputs(net, recipe)
+    return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, progress=progress)
