@@ -189,11 +189,14 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
     point gives the same metrics in any process.
     """
     from snnconvert import convert as conv
-    model = copy.deepcopy(model)
     if point["aware"]:
         from snnconvert import train
+        recipe = copy.deepcopy(recipe)
+        recipe["train"]["threads"] = 1  # one thread per process: the sweep's parallelism is across points
         model, act_max = train.finetune_aware(model, dataset, recipe, point["weight_bits"], point["payload_bits"],
                                               point["per_channel"], point["aware_epochs"], int(recipe["seed"]))
+    else:
+        model = copy.deepcopy(model)
     net, metrics = conv.convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max,
                                             quiet=True)
     metrics = dict(metrics)
@@ -392,11 +395,8 @@ def reference_accuracy(records: list[dict], model=None, dataset=None) -> float:
             return float(rec["metrics"]["frame_accuracy"])
     if model is None or dataset is None:
         raise UsageError("the frame accuracy of the sweep is unknown: no post-training point and no model given")
-    import torch
-    x, y = dataset.test
-    with torch.no_grad():
-        pred = model.eval()(torch.as_tensor(x)).argmax(1).numpy()  # (N,)
-    return float((pred == y).mean())
+    from snnconvert.train import evaluate
+    return float(evaluate(model, *dataset.test)["accuracy"])
 
 
 # --- outputs -------------------------------------------------------------------------------
@@ -581,6 +581,9 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
         model, ckpt, dataset = context
         recipe = copy.deepcopy(recipe if recipe is not None else ckpt["recipe"])
     tol = check_float(tolerance_pp, "tolerance_pp", "sweep", 0.0, 100.0)
+    if aware and ckpt.get("aware"):
+        raise UsageError(f"{train_dir} holds a conversion-aware checkpoint; an aware sweep fine-tunes each point "
+                         "from a float checkpoint: pass the float model's training folder")
     cods = parse_codings(codings if codings is not None else []) or [recipe["convert"]["coding"]]
     points = make_points(weight_bits, payload_bits, cods, per_channel, aware, aware_epochs)
     jobs = resolve_jobs(jobs)

@@ -1,0 +1,63 @@
+"""Parallel efficiency of the bit-width sweep: the same grid with 1 and with 2 processes.
+
+    efficiency = t(1 job) / (2 * t(2 jobs))        goal: >= 0.8 on 2 cores
+
+Both sweeps run in this one process, one after the other, on the same freshly trained model, so
+machine noise hits both; the two result sets must also be identical (same metrics per point).
+Run: .venv/bin/python bench/sweep.py [--weight-bits 2-8] [--payload-bits 1-4]
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+GOAL = 0.8
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _train(folder: Path, limit: int, epochs: int):
+    from snnconvert import data, recipe, train
+    r = recipe.load(ROOT / "recipes" / "default.toml",
+                    [f"data.limit={limit}", f"train.epochs={epochs}", f"data.cache_dir='{folder / 'cache'}'"])
+    ds = data.load_dataset(r)
+    train.train(r, ds, folder / "train")
+    return folder / "train"
+
+
+def main(argv: list[str] | None = None) -> dict:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--weight-bits", default="2-8")
+    ap.add_argument("--payload-bits", default="1-4")
+    ap.add_argument("--limit", type=int, default=600, help="digits used (train + val + test)")
+    ap.add_argument("--epochs", type=int, default=3)
+    args = ap.parse_args(argv)
+    from snnconvert import sweep
+    with tempfile.TemporaryDirectory(prefix="bench-sweep-") as tmp:
+        tmp = Path(tmp)
+        train_dir = _train(tmp, args.limit, args.epochs)
+        times, results = {}, {}
+        for jobs in (1, 2):
+            t0 = time.perf_counter()
+            results[jobs] = sweep.run_sweep(train_dir, args.weight_bits, args.payload_bits, jobs=jobs,
+                                            out_dir=tmp / f"jobs{jobs}", progress=False)
+            times[jobs] = time.perf_counter() - t0
+    n = len(results[1].records)
+    identical = [r["metrics"] for r in results[1].records] == [r["metrics"] for r in results[2].records]
+    eff = times[1] / (2 * times[2])
+    print(f"sweep of {n} points (weight bits {args.weight_bits}, payload bits {args.payload_bits})")
+    print(f"  1 job : {times[1]:8.2f} s   ({times[1] / n:.3f} s per point)")
+    print(f"  2 jobs: {times[2]:8.2f} s   speed-up {times[1] / times[2]:.2f}x")
+    print(f"  parallel efficiency {eff:.2f} (goal >= {GOAL}): {'met' if eff >= GOAL else 'NOT met'}")
+    print(f"  results identical for 1 and 2 jobs: {identical}")
+    return {"name": "sweep_parallel_efficiency", "measured": round(eff, 3), "goal": GOAL, "met": eff >= GOAL,
+            "points": n, "seconds_1_job": round(times[1], 2), "seconds_2_jobs": round(times[2], 2),
+            "identical": identical}
+
+
+if __name__ == "__main__":
+    out = main()
+    sys.exit(0 if out["identical"] else 1)
