@@ -310,13 +310,14 @@ def _round_ste(u: torch.Tensor) -> torch.Tensor:
 
 
 class ClipQuant(nn.Module):
-    """y = a_max/L * clamp(round(x * L/a_max), 0, L),  L = levels = 2^p - 1.
+    """y = s * clamp(round(x * (1/s)), 0, L),  s = a_max / L,  L = levels = 2^p - 1.
 
     The ReLU of a conversion-aware model: clip to [0, a_max] then quantize to L levels, so the
     float model sees exactly the payload grid of the spike network (clip-floor activation,
     Bu et al. 2022; straight-through gradients, Bengio et al. 2013). With learn=True, a_max
     gets the gradient of the clip (1 above a_max) and of the rounding residual (in range).
-    a_max is kept >= 1e-6 in the forward pass so the scale never reaches zero.
+    a_max is kept >= 1e-6 in the forward pass so the scale never reaches zero. Rounding is half to
+    even on x * (1/s) in float32, exactly like torch.fake_quantize_per_tensor_affine(x, s, 0, 0, L).
     """
 
     def __init__(self, a_max: float = 1.0, levels: int = 1, learn: bool = True):
@@ -326,7 +327,7 @@ class ClipQuant(nn.Module):
 
     def forward(self, x):
         s = self.a_max.clamp_min(1e-6) / self.levels
-        q = torch.clamp(_round_ste(x / s), 0, self.levels)
+        q = torch.clamp(_round_ste(x * (1.0 / s)), 0, self.levels)
         return q * s
 
     def extra_repr(self) -> str:

@@ -147,7 +147,7 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
         "format": CHECKPOINT_FORMAT, "version": CHECKPOINT_VERSION,
         "state_dict": {k: v.detach().clone() for k, v in model.state_dict().items()},
         "model_spec": spec,
-        "recipe": recipe_mod.plain(recipe),
+        "recipe": copy.deepcopy(recipe),  # keeps _base_dir so relative data paths still resolve
         "data_fingerprint": str(dataset.fingerprint),
         "metrics": metrics,
         "act_max": act_max,
