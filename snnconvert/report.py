@@ -146,12 +146,30 @@ def _net_metrics(run: Path) -> dict | None:
     return _json(run / "net" / "metrics.json")
 
 
-def _per_layer(m: dict) -> list[dict]:
-    """Per-layer records of a conversion's metrics, whatever the list is called."""
-    for key in ("layers", "per_layer", "layer_metrics"):
-        if isinstance(m.get(key), list) and all(isinstance(x, dict) for x in m[key]):
-            return m[key]
-    return []
+def _layer_dict(m: dict, key: str) -> dict:
+    """A per-layer {layer name: value} metric, or {} when absent."""
+    v = m.get(key)
+    return v if isinstance(v, dict) else {}
+
+
+def _confusion_png(cm, title: str) -> str:
+    """Draw a confusion matrix (rows = true class) when its PNG is missing but the numbers exist."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import numpy as np
+    cm = np.asarray(cm)  # (classes, classes)
+    fig, ax = plt.subplots(figsize=(4.2, 3.8))
+    ax.imshow(cm, cmap="Blues")
+    for i in range(cm.shape[0]):
+        for j in range(cm.shape[1]):
+            if cm[i, j]:
+                ax.text(j, i, str(cm[i, j]), ha="center", va="center", fontsize=7,
+                        color="white" if cm[i, j] > cm.max() / 2 else "black")
+    ax.set_xlabel("predicted")
+    ax.set_ylabel("true")
+    ax.set_title(title, fontsize=9)
+    return _png_of(fig)
 
 
 # --- sections ------------------------------------------------------------------------------
@@ -238,63 +256,76 @@ def _spikes(run: Path) -> str:
     m = _net_metrics(run)
     if not m:
         return _missing("No conversion metrics (net/metrics.json): spike counts are unknown.")
-    layers = _per_layer(m)
-    out = [_kv(m, ["spikes_per_sample", "sops_per_sample", "macs_per_sample", "max_spikes_per_neuron"])]
-    cols = [c for c in ("spikes_per_sample", "neurons", "sops_per_sample", "spike_fraction") if
-            any(c in L for L in layers)]
-    if not layers or not cols:
+    out = [_kv(m, ["spikes_per_sample", "max_spikes_per_neuron", "sops_per_sample", "macs_per_sample",
+                   "sops_per_mac"])]
+    layers = _layer_dict(m, "spikes_per_layer")
+    if not layers:
         out.append(_missing("The conversion metrics hold no per-layer spike counts."))
         return "\n".join(out)
-    out.append(_table(["layer"] + cols, [[L.get("name", i)] + [L.get(c, "") for c in cols]
-                                         for i, L in enumerate(layers)]))
-    if "spikes_per_sample" in cols:
-        import matplotlib
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
-        fig, ax = plt.subplots(figsize=(6.5, 2.6))
-        names = [str(L.get("name", i)) for i, L in enumerate(layers)]
-        ax.bar(names, [float(L.get("spikes_per_sample") or 0) for L in layers], color="tab:blue")
-        ax.set_ylabel("spikes per sample")
-        ax.grid(axis="y", alpha=0.3)
-        out.append(_png_of(fig))
+    out.append(_table(["layer", "spikes per sample (mean over the test set)"], [[k, v] for k, v in layers.items()]))
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    fig, ax = plt.subplots(figsize=(6.5, 2.6))
+    ax.bar([str(k) for k in layers], [float(v or 0) for v in layers.values()], color="tab:blue")
+    ax.set_ylabel("spikes per sample")
+    ax.grid(axis="y", alpha=0.3)
+    out.append(_png_of(fig))
     return "\n".join(out)
 
 
 def _confusion(run: Path) -> str:
+    def one(png: Path, metrics: Path, caption: str) -> str:
+        if png.is_file():
+            return _figure(png, caption, "")
+        m = _json(metrics)
+        if m and isinstance(m.get("confusion"), list):
+            return f'<figure>{_confusion_png(m["confusion"], caption)}<figcaption class="note">{_e(caption)}' \
+                   "</figcaption></figure>"
+        return _missing(f"No confusion matrix ({png.relative_to(run)} and {metrics.relative_to(run)} are missing).")
     return ('<div class="pair">' +
-            _figure(run / "train" / "confusion.png", "frame model (float), test set",
-                    "No confusion matrix of the frame model (train/confusion.png).") +
-            _figure(run / "net" / "confusion.png", "spike model (event-driven), test set",
-                    "No confusion matrix of the spike model (net/confusion.png).") + "</div>")
+            one(run / "train" / "confusion.png", run / "train" / "metrics.json", "frame model (float), test set") +
+            one(run / "net" / "confusion.png", run / "net" / "metrics.json", "spike model (event-driven), test set") +
+            "</div>")
 
 
 def _accumulators(run: Path) -> str:
     m = _net_metrics(run)
     if not m:
         return _missing("No conversion metrics (net/metrics.json): accumulator widths are unknown.")
-    layers = _per_layer(m)
-    cols = [c for c in ("acc_bits", "accumulator_bits", "observed_bits", "max_abs_potential", "overflows")
-            if any(c in L for L in layers)]
-    if layers and cols:
-        table = _table(["layer"] + cols, [[L.get("name", i)] + [L.get(c, "") for c in cols]
-                                          for i, L in enumerate(layers)])
-    elif isinstance(m.get("accumulator_bits"), list):
-        table = _table(["layer", "accumulator bits"], [[i, b] for i, b in enumerate(m["accumulator_bits"])])
-    else:
+    widths = _layer_dict(m, "accumulator_bits")
+    if not widths:
         return _missing("The conversion metrics hold no accumulator widths.")
-    return (table + '<p class="note">Worst case: |V| &le; fan-in &middot; max|W| &middot; Q<sub>in</sub> + |B|, '
-            "signed, one extra bit for the sign.</p>")
+    seen, over = _layer_dict(m, "max_abs_potential"), _layer_dict(m, "overflows")
+    rows = []
+    for name, bits in widths.items():
+        v = seen.get(name)
+        used = None if v is None else int(v).bit_length() + 1  # signed bits the data actually needed
+        rows.append([name, bits, "" if v is None else v, "" if used is None else used, over.get(name, "")])
+    declared = m.get("declared_accumulator_bits")
+    note = ("no declared accumulator width: every layer uses its worst-case width" if not declared else
+            f"declared accumulator width {declared} bits; values beyond it saturate or wrap and are counted")
+    return (_table(["layer", "worst-case bits", "largest |V| on test data", "bits used on test data", "overflows"],
+                   rows) +
+            '<p class="note">Worst case: |V| &le; fan-in &middot; max|W| &middot; Q<sub>in</sub> + |B|, signed; '
+            f"{_e(note)}.</p>")
 
 
 def _energy(run: Path) -> str:
     m = _net_metrics(run)
-    e = None
-    if m:
-        e = next((m[k] for k in ("energy", "energy_estimate") if isinstance(m.get(k), dict)), None)
-    if e is None:
+    e = m.get("energy") if m else None
+    if not isinstance(e, dict):
         return _missing("No energy estimate in the conversion metrics (net/metrics.json).") + \
             f'<p class="note">{_e(ENERGY_CAVEAT)}</p>'
-    return f'<p><strong>Estimate, not a measurement.</strong> {_e(ENERGY_CAVEAT)}</p>' + _kv(e)
+    rows = [[k, e[k]] for k in ("spike_pj_per_sample", "frame_pj_per_sample", "ratio_spike_to_frame") if k in e]
+    out = [f"<p><strong>Estimate, not a measurement.</strong> {_e(ENERGY_CAVEAT)}</p>",
+           _table(["quantity (estimate)", "value"], rows)]
+    if e.get("source"):
+        out.append(f'<p class="note">Per-operation energies: {_e(e["source"])}</p>')
+    notes = e.get("notes") or []
+    if notes:
+        out.append("<ul>" + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>")
+    return "\n".join(out)
 
 
 def _export(run: Path) -> str:

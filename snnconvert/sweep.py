@@ -362,12 +362,24 @@ def recommend(records: list[dict], frame_accuracy: float, tolerance_pp: float) -
     return out
 
 
+# The converter's own tolerance verdict; the sweep judges with its own tolerance instead.
+_NOT_COPIED = {"tolerance_pp", "within_tolerance"}
+
+
+def _scalar(v) -> bool:
+    return isinstance(v, (bool, int, float, str)) or v is None
+
+
 def _row(rec: dict) -> dict:
-    """Flatten a result record into params + scalar metrics."""
+    """Flatten a result record into params + scalar metrics; a dict of scalars becomes `name.key` columns."""
     row = dict(rec["params"])
     for k, v in rec["metrics"].items():
-        if isinstance(v, (bool, int, float, str)) or v is None:
+        if k in _NOT_COPIED:
+            continue
+        if _scalar(v):
             row[k] = v
+        elif isinstance(v, dict):
+            row.update({f"{k}.{k2}": v2 for k2, v2 in v.items() if _scalar(v2)})
     return row
 
 
@@ -425,12 +437,14 @@ def table_rows(records: list[dict], frame_accuracy: float, tolerance_pp: float) 
     for r, a, b in zip(rows, mem, sops):
         r["loss_pp"] = loss_pp(frame_accuracy, r["spike_accuracy"])
         r["within_tolerance"] = r["loss_pp"] <= tolerance_pp + 1e-9
+        r["tolerance_pp"] = tolerance_pp
         r["pareto_memory"], r["pareto_sops"] = a, b
     return rows
 
 
 def csv_text(rows: list[dict]) -> str:
-    first = PARAM_COLUMNS + METRIC_COLUMNS + ["loss_pp", "within_tolerance", "pareto_memory", "pareto_sops"]
+    first = PARAM_COLUMNS + METRIC_COLUMNS + ["loss_pp", "tolerance_pp", "within_tolerance", "pareto_memory",
+                                              "pareto_sops"]
     extra = sorted({k for r in rows for k in r} - set(first))
     cols = [c for c in first if any(c in r for r in rows)] + extra
     buf = io.StringIO()

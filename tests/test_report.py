@@ -71,7 +71,7 @@ def test_empty_run_folder_states_every_missing_piece(tmp_path):
     assert path == tmp_path / "report.html"
     text, _ = check_page(path)
     expected = {"recipe": "No resolved recipe", "accuracy": "No conversion metrics", "sweep": "No sweep was run",
-                "spikes": "spike counts are unknown", "confusion": "No confusion matrix of the frame model",
+                "spikes": "spike counts are unknown", "confusion": "No confusion matrix (train/confusion.png and train/metrics.json are missing)",
                 "accumulators": "accumulator widths are unknown", "energy": "No energy estimate",
                 "export": "No export (export/manifest.json is missing)"}
     for sid, words in expected.items():

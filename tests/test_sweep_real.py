@@ -1,0 +1,109 @@
+"""The sweep with the real point function on a small trained checkpoint.
+
+Covers: identical results for 1 and 2 processes, a real sweep process killed mid-way and
+resumed, the command-line output, and the report of a folder holding a real sweep.
+"""
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+import torch
+
+from snnconvert import sweep
+from snnconvert.cli import main
+
+torch.set_num_threads(2)
+
+TINY = {
+    "name": "tiny-sweep", "seed": 0,
+    "data": {"limit": 300},
+    "model": {"layers": [{"type": "conv", "out": 4, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
+                         {"type": "maxpool", "size": 2, "stride": 2},
+                         {"type": "dense", "units": 16, "bn": False}, {"type": "dense"}]},
+    "train": {"epochs": 4, "threads": 2},
+}
+
+
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory):
+    """A tiny CNN trained on 300 simulated-sensor digits (scikit-learn's bundled set)."""
+    from snnconvert import data, recipe, train
+    root = tmp_path_factory.mktemp("tiny")
+    raw = json.loads(json.dumps(TINY))
+    raw["data"]["cache_dir"] = str(root / "cache")
+    r = recipe.from_dict(raw)
+    ds = data.load_dataset(r)
+    train.train(r, ds, root / "train", quiet=True)
+    return root / "train", ds
+
+
+def _keyed(result):
+    return {r["key"]: r["metrics"] for r in result.records}
+
+
+def test_one_and_two_jobs_give_identical_results(trained, tmp_path):
+    train_dir, ds = trained
+    kw = dict(weight_bits="2,4", payload_bits="1,3", codings=["payload", "ttfs"], progress=False)
+    one = sweep.run_sweep(train_dir, jobs=1, out_dir=tmp_path / "one", **kw)
+    two = sweep.run_sweep(train_dir, jobs=2, out_dir=tmp_path / "two", **kw)
+    assert one.computed == two.computed == 8
+    assert _keyed(one) == _keyed(two)
+    assert (tmp_path / "one" / "sweep.csv").read_bytes() == (tmp_path / "two" / "sweep.csv").read_bytes()
+    m = _keyed(one)
+    for w in (2, 4):
+        for p in (1, 3):
+            pay, tt = m[f"payload/w{w}/p{p}/per-tensor/post-training"], m[f"ttfs/w{w}/p{p}/per-tensor/post-training"]
+            # payload and time-to-first-spike carry the same integer values: identical networks and decisions
+            assert pay["network_fingerprint"] == tt["network_fingerprint"]
+            assert pay["spike_accuracy"] == tt["spike_accuracy"]
+
+
+def test_frame_accuracy_matches_scikit_learn(trained, tmp_path):
+    from sklearn.metrics import accuracy_score
+    from snnconvert import train
+    train_dir, ds = trained
+    res = sweep.run_sweep(train_dir, "3", "2", jobs=1, out_dir=tmp_path / "s", progress=False)
+    model, _ = train.load_checkpoint(train_dir)
+    with torch.no_grad():
+        pred = model(torch.as_tensor(ds.test[0])).argmax(1).numpy()  # (N,)
+    assert res.frame_accuracy == pytest.approx(accuracy_score(ds.test[1], pred), abs=1e-12)
+
+
+def _lines(path):
+    return path.read_text().splitlines() if path.is_file() else []
+
+
+@pytest.mark.slow
+def test_killed_sweep_process_resumes_without_loss(trained, tmp_path):
+    train_dir, _ = trained
+    out = tmp_path / "sw"
+    cmd = [sys.executable, "-m", "snnconvert", "sweep", str(train_dir), "--weight-bits", "2-7",
+           "--payload-bits", "1-5", "--jobs", "1", "--out", str(out), "--quiet"]
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+    deadline = time.monotonic() + 300
+    while len(_lines(out / "results.jsonl")) < 1 and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    proc.send_signal(signal.SIGKILL)
+    proc.communicate()
+    before = _lines(out / "results.jsonl")
+    total = 6 * 5
+    assert 1 <= len(before) < total, "the sweep must be killed after its first point and before its last"
+    assert not (out / "sweep.csv").exists()
+    again = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=600)
+    assert again.returncode == 0, again.stderr
+    assert f"{total} points ({total - len(before)} computed, {len(before)} from results.jsonl)" in again.stdout
+    after = _lines(out / "results.jsonl")
+    assert after[:len(before)] == before
+    keys = [json.loads(x)["key"] for x in after]
+    assert sorted(keys) == sorted(p["key"] for p in sweep.make_points("2-7", "1-5", ["payload"]))
+    # a resumed sweep reports the same metrics as one run in one go
+    fresh = sweep.run_sweep(train_dir, "2-7", "1-5", jobs=2, out_dir=tmp_path / "fresh", progress=False)
+    resumed = {json.loads(x)["key"]: json.loads(x)["metrics"] for x in after}
+    assert resumed == _keyed(fresh)
