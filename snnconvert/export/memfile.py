@@ -32,8 +32,8 @@ def signed_bits(values) -> int:
     v = np.asarray(values, dtype=np.int64)
     if v.size == 0:
         return 2
-    hi, lo = int(v.max()), int(v.min())
-    return max(2, hi.bit_length() + 1, (-lo - 1).bit_length() + 1 if lo < 0 else 0)
+    hi, lo = max(int(v.max()), 0), min(int(v.min()), 0)
+    return max(2, hi.bit_length() + 1, (-lo - 1).bit_length() + 1)
 
 
 def unsigned_bits(values) -> int:
