@@ -1,0 +1,200 @@
+"""CPU training: reproducibility, checkpoints, evaluation and the scikit-learn reference classifier."""
+
+import csv
+import json
+import types
+
+import numpy as np
+import pytest
+import torch
+from sklearn.datasets import load_digits
+from sklearn.metrics import recall_score
+from sklearn.model_selection import train_test_split
+from sklearn.svm import SVC
+
+from snnconvert import recipe as R
+from snnconvert import train as T
+from snnconvert.errors import FormatError, UsageError
+
+torch.set_num_threads(2)
+
+SMALL_LAYERS = [{"type": "conv", "out": 6, "kernel": 3, "padding": 1}, {"type": "maxpool", "size": 2},
+                {"type": "dense", "units": 24}, {"type": "dense"}]
+
+
+def digits_frames(n_train=600, n_val=150, n_test=300, seed=0):
+    """scikit-learn's 8x8 digits as binary 16x16 frames (pixel >= 8 of 16 is an event; each 8x8 pixel
+    becomes a 2x2 block) in the dataset layout of DEVELOPERS.md. Test data only: the product
+    dataset comes from the simulated sensor."""
+    d = load_digits()
+    x = (d.images >= 8).astype(np.float32).repeat(2, 1).repeat(2, 2)[:, None]  # (1797, 1, 16, 16)
+    y = d.target.astype(np.int64)
+    p = np.random.default_rng(seed).permutation(len(y))
+    tr, va, te = p[:n_train], p[n_train:n_train + n_val], p[n_train + n_val:n_train + n_val + n_test]
+    split = lambda i: (torch.from_numpy(x[i]), torch.from_numpy(y[i]))  # noqa: E731
+    return types.SimpleNamespace(train=split(tr), val=split(va), test=split(te), classes=[str(c) for c in range(10)],
+                                 input_shape=(1, 16, 16), input_q=1, fingerprint=f"digits-test-{seed}")
+
+
+def small_recipe(*overrides):
+    base = ["train.epochs=3", "train.threads=1", "train.lr=0.01", "train.batch_size=16", "train.shift=0", "train.event_dropout=0.0", f"model.layers={_toml_layers(SMALL_LAYERS)}"]
+    return R.load(R.Path(__file__).resolve().parents[1] / "recipes" / "default.toml", base + list(overrides))
+
+
+def _toml_layers(layers):
+    return R._value(layers, "model.layers").replace("\n", " ")
+
+
+@pytest.fixture(scope="module")
+def ds():
+    return digits_frames()
+
+
+@pytest.fixture(scope="module")
+def trained(ds, tmp_path_factory):
+    out = tmp_path_factory.mktemp("train")
+    model, metrics = T.train(small_recipe(), ds, out, quiet=True)
+    return out, model, metrics
+
+
+def test_sklearn_reference_example_reproduces_871_of_899():
+    # scikit-learn's example "Recognizing hand-written digits": SVC(gamma=0.001) on the first half,
+    # 871/899 correct (REFERENCES.md, verified with scikit-learn 1.9.1)
+    d = load_digits()
+    x = d.images.reshape(len(d.images), -1)
+    xtr, xte, ytr, yte = train_test_split(x, d.target, test_size=0.5, shuffle=False)
+    pred = SVC(gamma=0.001).fit(xtr, ytr).predict(xte)
+    assert (len(yte), int((pred == yte).sum())) == (899, 871)
+
+
+def test_training_writes_every_artifact(trained, ds):
+    out, model, m = trained
+    for name in ("model.pt", "recipe.toml", "metrics.json", "history.csv", "curves.png", "confusion.png"):
+        assert (out / name).is_file(), name
+    for png in ("curves.png", "confusion.png"):
+        assert (out / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification)
+    saved = json.loads((out / "metrics.json").read_text())
+    assert saved == json.loads(json.dumps(m))
+    assert m["epochs"] == 3 and m["test_count"] == 300 and 0.8 < m["frame_accuracy"] <= 1.0
+    rows = list(csv.DictReader((out / "history.csv").open()))
+    assert [int(r["epoch"]) for r in rows] == [1, 2, 3] and all(r["phase"] == "float" for r in rows)
+    assert R.load(out / "recipe.toml")["train"]["epochs"] == 3
+
+
+def test_metrics_match_scikit_learn(trained, ds):
+    out, model, m = trained
+    x, y = ds.test
+    pred = model(x).argmax(1).numpy()
+    assert m["test_correct"] == int((pred == y.numpy()).sum())
+    # per-class accuracy is the per-class recall of scikit-learn
+    recall = recall_score(y.numpy(), pred, average=None, labels=list(range(10)), zero_division=0)
+    assert [m["per_class_accuracy"][str(c)] for c in range(10)] == pytest.approx(recall.tolist())
+    assert np.asarray(m["confusion"]).sum() == 300
+
+
+def test_checkpoint_is_plain_data_and_reloads(trained, ds):
+    out, model, m = trained
+    raw = torch.load(out / "model.pt", weights_only=True)  # tensors and plain containers only
+    assert raw["format"] == "snnconvert-checkpoint" and raw["version"] == 1
+    assert raw["data_fingerprint"] == ds.fingerprint and raw["act_max"] is None and raw["aware"] is None
+    assert raw["model_spec"]["input_shape"] == [1, 16, 16] and raw["model_spec"]["n_classes"] == 10
+    loaded, ckpt = T.load_checkpoint(out)
+    x = ds.test[0][:50]
+    assert torch.equal(loaded(x), model(x))
+    assert ckpt["metrics"]["frame_accuracy"] == m["frame_accuracy"]
+
+
+@pytest.mark.parametrize("mutate,pattern", [
+    (lambda c: c.update(format="other"), r"field 'format' must be 'snnconvert-checkpoint'\. Got 'other' instead"),
+    (lambda c: c.update(version=2), r"field 'version' must be 1\. Got 2 instead"),
+    (lambda c: c.pop("model_spec"), r"checkpoint has no field 'model_spec'"),
+    (lambda c: c["model_spec"].update(n_classes=7), r"model_spec does not match state_dict"),
+])
+def test_bad_checkpoints_are_refused(trained, tmp_path, mutate, pattern):
+    ckpt = torch.load(trained[0] / "model.pt", weights_only=True)
+    mutate(ckpt)
+    torch.save(ckpt, tmp_path / "model.pt")
+    with pytest.raises(FormatError, match=pattern):
+        T.load_checkpoint(tmp_path)
+
+
+def test_missing_and_corrupt_checkpoints(tmp_path):
+    with pytest.raises(UsageError, match="file not found"):
+        T.load_checkpoint(tmp_path / "none.pt")
+    (tmp_path / "model.pt").write_bytes(b"not a checkpoint")
+    with pytest.raises(FormatError, match="not a readable checkpoint"):
+        T.load_checkpoint(tmp_path)
+
+
+def test_same_recipe_gives_bit_identical_checkpoints(ds, tmp_path):
+    r = small_recipe("train.epochs=2", "seed=5", "train.shift=1", "train.event_dropout=0.1")  # augmentation draws too
+    T.train(r, ds, tmp_path / "a", quiet=True)
+    T.train(r, ds, tmp_path / "b", quiet=True)
+    a = torch.load(tmp_path / "a" / "model.pt", weights_only=True)["state_dict"]
+    b = torch.load(tmp_path / "b" / "model.pt", weights_only=True)["state_dict"]
+    assert a.keys() == b.keys() and all(torch.equal(a[k], b[k]) for k in a)
+    T.train(small_recipe("train.epochs=2", "seed=6", "train.shift=1", "train.event_dropout=0.1"), ds, tmp_path / "c", quiet=True)
+    c = torch.load(tmp_path / "c" / "model.pt", weights_only=True)["state_dict"]
+    assert not all(torch.equal(a[k], c[k]) for k in a)
+
+
+def test_early_stopping_keeps_the_best_epoch(ds, tmp_path):
+    # lr = 0: nothing improves after epoch 1, so patience 2 stops after epoch 3
+    _, m = T.train(small_recipe("train.lr=0.0", "train.epochs=10", "train.patience=2"), ds, tmp_path, quiet=True)
+    assert m["epochs"] == 3
+
+
+@pytest.mark.parametrize("schedule,step,epoch,expected", [
+    ("constant", 50, 5, 0.01),
+    ("cosine", 0, 0, 0.01),                 # lr * (1 + cos(0)) / 2
+    ("cosine", 50, 5, 0.005),               # half way: lr * (1 + cos(pi/2)) / 2
+    ("cosine", 100, 9, 0.0),                # the end: lr * (1 + cos(pi)) / 2
+    ("step", 0, 9, 0.01),
+    ("step", 0, 10, 0.001),                 # lr * 0.1^1
+    ("step", 0, 25, 0.0001),                # lr * 0.1^2
+])
+def test_learning_rate_schedules(schedule, step, epoch, expected):
+    cfg = {"schedule": schedule, "step_epochs": 10, "step_gamma": 0.1}
+    assert T._lr_at(cfg, 0.01, step, 100, epoch) == pytest.approx(expected, abs=1e-12)
+
+
+def test_augment_shift_moves_events_without_wrapping():
+    g = torch.Generator().manual_seed(0)
+    x = torch.zeros(200, 1, 7, 7)
+    x[:, 0, 3, 3] = 1.0   # centre: always stays inside
+    x[:, 0, 0, 0] = 1.0   # corner: leaves the frame for some shifts, never wraps around
+    y = T.augment(x, shift=1, event_dropout=0.0, gen=g)
+    ys, xs = torch.nonzero(y[:, 0, 2:5, 2:5], as_tuple=True)[1:]
+    assert len(ys) == 200  # one centre event per frame, moved by at most 1 pixel
+    assert y[:, 0, 5:, :].sum() == 0 and y[:, 0, :, 5:].sum() == 0  # nothing wrapped to the far side
+    assert 0 < y[:, 0, :2, :2].sum() < 200  # the corner event survives only for shifts towards the inside
+    assert torch.equal(T.augment(x, 0, 0.0, g), x)
+
+
+def test_event_dropout_is_binomial_thinning():
+    g = torch.Generator().manual_seed(0)
+    x = torch.full((100, 1, 10, 10), 3.0)  # 30,000 events
+    y = T.augment(x, shift=0, event_dropout=0.25, gen=g)
+    assert torch.equal(y, y.round()) and bool((y <= x).all())
+    kept = float(y.sum()) / 30000
+    # Binomial(30000, 0.75): std of the fraction is sqrt(0.75*0.25/30000) ~ 0.0025; allow 5 std
+    assert abs(kept - 0.75) < 0.0125
+
+
+def test_plot_confusion_writes_png(tmp_path):
+    cm = np.array([[5, 1], [0, 4]])
+    path = T.plot_confusion(cm, ["a", "b"], tmp_path / "c.png", "title")
+    assert path.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_training_from_init_checkpoint_and_hand_written_model(trained, ds, tmp_path):
+    out, model, m = trained
+    _, m2 = T.train(small_recipe("train.epochs=1"), ds, tmp_path / "cont", init=out, quiet=True)
+    assert m2["epochs"] == 1
+    hand = torch.nn.Sequential(torch.nn.Flatten(), torch.nn.Linear(256, 10))
+    _, m3 = T.train(small_recipe("train.epochs=1"), ds, tmp_path / "hand", init=hand, quiet=True)
+    loaded, ckpt = T.load_checkpoint(tmp_path / "hand")
+    assert ckpt["model_spec"]["layers"] == [{"type": "dense", "units": 10, "bn": False}]
+    bad = torch.nn.Sequential(torch.nn.Flatten(), torch.nn.Linear(256, 4))
+    with pytest.raises(UsageError, match="init model gives 4 class scores but the data has 10 classes"):
+        T.train(small_recipe("train.epochs=1"), ds, tmp_path / "bad", init=bad, quiet=True)
