@@ -1,22 +1,48 @@
-"""Datasets: event recordings turned into (frames, labels) splits.
+"""Datasets: event recordings turned into seeded, stratified (frames, labels) splits.
 
 Sources ([data] source):
-    digits      scikit-learn's bundled 8x8 digits, upsampled to the sensor and shown to the
-                simulated sensor (the embedded default; recordings cached on disk)
-    idx         IDX image/label files already on disk (MNIST layout), shown to the sensor or
-                binarized directly to one spike per pixel
-    recordings  a folder of recordings with a CSV index `file,label`
+    digits      scikit-learn's bundled 8x8 digits (values 0..16), upsampled bilinearly
+                (scipy.ndimage.zoom, order 1, corners aligned) to sensor_size x sensor_size and shown to
+                the simulated sensor. The embedded default; nothing is downloaded.
+    idx         IDX image/label files on disk (the MNIST layout). idx_mode "sensor" shows them to the
+                simulated sensor (resized to sensor_size); "binarize" turns every pixel at or above
+                binarize_level of full scale into one ON event at t = 0 (no burst is found in such a
+                recording, so the frame takes all its events; set frames.threshold to 1 or 2 there).
+    recordings  a folder of event files with a CSV index `file,label` (paths inside the folder).
+
+Simulated recordings are cached as compressed NPZ in cache_dir, keyed by a hash of the images,
+the stimulus, every sensor parameter and the seed; a second run with the same keys reuses them.
+Random draws: sensor rng([seed, 1]), `limit` subset rng([seed, 2]), splits random_state=seed.
 """
 
 from __future__ import annotations
 
+import csv
+import gzip
+import io
+import os
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import files
+from snnconvert.errors import FormatError, UsageError
+from snnconvert.events import sensor as _sensor
+from snnconvert.events.formats import SUFFIXES, read_events, write_events
+from snnconvert.events.stream import EVENT_DTYPE, EventStream
 from snnconvert.schema import Key
+
+SOURCES = ("digits", "idx", "recordings")
+CACHE_FORMAT = "snnconvert-recordings"
+CACHE_VERSION = 1
 
 SCHEMA: dict[str, Key] = {
     "source": Key("digits", "choice", "bundled with scikit-learn: runs offline with nothing to download",
-                  choices=("digits", "idx", "recordings")),
+                  choices=SOURCES),
     "stimulus": Key("flash", "choice", "a flash gives one clean ON burst per image, the simplest frame",
-                    choices=("flash", "saccade")),
+                    choices=_sensor.STIMULI),
     "sensor_size": Key(32, "int", "4x the 8x8 digits: enough pixels for smooth edges, small enough to simulate fast; "
                        "also the assumed side of .bin recordings", lo=8, hi=1024),
     "limit": Key(0, "int", "0 keeps every sample; tests set a small number to run in seconds", lo=0),
@@ -31,25 +57,364 @@ SCHEMA: dict[str, Key] = {
                           lo=0.0, hi=1.0),
     "recordings_index": Key("", "path", "no default: a CSV `file,label` inside the user's recordings folder"),
     "cache_dir": Key("", "path", "empty: $SNNCONVERT_CACHE or ~/.cache/snnconvert, shared between runs"),
-    # simulated sensor (log-intensity change model)
-    "contrast": Key(0.25, "float", "typical DVS contrast threshold, 0.1-0.5 natural-log units (from memory)",
-                    lo=0.01, hi=2.0),
-    "mismatch": Key(0.03, "float", "per-pixel threshold sigma relative to contrast; 2.1% is published for a "
-                    "128x128 sensor", lo=0.0, hi=0.5),
-    "refractory_us": Key(100, "int", "caps a pixel near 10 kHz, above its bandwidth (common practice)", lo=0),
-    "jitter_us": Key(50, "int", "timestamp noise of tens of us, typical of arbiters under load (from memory)", lo=0),
-    "noise_hz": Key(0.2, "float", "background activity of a fraction of an event per pixel per second "
-                    "(from memory)", lo=0.0),
-    "hot_pixels": Key(0, "int", "a clean sensor by default; raise it to test robustness", lo=0),
-    "hot_pixel_hz": Key(300.0, "float", "a hot pixel fires hundreds of times per second (from memory)", lo=0.0),
-    "dark_level": Key(0.1, "float", "screen black at 10% of white: about 9 events per bright pixel at C=0.25",
-                      lo=0.001, hi=1.0),
-    "rise_us": Key(1000, "int", "a display and photoreceptor settle in about a millisecond (from memory)", lo=1),
-    "flash_delay_us": Key(10000, "int", "quiet lead-in so the background rate can be measured", lo=0),
-    "flash_on_us": Key(50000, "int", "keeps the ON and OFF bursts well apart", lo=1),
-    "flash_off_us": Key(30000, "int", "quiet tail after the OFF burst", lo=0),
-    "saccade_segments": Key(3, "int", "a triangle: the shortest closed path that moves every edge", lo=2, hi=16),
-    "saccade_segment_us": Key(30000, "int", "about the pace of small eye movements, tens of ms per segment", lo=1),
-    "saccade_amplitude": Key(2.0, "float", "a couple of sensor pixels: edges move, the shape stays put", lo=0.1),
-    "saccade_steps": Key(16, "int", "time samples per segment: sub-pixel motion per step", lo=2, hi=1000),
+    **_sensor.SCHEMA,
 }
+
+
+# --- recordings held in memory ---------------------------------------------------------------
+@dataclass
+class RecordingSet:
+    """Many recordings in one concatenated event array; recording i is events[offsets[i]:offsets[i+1]]."""
+    events: np.ndarray          # EVENT_DTYPE
+    offsets: np.ndarray         # (N + 1,) int64
+    labels: np.ndarray          # (N,) int64
+    width: int
+    height: int
+
+    def __len__(self) -> int:
+        return int(self.labels.size)
+
+    def __getitem__(self, i: int) -> tuple[EventStream, int]:
+        i = int(i)
+        if not -len(self) <= i < len(self):
+            raise IndexError(f"recording {i} out of range ({len(self)} recordings)")
+        i %= len(self)
+        ev = self.events[self.offsets[i]:self.offsets[i + 1]]
+        return EventStream(ev, self.width, self.height), int(self.labels[i])
+
+    @classmethod
+    def from_streams(cls, streams: list[EventStream], labels) -> "RecordingSet":
+        """Concatenate streams that share one sensor size (a folder comes from one sensor)."""
+        sizes = {(s.width, s.height) for s in streams}
+        if len(sizes) > 1:
+            raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+        w, h = sizes.pop() if sizes else (1, 1)
+        offsets = np.concatenate([[0], np.cumsum([len(s) for s in streams])]).astype(np.int64)
+        ev = np.concatenate([s.events for s in streams]) if streams else np.zeros(0, EVENT_DTYPE)
+        return cls(ev, offsets, np.asarray(labels, np.int64), w, h)
+
+
+@dataclass
+class Dataset:
+    train: tuple[np.ndarray, np.ndarray]
+    val: tuple[np.ndarray, np.ndarray]
+    test: tuple[np.ndarray, np.ndarray]
+    classes: list[str]
+    input_shape: tuple
+    input_q: int
+    fingerprint: str
+    info: dict = field(default_factory=dict)
+    recordings: RecordingSet | None = None
+    windows: np.ndarray | None = None        # (N, 2) the frame window of each recording
+    split_index: dict = field(default_factory=dict)  # "train"/"val"/"test" -> recording indices
+
+
+# --- images ----------------------------------------------------------------------------------
+def digits_images(sensor_size: int) -> tuple[np.ndarray, np.ndarray]:
+    """scikit-learn's digits as (1797, S, S) float64 in [0, 1] and labels (1797,) int64."""
+    from sklearn.datasets import load_digits
+    d = load_digits()
+    return _resize(d.images / 16.0, sensor_size), d.target.astype(np.int64)
+
+
+def _resize(images: np.ndarray, size: int) -> np.ndarray:
+    """(N, H, W) -> (N, size, size), bilinear with corners aligned, clipped to [0, 1]."""
+    from scipy import ndimage
+    n, h, w = images.shape
+    if (h, w) == (size, size):
+        return np.clip(images, 0, 1)
+    return np.clip(ndimage.zoom(images, (1, size / h, size / w), order=1, grid_mode=False), 0, 1)
+
+
+# --- IDX -------------------------------------------------------------------------------------
+_IDX_TYPES = {0x08: ">u1", 0x09: ">i1", 0x0B: ">i2", 0x0C: ">i4", 0x0D: ">f4", 0x0E: ">f8"}
+
+
+def read_idx(path) -> np.ndarray:
+    """IDX file: bytes 0-1 zero, byte 2 the element type, byte 3 the number of dims, then each dim as
+    a big-endian uint32, then the elements big-endian in C order. `.gz` files are decompressed."""
+    path = Path(path)
+    if not path.is_file():
+        raise UsageError(f"file not found: {path}")
+    data = path.read_bytes()
+    if path.suffix == ".gz":
+        try:
+            data = gzip.decompress(data)
+        except (OSError, EOFError) as exc:
+            raise FormatError(f"{path}: not a readable gzip file ({exc})") from None
+    if len(data) < 4 or data[0] != 0 or data[1] != 0:
+        raise FormatError(f"{path}: not an IDX file (byte offset 0: magic number must start with 00 00)")
+    if data[2] not in _IDX_TYPES:
+        raise FormatError(f"{path}: byte offset 2: unknown IDX element type 0x{data[2]:02X}")
+    ndim = data[3]
+    head = 4 + 4 * ndim
+    if ndim == 0 or len(data) < head:
+        raise FormatError(f"{path}: byte offset 3: {ndim} dimensions but the header is cut short")
+    dims = tuple(int(v) for v in np.frombuffer(data, ">u4", count=ndim, offset=4))
+    dt = np.dtype(_IDX_TYPES[data[2]])
+    need = head + int(np.prod(dims, dtype=np.int64)) * dt.itemsize
+    if len(data) != need:
+        raise FormatError(f"{path}: dims {dims} need {need} bytes but the file has {len(data)} "
+                          f"(byte offset {min(len(data), need)})")
+    return np.frombuffer(data, dt, offset=head).reshape(dims).astype(dt.newbyteorder("="))
+
+
+def write_idx(path, array) -> Path:
+    """Write `array` as IDX (atomically); dtype one of uint8, int8, int16, int32, float32, float64."""
+    a = np.asarray(array)
+    codes = {np.dtype(v).newbyteorder("="): k for k, v in _IDX_TYPES.items()}
+    key = a.dtype.newbyteorder("=")
+    if key not in codes or a.ndim == 0 or a.ndim > 255:
+        raise UsageError(f"write_idx cannot store dtype {a.dtype} with {a.ndim} dims")
+    code = codes[key]
+    head = bytes([0, 0, code, a.ndim]) + np.asarray(a.shape, ">u4").tobytes()
+    body = np.ascontiguousarray(a, dtype=_IDX_TYPES[code]).tobytes()
+    data = head + body
+    if Path(path).suffix == ".gz":
+        data = gzip.compress(data, mtime=0)
+    return files.atomic_write_bytes(path, data)
+
+
+# --- simulated recordings with a disk cache --------------------------------------------------
+def cache_dir(section: dict) -> Path:
+    d = section.get("cache_dir") or os.environ.get("SNNCONVERT_CACHE") or "~/.cache/snnconvert"
+    return Path(d).expanduser()
+
+
+def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, config: _sensor.SensorConfig,
+                    seed: int, folder: Path) -> tuple[RecordingSet, Path, bool]:
+    """Simulate (or reuse) the recordings of `images`. Returns (recordings, cache file, reused?)."""
+    key = files.fingerprint(CACHE_VERSION, images.astype(np.float32), labels, stimulus, config.as_dict(), int(seed))
+    path = Path(folder) / f"recordings-{key}.npz"
+    h, w = images.shape[1:]
+    if path.is_file():
+        try:
+            z = files.load_npz(path)
+            if str(z["format"]) == CACHE_FORMAT and int(z["version"]) == CACHE_VERSION and z["key"] == key:
+                ev = np.empty(z["t"].size, EVENT_DTYPE)
+                ev["t"], ev["x"], ev["y"], ev["p"] = z["t"], z["x"], z["y"], z["p"]
+                return RecordingSet(ev, z["offsets"].astype(np.int64), labels, w, h), path, True
+        except (FormatError, KeyError, ValueError) as exc:
+            print(f"warning: ignoring unreadable cache {path} ({exc}); simulating again", file=sys.stderr)
+    rng = np.random.default_rng([int(seed), 1])
+    ev, offsets = _sensor.simulate_batch(images, stimulus, config, rng, progress=True)
+    buf = io.BytesIO()
+    # uint32 us covers 71 minutes per recording; the cache is a third of the in-memory size
+    np.savez_compressed(buf, format=np.array(CACHE_FORMAT), version=np.array(CACHE_VERSION), key=np.array(key),
+                        t=ev["t"].astype(np.uint32), x=ev["x"], y=ev["y"], p=ev["p"], offsets=offsets)
+    try:
+        files.atomic_write_bytes(path, buf.getvalue())
+    except OSError as exc:  # a read-only cache must not stop the run
+        print(f"warning: cannot write cache {path} ({exc})", file=sys.stderr)
+    return RecordingSet(ev, offsets, labels, w, h), path, False
+
+
+# --- recordings folder -----------------------------------------------------------------------
+def read_index(index_path) -> tuple[list[Path], list[str]]:
+    """CSV with header `file,label`; files resolve inside the index's folder."""
+    index_path = Path(index_path)
+    if not index_path.is_file():
+        raise UsageError(f"file not found: {index_path} (set data.recordings_index)")
+    try:
+        rows = list(csv.reader(io.StringIO(index_path.read_text(encoding="utf-8"))))
+    except (UnicodeDecodeError, csv.Error) as exc:
+        raise FormatError(f"{index_path}: not a readable CSV ({exc})") from None
+    if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
+        raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
+    paths, labels = [], []
+    for n, row in enumerate(rows[1:], start=2):
+        if not row or not "".join(row).strip():
+            continue
+        if len(row) != 2 or not row[0].strip() or not row[1].strip():
+            raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
+        p = files.resolve_inside(index_path.parent, row[0].strip(), what=f"{index_path} line {n}: file")
+        if not p.is_file():
+            raise UsageError(f"{index_path}: line {n}: file not found: {p}")
+        paths.append(p)
+        labels.append(row[1].strip())
+    if not paths:
+        raise FormatError(f"{index_path}: the index lists no recordings")
+    return paths, labels
+
+
+def class_names(labels: list[str]) -> list[str]:
+    """Sorted class names: numerically when every label is an integer."""
+    uniq = set(labels)
+    try:
+        return [str(v) for v in sorted(uniq, key=int)]
+    except ValueError:
+        return sorted(uniq)
+
+
+def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_size: int = 32,
+                          stimulus: str = "flash", config: _sensor.SensorConfig | None = None) -> Path:
+    """A small recordings folder made by the simulated sensor from the digits, for demos.
+
+    Files rotate through every format (.npz, .csv, .bin); returns the path of index.csv.
+    """
+    images, labels = digits_images(sensor_size)
+    rng = np.random.default_rng([int(seed), 3])
+    pick = np.concatenate([rng.permutation(np.flatnonzero(labels == c))[:per_class] for c in range(10)])
+    ev, offsets = _sensor.simulate_batch(images[pick], stimulus, config, np.random.default_rng([int(seed), 1]),
+                                         progress=False)
+    folder = Path(folder)
+    lines = ["file,label"]
+    for k, i in enumerate(pick):
+        s = EventStream(ev[offsets[k]:offsets[k + 1]], sensor_size, sensor_size)
+        name = f"digit{labels[i]}_{k:04d}{SUFFIXES[k % len(SUFFIXES)]}"
+        write_events(s, folder / name)
+        lines.append(f"{name},{labels[i]}")
+    return files.atomic_write_text(folder / "index.csv", "\n".join(lines) + "\n")
+
+
+# --- frames of many recordings ---------------------------------------------------------------
+def recording_frames(recs: RecordingSet, frames_section: dict, progress: bool = True):
+    """(X (N, C, S, S) float32, windows (N, 2), used_rule (N,) bool) for a RecordingSet."""
+    from tqdm import tqdm
+    from snnconvert import frames as F
+    sec = {k: frames_section.get(k, key.default) for k, key in F.SCHEMA.items()}
+    n = len(recs)
+    wins = np.zeros((n, 2), np.int64)
+    ok = np.zeros(n, bool)
+    sel = []
+    for i in tqdm(range(n), desc="windows", unit="rec", disable=not progress, leave=False, file=sys.stderr):
+        s, _ = recs[i]
+        (t0, t1), ok[i] = F.frame_window(s, sec)
+        wins[i] = t0, t1
+        a, b = np.searchsorted(s.t, [t0, t1])
+        sel.append(np.arange(recs.offsets[i] + a, recs.offsets[i] + b))
+    lens = np.array([len(v) for v in sel], np.int64)
+    idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
+    ev = recs.events[idx]
+    X = F.bin_events(ev["x"], ev["y"], ev["p"], recs.width, recs.height, np.repeat(np.arange(n), lens), n,
+                     sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    return X, wins, ok, lens
+
+
+# --- the dataset -----------------------------------------------------------------------------
+def _path_key(section: dict, key: str, base: Path) -> Path:
+    v = section.get(key, "")
+    if not v:
+        raise UsageError(f"data.{key} is empty; set it to the file's path (source = {section.get('source')!r})")
+    p = Path(v).expanduser()
+    p = p if p.is_absolute() else base / p
+    if not p.is_file():
+        raise UsageError(f"file not found: {p} (set data.{key})")
+    return p
+
+
+def _subset(labels: np.ndarray, limit: int, seed: int) -> np.ndarray:
+    """A seeded subset of `limit` indices with every class in proportion (all if limit is 0 or too big)."""
+    n = labels.size
+    if not limit or limit >= n:
+        return np.arange(n)
+    from sklearn.model_selection import train_test_split
+    rs = int(np.random.default_rng([int(seed), 2]).integers(2**31))
+    try:
+        keep, _ = train_test_split(np.arange(n), train_size=limit, stratify=labels, random_state=rs)
+    except ValueError:
+        keep = np.random.default_rng([int(seed), 2]).permutation(n)[:limit]
+    return np.sort(keep)
+
+
+def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, list[str], dict]:
+    """The recordings a recipe's [data] section describes, plus class names and facts for the report."""
+    sec = {k: recipe.get("data", {}).get(k, key.default) for k, key in SCHEMA.items()}
+    seed = int(recipe.get("seed", 0))
+    base = Path(recipe.get("_base_dir") or ".")
+    config = _sensor.SensorConfig.from_section(sec)
+    info = {"source": sec["source"]}
+    src = sec["source"]
+    if src == "digits":
+        images, labels = digits_images(sec["sensor_size"])
+        keep = _subset(labels, sec["limit"], seed)
+        recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed, cache_dir(sec))
+        classes = [str(c) for c in range(10)]
+        info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
+    elif src == "idx":
+        img_path, lab_path = _path_key(sec, "idx_images", base), _path_key(sec, "idx_labels", base)
+        images, labels = read_idx(img_path), read_idx(lab_path)
+        if images.ndim != 3:
+            raise FormatError(f"{img_path}: IDX images must have 3 dims (N, H, W); got {images.shape}")
+        if labels.ndim != 1 or labels.shape[0] != images.shape[0] or not np.issubdtype(labels.dtype, np.integer):
+            raise FormatError(f"{lab_path}: IDX labels must be N={images.shape[0]} integers; got "
+                              f"{labels.shape} {labels.dtype}")
+        uniq = np.unique(labels)
+        classes = [str(v) for v in uniq]
+        labels = np.searchsorted(uniq, labels).astype(np.int64)
+        keep = _subset(labels, sec["limit"], seed)
+        images, labels = images[keep], labels[keep]
+        full = float(np.iinfo(images.dtype).max) if np.issubdtype(images.dtype, np.integer) else float(images.max() or 1)
+        images = np.clip(images.astype(np.float64) / full, 0, 1)
+        if sec["idx_mode"] == "sensor":
+            recs, path, hit = simulate_cached(_resize(images, sec["sensor_size"]), labels, sec["stimulus"], config,
+                                              seed, cache_dir(sec))
+            info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
+        else:
+            recs = _binarized_recordings(images, labels, sec["binarize_level"])
+        info.update(idx_images=str(img_path), idx_mode=sec["idx_mode"])
+    else:
+        index = _path_key(sec, "recordings_index", base)
+        paths, names = read_index(index)
+        classes = class_names(names)
+        keep = _subset(np.array([classes.index(v) for v in names]), sec["limit"], seed)
+        from tqdm import tqdm
+        s_side = (sec["sensor_size"], sec["sensor_size"])
+        streams = [read_events(paths[i], sensor=s_side if paths[i].suffix.lower() == ".bin" else None)
+                   for i in tqdm(keep, desc="reading", unit="file", disable=not progress, leave=False,
+                                 file=sys.stderr)]
+        recs = RecordingSet.from_streams(streams, [classes.index(names[i]) for i in keep])
+        info.update(index=str(index))
+    return recs, classes, info
+
+
+def _binarized_recordings(images: np.ndarray, labels: np.ndarray, level: float) -> RecordingSet:
+    """One ON event at t = 0 for every pixel >= level (images in [0, 1])."""
+    n, h, w = images.shape
+    s, y, x = np.nonzero(images >= level)  # row-major: grouped by image already
+    ev = np.zeros(s.size, EVENT_DTYPE)
+    ev["x"], ev["y"], ev["p"] = x, y, 1
+    offsets = np.concatenate([[0], np.cumsum(np.bincount(s, minlength=n))]).astype(np.int64)
+    return RecordingSet(ev, offsets, labels, w, h)
+
+
+def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
+    """Recordings -> one frame each (frames section) -> seeded stratified train/val/test split.
+
+    val_fraction and test_fraction are fractions of all samples; val_fraction 0 gives an empty
+    validation split. Splits use scikit-learn's train_test_split(stratify=labels, random_state=seed).
+    """
+    from sklearn.model_selection import train_test_split
+    from snnconvert import frames as F
+    seed = int(recipe.get("seed", 0))
+    dsec = {k: recipe.get("data", {}).get(k, key.default) for k, key in SCHEMA.items()}
+    fsec = {k: recipe.get("frames", {}).get(k, key.default) for k, key in F.SCHEMA.items()}
+    recs, classes, info = load_recordings(recipe, progress)
+    X, wins, ok, lens = recording_frames(recs, fsec, progress)  # (N, C, S, S)
+    y = recs.labels
+    idx = np.arange(len(y))
+    tf, vf = dsec["test_fraction"], dsec["val_fraction"]
+    try:
+        rest, te = train_test_split(idx, test_size=tf, stratify=y, random_state=seed)
+        if vf > 0:
+            tr, va = train_test_split(rest, test_size=vf / (1 - tf), stratify=y[rest], random_state=seed)
+        else:
+            tr, va = rest, rest[:0]
+    except ValueError as exc:
+        raise UsageError(f"cannot split {len(y)} samples of {len(classes)} classes into train/val/test "
+                         f"(data.limit={dsec['limit']}, test_fraction={tf}, val_fraction={vf}): {exc}") from None
+    tr, va, te = np.sort(tr), np.sort(va), np.sort(te)
+    split = lambda s: (X[s], y[s].astype(np.int64))  # noqa: E731
+    spikes = X.reshape(len(X), -1).sum(1)
+    info.update(
+        recordings=len(recs), events_per_recording=float(np.diff(recs.offsets).mean()) if len(recs) else 0.0,
+        events_per_window=float(lens.mean()) if len(lens) else 0.0,
+        nonzero_pixels_per_frame=float(np.count_nonzero(X.reshape(len(X), -1), axis=1).mean()) if len(X) else 0.0,
+        frame_sum_mean=float(spikes.mean()) if len(X) else 0.0,
+        fallback_windows=int((~ok).sum()), sensor=[recs.width, recs.height],
+        split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
+    )
+    fp = files.fingerprint(X, y, tr, va, te, classes)
+    return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
+                   input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,
+                   windows=wins, split_index={"train": tr, "val": va, "test": te})

@@ -1,8 +1,28 @@
-"""Frames: the events of one window binned into a (C, H, W) tensor."""
+"""Frames: the events of one window binned into a (C, H, W) tensor.
+
+    count[c, i, j] = #{events in [t0, t1) with  i = y * H // height,  j = x * W // width}
+    binary:   1 channel,  frame = (count >= threshold)            values {0, 1}
+    count:    1 channel,  frame = min(count, max_count)           values 0..max_count
+    polarity: 2 channels (ON, OFF), each min(count, max_count)     values 0..max_count
+
+Subsampling is sum-pooling: sensor pixel (x, y) goes to target pixel (x*W//width, y*H//height),
+with H = W = size. When the sensor side is not a multiple of size, target pixels gather
+floor(side/size) or ceil(side/size) sensor pixels, the larger ones spread evenly across the
+frame (no pixel is dropped or counted twice). A non-square sensor is stretched to a square frame.
+Binary mode ignores polarity; in it no pixel carries more than one spike per window.
+"""
 
 from __future__ import annotations
 
+import io
+
+import numpy as np
+
+from snnconvert.errors import UsageError, check_choice, check_int
+from snnconvert.events.stream import EventStream
 from snnconvert.schema import Key
+
+MODES = ("binary", "count", "polarity")
 
 SCHEMA: dict[str, Key] = {
     "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance",
@@ -18,8 +38,169 @@ SCHEMA: dict[str, Key] = {
     "window_us": Key(5000, "int", "fixed windows: a few ms holds one onset response", lo=1),
     "window_events": Key(2000, "int", "count windows: about the events of one digit onset", lo=1),
     "mode": Key("binary", "choice", "one spike per pixel suits single-spike networks (input_q = 1)",
-                choices=("binary", "count", "polarity")),
+                choices=MODES),
     "size": Key(16, "int", "half the 32-pixel sensor: keeps the digit shape, 4x fewer input neurons", lo=2, hi=1024),
     "threshold": Key(4, "int", "binary: events a pooled pixel needs to fire; rejects stray noise events", lo=1),
     "max_count": Key(4, "int", "count/polarity: clip so a few busy pixels do not dominate", lo=1, hi=255),
 }
+
+
+def channels(mode: str) -> int:
+    return 2 if mode == "polarity" else 1
+
+
+def input_q(mode: str, max_count: int) -> int:
+    """Largest frame value: 1 for binary, max_count otherwise."""
+    return 1 if mode == "binary" else int(max_count)
+
+
+def _check(mode, size, threshold, max_count):
+    owner = "frames"
+    check_choice(mode, "mode", owner, MODES)
+    check_int(size, "size", owner, 1, 1024)
+    check_int(threshold, "threshold", owner, 1)
+    check_int(max_count, "max_count", owner, 1, 255)
+
+
+def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str = "binary", size: int = 16,
+               threshold: int = 1, max_count: int = 4) -> np.ndarray:
+    """Bin events tagged by group (window or recording index) into (n_groups, C, size, size) float32.
+
+    One np.bincount over all events: no Python loop per event or per group.
+    """
+    _check(mode, size, threshold, max_count)
+    c = channels(mode)
+    tx = x.astype(np.int64) * size // width
+    ty = y.astype(np.int64) * size // height
+    idx = ty * size + tx  # (E,) target pixel
+    if c == 2:
+        idx = idx + (p < 0) * (size * size)
+    idx = idx + np.asarray(group, np.int64) * (c * size * size)
+    counts = np.bincount(idx, minlength=n_groups * c * size * size)[: n_groups * c * size * size]
+    counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
+    if mode == "binary":
+        return (counts >= threshold).astype(np.float32)
+    return np.minimum(counts, max_count).astype(np.float32)
+
+
+def bin_windows(stream: EventStream, windows, mode: str = "binary", size: int = 16, threshold: int = 1,
+                max_count: int = 4) -> np.ndarray:
+    """Frames of several windows of one stream: (K, C, size, size). Overlapping windows are not
+    allowed (each event is binned once); events outside every window are ignored."""
+    w = np.asarray(windows, np.int64).reshape(-1, 2)  # (K, 2)
+    if w.size and (np.any(w[:, 1] < w[:, 0]) or np.any(w[1:, 0] < w[:-1, 1])):
+        raise UsageError("windows must be ordered, non-overlapping (t_start, t_end) pairs")
+    bounds = np.searchsorted(stream.t, w.ravel()).reshape(-1, 2)  # (K, 2) event index ranges
+    lens = bounds[:, 1] - bounds[:, 0]
+    sel = np.concatenate([np.arange(a, b) for a, b in bounds]) if len(w) else np.zeros(0, np.int64)
+    group = np.repeat(np.arange(len(w)), lens)
+    ev = stream.events[sel]
+    return bin_events(ev["x"], ev["y"], ev["p"], stream.width, stream.height, group, len(w), mode, size,
+                      threshold, max_count)
+
+
+def bin_window(stream: EventStream, t0: int, t1: int, mode: str = "binary", size: int = 16, threshold: int = 1,
+               max_count: int = 4) -> np.ndarray:
+    """The frame (C, size, size) float32 of the events with t0 <= t < t1 (see module docstring)."""
+    return bin_windows(stream, [(t0, t1)], mode, size, threshold, max_count)[0]
+
+
+def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
+    """All windows of `stream` by the [frames] section's window rule."""
+    from snnconvert import windows as W
+    kind = section.get("window", SCHEMA["window"].default)
+    get = lambda k: section.get(k, SCHEMA[k].default)  # noqa: E731
+    if kind == "burst":
+        return W.bursts(stream, get("bin_us"), get("upper"), get("lower"), get("relative"),
+                        get("min_duration_us"), get("merge_gap_us"))
+    if kind == "fixed":
+        return W.fixed_windows(stream, get("window_us"))
+    return W.count_windows(stream, get("window_events"))
+
+
+def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], bool]:
+    """The window that makes a recording's frame, and whether it came from the rule (True) or the
+    fallback (False): a recording where the rule finds no window uses all of its events."""
+    from snnconvert import windows as W
+    chosen = W.pick(stream, windows_of(stream, section), section.get("pick", SCHEMA["pick"].default))
+    if chosen is not None:
+        return chosen, True
+    if len(stream):
+        return (int(stream.t[0]), int(stream.t[-1]) + 1), False
+    return (0, 0), False
+
+
+# --- plots ----------------------------------------------------------------------------------
+def _save_png(fig, path):
+    from snnconvert.files import atomic_write_bytes
+    import matplotlib.pyplot as plt
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+    plt.close(fig)
+    return atomic_write_bytes(path, buf.getvalue())
+
+
+def _frame_image(frame: np.ndarray) -> np.ndarray:
+    """(C, H, W) -> (H, W) for display: polarity frames show ON - OFF."""
+    return frame[0] - frame[1] if frame.shape[0] == 2 else frame[0]
+
+
+def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresholds=None, title: str = ""):
+    """Rate trace (events/s) with the two thresholds and the bursts shaded; the frame of each
+    burst (up to 6) beside it. rate_trace = (t_k, rate) from windows.rate_trace."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    frames = list(frames)[:6]
+    ncol = max(len(frames), 1)
+    fig = plt.figure(figsize=(4 + 2.2 * ncol, 3.4))
+    grid = fig.add_gridspec(1, 1 + ncol, width_ratios=[3.5] + [1] * ncol)
+    ax = fig.add_subplot(grid[0, 0])
+    tk, rate = rate_trace
+    ax.plot(np.asarray(tk) / 1e3, rate, lw=1, color="k", label="rate")
+    if thresholds is not None:
+        ax.axhline(thresholds[0], color="tab:red", ls="--", lw=1, label="upper")
+        ax.axhline(thresholds[1], color="tab:blue", ls=":", lw=1, label="lower")
+    for i, (s, e) in enumerate(bursts):
+        ax.axvspan(s / 1e3, e / 1e3, color="tab:orange", alpha=0.3, label="burst" if i == 0 else None)
+    ax.set_xlabel("time (ms)")
+    ax.set_yscale("symlog", linthresh=max(1.0, float(thresholds[1]) if thresholds is not None else 1.0))
+    ax.set_ylabel("events / s (log above the lower threshold)")
+    ax.set_title(title or f"{len(stream)} events, {len(bursts)} bursts", fontsize=9)
+    ax.legend(fontsize=7, loc="upper right")
+    for i, f in enumerate(frames):
+        a = fig.add_subplot(grid[0, 1 + i])
+        img = _frame_image(np.asarray(f))
+        a.imshow(img, cmap="gray" if f.shape[0] == 1 else "bwr", interpolation="nearest")
+        a.set_title(f"burst {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
+        a.set_xticks([])
+        a.set_yticks([])
+    if not frames:
+        a = fig.add_subplot(grid[0, 1])
+        a.text(0.5, 0.5, "no burst", ha="center", va="center")
+        a.axis("off")
+    return _save_png(fig, path)
+
+
+def plot_frames(X, y, path, classes=None, per_class: int = 8):
+    """A grid of example frames: one row per class, up to per_class examples each."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    X = np.asarray(X)
+    y = np.asarray(y)
+    labels = np.unique(y)
+    fig, axes = plt.subplots(len(labels), per_class, figsize=(per_class * 0.9, len(labels) * 0.95), squeeze=False)
+    for r, lab in enumerate(labels):
+        idx = np.flatnonzero(y == lab)[:per_class]
+        for c in range(per_class):
+            a = axes[r, c]
+            a.set_xticks([])
+            a.set_yticks([])
+            if c < idx.size:
+                f = X[idx[c]]
+                a.imshow(_frame_image(f), cmap="gray" if f.shape[0] == 1 else "bwr", interpolation="nearest")
+            else:
+                a.axis("off")
+        axes[r, 0].set_ylabel(str(classes[lab]) if classes is not None else str(lab), rotation=0, labelpad=12)
+    return _save_png(fig, path)

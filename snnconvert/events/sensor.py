@@ -1,0 +1,272 @@
+"""Simulated dynamic vision sensor for static images (the log-intensity change model).
+
+Each pixel keeps a reference log intensity L_ref. While log I(t) - L_ref >= C_on it emits an ON
+event and L_ref += C_on; while L_ref - log I(t) >= C_off it emits an OFF event and L_ref -= C_off
+(Lichtsteiner et al. 2008; Gallego et al. 2020). So a step of k*C gives exactly k events.
+
+    I(t)      = dark + (1 - dark) * image(t)     image in [0, 1], dark = screen black level
+    log I(t)  is linear between the sample times of the stimulus, so the n-th crossing time of a
+              pixel is found in closed form inside each interval (no per-event loop).
+    C_on, C_off per pixel = C * (1 + mismatch * N(0, 1)), drawn once per simulated sensor (a fixed
+              pattern, as in silicon), floored at C / 10.
+
+Then, in this order: timestamp jitter (Gaussian, sigma jitter_us, rounded to whole us, floored at 0);
+a refractory period that *delays* (never drops) a pixel's next event to at least refractory_us after
+its previous one, so the event count still follows the equation; background noise (Poisson,
+noise_hz per pixel, uniform times, random polarity); hot pixels (hot_pixels random pixels per
+recording, Poisson at hot_pixel_hz each). Everything is drawn from the caller's seeded generator.
+
+Stimuli:
+    flash    dark screen for flash_delay_us, the image ramps in over rise_us, stays until
+             flash_delay_us + flash_on_us, ramps out over rise_us, dark for flash_off_us.
+             ON events at onset, OFF events at offset.
+    saccade  the image is on screen from t = 0 (pixels adapted to it) and moves along a closed
+             regular polygon of saccade_segments straight sides of saccade_amplitude pixels, each in
+             saccade_segment_us, sampled saccade_steps times per side (bilinear sub-pixel shifts,
+             dark level outside the image). Events appear at the moving edges.
+"""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, fields
+
+import numpy as np
+from scipy import ndimage
+
+from snnconvert.errors import UsageError, check_choice
+from snnconvert.events.stream import EVENT_DTYPE, EventStream
+from snnconvert.schema import Key
+
+STIMULI = ("flash", "saccade")
+_CHUNK = 256  # images per vectorized pass: bounds memory, feeds the progress bar
+_EPS = 1e-9  # float slack so that an exact k*C step counts k crossings, not k-1
+
+# The sensor's recipe keys (section [data]); SensorConfig has one field per key.
+SCHEMA: dict[str, Key] = {
+    "contrast": Key(0.25, "float", "typical DVS contrast threshold, 0.1-0.5 natural-log units (from memory)",
+                    lo=0.01, hi=2.0),
+    "mismatch": Key(0.03, "float", "per-pixel threshold sigma relative to contrast; 2.1% is published for a "
+                    "128x128 sensor", lo=0.0, hi=0.5),
+    "refractory_us": Key(100, "int", "caps a pixel near 10 kHz, above its bandwidth (common practice)", lo=0),
+    "jitter_us": Key(50, "int", "timestamp noise of tens of us, typical of arbiters under load (from memory)", lo=0),
+    "noise_hz": Key(0.2, "float", "background activity of a fraction of an event per pixel per second "
+                    "(from memory)", lo=0.0),
+    "hot_pixels": Key(0, "int", "a clean sensor by default; raise it to test robustness", lo=0),
+    "hot_pixel_hz": Key(300.0, "float", "a hot pixel fires hundreds of times per second (from memory)", lo=0.0),
+    "dark_level": Key(0.2, "float", "screen black at 20% of white: up to 7 events per bright pixel at C=0.25",
+                      lo=0.001, hi=1.0),
+    "rise_us": Key(1000, "int", "a display and photoreceptor settle in about a millisecond (from memory)", lo=1),
+    "flash_delay_us": Key(10000, "int", "quiet lead-in so the background rate can be measured", lo=0),
+    "flash_on_us": Key(50000, "int", "keeps the ON and OFF bursts well apart", lo=1),
+    "flash_off_us": Key(30000, "int", "quiet tail after the OFF burst", lo=0),
+    "saccade_segments": Key(3, "int", "a triangle: the shortest closed path that moves every edge", lo=2, hi=16),
+    "saccade_segment_us": Key(30000, "int", "about the pace of small eye movements, tens of ms per segment", lo=1),
+    "saccade_amplitude": Key(2.0, "float", "a couple of sensor pixels: edges move, the shape stays put", lo=0.1),
+    "saccade_steps": Key(16, "int", "time samples per segment: sub-pixel motion per step", lo=2, hi=1000),
+}
+
+
+@dataclass(frozen=True)
+class SensorConfig:
+    contrast: float = SCHEMA["contrast"].default
+    mismatch: float = SCHEMA["mismatch"].default
+    refractory_us: int = SCHEMA["refractory_us"].default
+    jitter_us: int = SCHEMA["jitter_us"].default
+    noise_hz: float = SCHEMA["noise_hz"].default
+    hot_pixels: int = SCHEMA["hot_pixels"].default
+    hot_pixel_hz: float = SCHEMA["hot_pixel_hz"].default
+    dark_level: float = SCHEMA["dark_level"].default
+    rise_us: int = SCHEMA["rise_us"].default
+    flash_delay_us: int = SCHEMA["flash_delay_us"].default
+    flash_on_us: int = SCHEMA["flash_on_us"].default
+    flash_off_us: int = SCHEMA["flash_off_us"].default
+    saccade_segments: int = SCHEMA["saccade_segments"].default
+    saccade_segment_us: int = SCHEMA["saccade_segment_us"].default
+    saccade_amplitude: float = SCHEMA["saccade_amplitude"].default
+    saccade_steps: int = SCHEMA["saccade_steps"].default
+
+    def __post_init__(self):
+        for f in fields(self):
+            SCHEMA[f.name].check(getattr(self, f.name), f.name, "SensorConfig")
+        if self.rise_us >= self.flash_on_us:
+            raise UsageError(f"The 'rise_us' parameter of SensorConfig must be below flash_on_us "
+                             f"({self.flash_on_us}). Got {self.rise_us} instead.")
+
+    @classmethod
+    def from_section(cls, section: dict) -> "SensorConfig":
+        """The sensor keys of a recipe's [data] section (other keys are ignored)."""
+        return cls(**{f.name: section[f.name] for f in fields(cls) if f.name in section})
+
+    def as_dict(self) -> dict:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def simulate(image, stimulus: str = "flash", config: SensorConfig | None = None, rng=None) -> EventStream:
+    """One image (H, W) with values in [0, 1] -> the recording of one simulated sensor of size W x H."""
+    image = np.asarray(image, dtype=np.float64)
+    if image.ndim != 2:
+        raise UsageError(f"simulate needs one 2-D image (H, W); got shape {image.shape}")
+    ev, offsets = simulate_batch(image[None], stimulus, config, rng, progress=False)
+    return EventStream(ev, image.shape[1], image.shape[0])
+
+
+def simulate_batch(images, stimulus: str = "flash", config: SensorConfig | None = None, rng=None,
+                   progress: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Images (N, H, W) in [0, 1] shown to one simulated sensor, one recording each.
+
+    Returns (events in EVENT_DTYPE, offsets (N + 1,)): recording i is events[offsets[i]:offsets[i+1]],
+    each time-ordered and starting at t = 0. Vectorized over all pixels of all images; the only
+    Python loop runs over the stimulus sample times.
+    """
+    config = config or SensorConfig()
+    check_choice(stimulus, "stimulus", "simulate", STIMULI)
+    rng = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+    images = np.asarray(images, dtype=np.float64)  # (N, H, W)
+    if images.ndim != 3 or 0 in images.shape:
+        raise UsageError(f"simulate needs images of shape (N, H, W); got {images.shape}")
+    if not np.all(np.isfinite(images)) or images.min() < 0 or images.max() > 1:
+        raise UsageError("simulate needs image values in [0, 1] (fraction of white)")
+    n, h, w = images.shape
+    npx = h * w
+    c = config.contrast
+    c_on = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,) fixed pattern
+    c_off = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,)
+    evs, counts = [], []
+    from tqdm import tqdm
+    with tqdm(total=n, desc=f"sensor ({stimulus})", unit="image", disable=not progress, leave=False,
+              file=sys.stderr) as bar:
+        for i0 in range(0, n, _CHUNK):
+            ev, cnt = _simulate_chunk(images[i0:i0 + _CHUNK], stimulus, config, rng, c_on, c_off)
+            evs.append(ev)
+            counts.append(cnt)
+            bar.update(cnt.size)
+    offsets = np.concatenate([[0], np.cumsum(np.concatenate(counts))]).astype(np.int64)
+    return np.concatenate(evs), offsets
+
+
+def _simulate_chunk(images, stimulus, config, rng, c_on, c_off):
+    n, h, w = images.shape
+    npx = h * w
+    dark = config.dark_level
+
+    def log_i(img):  # (N, H, W) -> (N, P)
+        return np.log(dark + (1 - dark) * img).reshape(n, npx)
+
+    if stimulus == "flash":
+        d, r, on = config.flash_delay_us, config.rise_us, config.flash_on_us
+        end = d + on + config.flash_off_us
+        black = np.full((n, npx), np.log(dark))
+        shown = log_i(images)
+        samples = [(0, black), (d, black), (d + r, shown), (d + on, shown), (d + on + r, black)]
+        if end > d + on + r:
+            samples.append((end, black))
+        frames = iter(samples)
+    else:
+        k, steps = config.saccade_segments, config.saccade_steps
+        ang = 2 * np.pi * np.arange(k + 1) / k
+        side = config.saccade_amplitude
+        radius = side / (2 * np.sin(np.pi / k))  # regular polygon with sides of `side` pixels
+        vx, vy = radius * (np.cos(ang) - 1), radius * np.sin(ang)
+        s = np.arange(k * steps + 1) / steps  # path parameter in segments
+        seg = np.minimum(s.astype(int), k - 1)
+        frac = s - seg
+        px = vx[seg] + (vx[seg + 1] - vx[seg]) * frac
+        py = vy[seg] + (vy[seg + 1] - vy[seg]) * frac
+        times = np.rint(s * config.saccade_segment_us).astype(np.int64)
+        end = int(times[-1])
+
+        def gen():
+            for ti, dx, dy in zip(times, px, py):
+                moved = ndimage.shift(images, (0, dy, dx), order=1, mode="constant", cval=0.0, prefilter=False)
+                yield int(ti), log_i(np.clip(moved, 0, 1))
+        frames = gen()
+
+    t_prev, l_prev = next(frames)
+    ref = l_prev.copy()  # (N, P): pixels adapted to the first sample
+    parts = []
+    for t_next, l_next in frames:
+        dl = l_next - l_prev  # (N, P)
+        n_on = np.floor(np.maximum(l_next - ref, 0) / c_on + _EPS).astype(np.int64)   # (N, P)
+        n_off = np.floor(np.maximum(ref - l_next, 0) / c_off + _EPS).astype(np.int64)  # (N, P)
+        for cnt, sign, cc in ((n_on, 1, c_on), (n_off, -1, c_off)):
+            flat = np.flatnonzero(cnt)
+            if not flat.size:
+                continue
+            reps = cnt.ravel()[flat]
+            idx = np.repeat(flat, reps)
+            kth = np.arange(idx.size) - np.repeat(np.cumsum(reps) - reps, reps) + 1  # 1..n per pixel
+            level = ref.ravel()[idx] + sign * kth * cc[idx % npx]
+            d = dl.ravel()[idx]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                f = np.where(d != 0, (level - l_prev.ravel()[idx]) / d, 1.0)
+            tt = t_prev + np.clip(f, 0, 1) * (t_next - t_prev)
+            parts.append((idx, tt, np.full(idx.size, sign, np.int8)))
+        ref = ref + n_on * c_on - n_off * c_off
+        t_prev, l_prev = t_next, l_next
+
+    if parts:
+        gidx = np.concatenate([q[0] for q in parts])  # (E,) flat (image, pixel) index
+        tt = np.concatenate([q[1] for q in parts])
+        pp = np.concatenate([q[2] for q in parts])
+    else:
+        gidx, tt, pp = np.zeros(0, np.int64), np.zeros(0), np.zeros(0, np.int8)
+    if config.jitter_us:
+        tt = tt + config.jitter_us * rng.standard_normal(tt.size)
+    tus = np.maximum(np.rint(tt), 0).astype(np.int64)
+    order = np.lexsort((tus, gidx))
+    gidx, tus, pp = gidx[order], tus[order], pp[order]
+    if config.refractory_us and tus.size:
+        tus = _refractory(gidx, tus, config.refractory_us)
+
+    dur_s = end * 1e-6
+    noise = [_poisson_events(rng, n, npx, config.noise_hz * npx * dur_s, end, pick_pixels=None)]
+    if config.hot_pixels:
+        hot = rng.integers(0, npx, size=(n, config.hot_pixels))  # (N, hot)
+        noise.append(_poisson_events(rng, n, npx, config.hot_pixel_hz * config.hot_pixels * dur_s, end,
+                                     pick_pixels=hot))
+    sample = gidx // npx
+    pix = gidx % npx
+    for s_, p_, t_, q_ in noise:
+        sample = np.concatenate([sample, s_])
+        pix = np.concatenate([pix, p_])
+        tus = np.concatenate([tus, t_])
+        pp = np.concatenate([pp, q_])
+    order = np.lexsort((tus, sample))
+    ev = np.empty(order.size, EVENT_DTYPE)
+    ev["t"] = tus[order]
+    ev["x"] = pix[order] % w
+    ev["y"] = pix[order] // w
+    ev["p"] = pp[order]
+    return ev, np.bincount(sample, minlength=n)
+
+
+def _refractory(group: np.ndarray, t: np.ndarray, r: int) -> np.ndarray:
+    """t'_j = max(t_j, t'_{j-1} + r) within each pixel group (rows sorted by group, then t).
+
+    Closed form: t'_j = j*r + max_{i<=j}(t_i - i*r), a running maximum; adding group*BIG keeps
+    the maximum from leaking across groups. j counts from the group's first row.
+    """
+    n = t.size
+    start = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    first = np.repeat(start, np.diff(np.r_[start, n]))
+    j = np.arange(n) - first
+    gid = np.repeat(np.arange(start.size), np.diff(np.r_[start, n]))
+    u = t - j * r
+    big = int(t.max() - u.min()) + 1
+    u = u + gid * big
+    return np.maximum.accumulate(u) - gid * big + j * r
+
+
+def _poisson_events(rng, n, npx, mean_per_sample, end, pick_pixels):
+    """Poisson count per recording, uniform times in [0, end), uniform pixels (or among pick_pixels)."""
+    counts = rng.poisson(mean_per_sample, size=n) if mean_per_sample > 0 else np.zeros(n, np.int64)
+    total = int(counts.sum())
+    sample = np.repeat(np.arange(n), counts)
+    if pick_pixels is None:
+        pix = rng.integers(0, npx, size=total)
+    else:
+        pix = pick_pixels[sample, rng.integers(0, pick_pixels.shape[1], size=total)]
+    t = rng.integers(0, max(end, 1), size=total).astype(np.int64)
+    p = np.where(rng.random(total) < 0.5, 1, -1).astype(np.int8)
+    return sample, pix, t, p
