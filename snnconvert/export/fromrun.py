@@ -31,10 +31,10 @@ def load_inputs(path) -> tuple[np.ndarray, np.ndarray | None]:
     return x.astype(np.int64), None if y is None else y.astype(np.int64)
 
 
-def test_inputs(net: IntNetwork, recipe: dict) -> tuple[np.ndarray, np.ndarray]:
+def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Test frames of the recipe's data set as input payloads: a0 = clamp(round(frame), 0, Q_in)."""
     from snnconvert import data
-    ds = data.load_dataset(recipe)
+    ds = data.load_dataset(recipe, progress=progress)
     x, y = ds.test                                                   # (N, C, H, W) float32, (N,)
     return arith.quantize_input(x, net.input_q).astype(np.int64), np.asarray(y, dtype=np.int64)
 
@@ -64,5 +64,5 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     elif recipe is None:
         raise UsageError(f"{net_dir / 'recipe.toml'} is missing, so the test data is unknown; give --inputs FILE.npz")
     else:
-        x, y = test_inputs(net, recipe)
+        x, y = test_inputs(net, recipe, progress)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, progress=progress)
