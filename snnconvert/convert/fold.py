@@ -1,6 +1,7 @@
 """Check a frame model and fold it into a flat list of float operations.
 
     conv/dense + BatchNorm:  w' = w * g / sqrt(var + eps),  b' = (b - mean) * g / sqrt(var + eps) + beta
+                             (models.fold_batchnorm, shared with conversion-aware training)
     Dropout:                 removed (identity at inference)
     MaxPool before ReLU:     swapped, since max(relu(z)) = relu(max(z)) for the monotone ReLU
     AvgPool2d:               kept as "avgpool"; quantize.py turns it into a sum pool whose 1/n
@@ -12,7 +13,6 @@ rounding), which `folded_forward` lets tests check.
 
 from __future__ import annotations
 
-import copy
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -20,6 +20,7 @@ import torch
 from torch import nn
 
 from snnconvert.errors import UsageError
+from snnconvert.models import fold_batchnorm
 
 SUPPORTED = ("Conv2d", "Linear", "ReLU", "AvgPool2d", "MaxPool2d", "Flatten", "BatchNorm1d", "BatchNorm2d",
              "Dropout", "ClipQuant", "QConv2d", "QLinear")
@@ -80,11 +81,17 @@ def check_model(model) -> list[nn.Module]:
 
 def fold(model) -> list[FoldedOp]:
     """The model as folded float operations; raises UsageError naming the layer on bad orderings."""
-    layers = check_model(model)
+    original = check_model(model)
+    # BatchNorm folding is shared with conversion-aware training; keep the original layer indices
+    index = [i for i, m in enumerate(original) if not isinstance(m, (nn.BatchNorm1d, nn.BatchNorm2d))]
+    for i, m in enumerate(original):
+        if isinstance(m, (nn.BatchNorm1d, nn.BatchNorm2d)) and (m.running_mean is None or m.running_var is None):
+            raise UsageError(f"layer {i} ({type(m).__name__}) has no running statistics (track_running_stats=False)")
+    layers = list(fold_batchnorm(model))
     ops: list[FoldedOp] = []
     pending_pool = None          # a MaxPool seen between a conv and its activation
     open_op = None               # conv/dense waiting for BN / activation
-    for i, m in enumerate(layers):
+    for i, m in zip(index, layers):
         name = type(m).__name__
         if isinstance(m, (nn.Dropout, nn.Flatten)):
             continue
@@ -100,23 +107,12 @@ def fold(model) -> list[FoldedOp]:
             else:
                 open_op = FoldedOp("dense", w, b, source=[i])
             ops.append(open_op)
-        elif isinstance(m, (nn.BatchNorm1d, nn.BatchNorm2d)):
-            if open_op is None or open_op.act is not None or pending_pool is not None or open_op.source[-1] != i - 1:
-                raise UsageError(f"layer {i} ({name}) must directly follow a Conv2d/Linear so that it can be folded")
-            if m.running_mean is None or m.running_var is None:
-                raise UsageError(f"layer {i} ({name}) has no running statistics (track_running_stats=False)")
-            g = m.weight.detach().double().numpy() if m.weight is not None else np.ones(m.num_features)
-            beta = m.bias.detach().double().numpy() if m.bias is not None else np.zeros(m.num_features)
-            k = g / np.sqrt(m.running_var.double().numpy() + m.eps)             # (O,)
-            open_op.weight = open_op.weight * k.reshape((-1,) + (1,) * (open_op.weight.ndim - 1))
-            open_op.bias = (open_op.bias - m.running_mean.double().numpy()) * k + beta
-            open_op.source.append(i)
         elif _is_act(m):
             if open_op is None:
                 raise UsageError(f"layer {i} ({name}) must follow a Conv2d/Linear (optionally with BatchNorm); "
                                  f"a single-spike neuron needs weights in front of its activation")
             # a private float64 copy: evaluating it must not change the caller's model
-            open_op.act = copy.deepcopy(m).double() if hasattr(m, "a_max") else m
+            open_op.act = m.double() if hasattr(m, "a_max") else m   # fold_batchnorm made a private copy
             open_op.source.append(i)
             open_op = None
             if pending_pool is not None:

@@ -1,0 +1,179 @@
+"""Converter: layer checks, folding, calibration, weight/bias quantization, accuracy at high precision."""
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import torch
+from torch import nn
+
+sys.path.insert(0, str(Path(__file__).parent))
+from _convert_helpers import accuracy, split, trained  # noqa: E402
+
+from snnconvert import arith  # noqa: E402
+from snnconvert.convert import SCHEMA, convert, fold, folded_forward, parse_range_rule, settings_from  # noqa: E402
+from snnconvert.convert.calibrate import activation_ranges, calibration_subset, range_statistic  # noqa: E402
+from snnconvert.errors import UsageError  # noqa: E402
+from snnconvert.intnet import IntNetwork  # noqa: E402
+from snnconvert.models import ClipQuant, make_aware  # noqa: E402
+from snnconvert.sim import simulate  # noqa: E402
+
+torch.set_num_threads(1)   # small models; a second thread only spins on a shared 2-core machine
+X16 = np.zeros((4, 1, 16, 16), dtype=np.float32)
+
+
+@pytest.mark.parametrize("layers,match", [
+    ([nn.Flatten(), nn.Linear(256, 10), nn.Sigmoid()],
+     r"layer 2 \(Sigmoid\) is not supported by convert; supported layers: Conv2d, Linear, ReLU"),
+    ([nn.Conv2d(1, 2, 3), nn.Conv2d(2, 2, 3), nn.ReLU(), nn.Flatten(), nn.Linear(288, 10)],
+     r"layer 1 \(Conv2d\) follows layer 0 without a ReLU"),
+    ([nn.Conv2d(1, 2, 3), nn.ReLU(), nn.BatchNorm2d(2), nn.Flatten(), nn.Linear(392, 10)],
+     r"layer 2 \(BatchNorm2d\) must follow a Conv2d or Linear"),
+    ([nn.Conv2d(1, 2, 3), nn.AvgPool2d(2), nn.ReLU(), nn.Flatten(), nn.Linear(98, 10)],
+     r"layer 1 \(AvgPool2d\): average pooling before the activation"),
+    ([nn.Flatten(), nn.Linear(256, 10), nn.ReLU()], r"must end with a Linear layer"),
+    ([nn.Conv2d(1, 2, 3, dilation=2), nn.ReLU(), nn.Flatten(), nn.Linear(288, 10)], r"layer 0 \(Conv2d\).*dilation"),
+    ([nn.Conv2d(1, 2, 3), nn.ReLU(), nn.AvgPool2d(2, padding=1), nn.Flatten(), nn.Linear(128, 10)],
+     r"layer 2 \(AvgPool2d\): average pooling must have padding=0"),
+    ([nn.Conv2d(1, 2, 3), nn.ReLU(), nn.AvgPool2d(2), nn.MaxPool2d(1), nn.Flatten(), nn.Linear(98, 10)],
+     r"layer 2 \(AvgPool2d\) must be followed by a Conv2d or Linear"),
+])
+def test_unsupported_models_are_rejected_before_work(layers, match):
+    with pytest.raises(UsageError, match=match):
+        convert(nn.Sequential(*layers), X16, weight_bits=4, payload_bits=4, coding="payload")
+
+
+@pytest.mark.parametrize("kw,msg", [
+    ({"payload_bits": 0}, "The 'payload_bits' parameter of convert must be an int in [1, 8]. Got 0 instead."),
+    ({"weight_bits": 17}, "The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 17 instead."),
+    ({"coding": "rate"}, "The 'coding' parameter of convert must be one of 'payload', 'ttfs', 'binary'. Got 'rate' instead."),
+    ({"calibration": "percentile:0"},
+     "The 'calibration' parameter of convert must be 'max' or 'percentile:Q' with Q in (0, 100]. Got 'percentile:0' instead."),
+    ({"overflow": "clip"}, "The 'overflow' parameter of convert must be one of 'saturate', 'wrap'. Got 'clip' instead."),
+])
+def test_parameters_are_validated_with_the_template(kw, msg):
+    args = dict(weight_bits=4, payload_bits=4, coding="payload") | kw
+    with pytest.raises(UsageError) as e:
+        convert(nn.Sequential(nn.Flatten(), nn.Linear(256, 10)), X16, **args)
+    assert str(e.value) == msg
+
+
+@pytest.mark.parametrize("text,parsed", [("max", ("max", 100.0)), ("percentile:99.9", ("percentile", 99.9)),
+                                         ("percentile:100", ("percentile", 100.0))])
+def test_range_rule_parsing(text, parsed):
+    assert parse_range_rule(text) == parsed
+
+
+def test_settings_fill_defaults_and_reject_unknown_keys():
+    s = settings_from({"weight_bits": 3})
+    assert s["weight_bits"] == 3 and s["payload_bits"] == SCHEMA["payload_bits"].default
+    with pytest.raises(UsageError, match=r"Unknown key 'weight_bit' in section \[convert\]. Did you mean 'weight_bits'"):
+        settings_from({"weight_bit": 3})
+
+
+@pytest.mark.parametrize("kind", ["conv_max", "conv_avg"])
+def test_folded_float_network_matches_the_original(kind):
+    model = trained(kind)
+    _, (xte, _) = split()
+    with torch.no_grad():
+        want = model(torch.from_numpy(xte)).double().numpy()             # (N, 10)
+    got = folded_forward(fold(model), xte).numpy()
+    np.testing.assert_allclose(got, want, rtol=1e-4, atol=1e-4)        # float32 model vs float64 fold
+    assert [op.kind for op in fold(model)][:2] == ["conv", "maxpool" if kind == "conv_max" else "avgpool"]
+
+
+def test_maxpool_before_relu_is_reordered_exactly():
+    torch.manual_seed(0)
+    m = nn.Sequential(nn.Conv2d(1, 3, 3, padding=1), nn.MaxPool2d(2), nn.ReLU(), nn.Flatten(), nn.Linear(192, 10)).eval()
+    x = np.random.default_rng(0).random((5, 1, 16, 16)).astype(np.float32)
+    ops = fold(m)
+    assert [op.kind for op in ops] == ["conv", "maxpool", "dense"]
+    np.testing.assert_allclose(folded_forward(ops, x).numpy(), m(torch.from_numpy(x)).detach().numpy(), atol=1e-5)
+
+
+def test_calibration_is_deterministic_and_uses_positive_values():
+    idx = calibration_subset(1000, 7)
+    assert idx.tolist() == [0, 166, 333, 500, 666, 832, 999]      # 999*5/6 = 832.5 rounds half to even
+    v = np.array([0.0, 0.0, 0.0, 1.0, 2.0, 3.0, 4.0, -1.0])
+    assert range_statistic(v, "percentile", 50.0) == np.percentile([1.0, 2.0, 3.0, 4.0], 50.0) == 2.5
+    assert range_statistic(v, "max", 100.0) == 4.0
+    model = trained("mlp")
+    (xtr, _), _ = split()
+    r1 = activation_ranges(fold(model), xtr[:256], "percentile", 99.9)
+    r2 = activation_ranges(fold(model), xtr[:256], "percentile", 99.9)
+    assert r1 == r2 and r1[0] > 0
+    with torch.no_grad():
+        h = torch.relu(model[1](torch.from_numpy(xtr[:256]).flatten(1))).numpy()
+    assert r1[0] == pytest.approx(np.percentile(h[h > 0], 99.9), rel=1e-6)
+
+
+@pytest.mark.parametrize("k,pc", [(2, False), (2, True), (4, True), (8, False), (16, True)])
+def test_weights_are_symmetric_k_bit_and_biases_at_the_accumulator_scale(k, pc):
+    model = trained("conv_avg")
+    (xtr, _), _ = split()
+    net = convert(model, xtr[:64], weight_bits=k, payload_bits=4, coding="payload", per_channel=pc)
+    qm = 2 ** (k - 1) - 1                                   # symmetric signed range (common practice)
+    ops = [op for op in fold(model) if op.weight is not None]
+    for L, op in zip([L for L in net.layers if L.weight is not None], ops):
+        absmax = np.abs(L.weight).reshape(L.weight.shape[0], -1).max(1)
+        assert absmax.max() == qm and np.abs(L.weight).max() <= qm
+        if pc:
+            assert np.all(absmax == qm)                     # max-abs rule: every channel uses its full range
+        if k == 2:
+            assert set(np.unique(L.weight)) <= {-1, 0, 1}   # ternary
+        s_w, s_in = np.array(L.info["s_w"]), L.info["s_in"]
+        assert np.array_equal(L.bias, np.rint(op.bias / (s_w * s_in)).astype(np.int64))
+        m = np.array(L.info["multiplier"])
+        assert np.all(np.abs(L.m0 * 2.0 ** -L.shift - m) <= m * 2.0 ** -16 + 1e-300)
+
+
+def test_sumpool_divides_the_next_multiplier_and_widens_its_input():
+    net = convert(trained("conv_avg"), split()[0][0][:64], weight_bits=4, payload_bits=3, coding="payload")
+    kinds = [L.kind for L in net.layers]
+    assert kinds == ["conv", "sumpool", "conv", "sumpool", "dense", "dense"]
+    assert net.layers[2].q_in == 4 * 7 and net.layers[2].info["pool_divisor"] == 4
+    assert net.layers[4].q_in == 4 * 7 and net.layers[4].in_shape == (8 * 4 * 4,)
+    assert net.layers[2].acc_bits == arith.accumulator_bits(6 * 9, 7, 28, int(np.abs(net.layers[2].bias).max()))
+
+
+def test_high_precision_spike_network_agrees_with_the_float_model(tmp_path):
+    model = trained("conv_max")
+    (xtr, _), (xte, yte) = split()
+    net = convert(model, xtr[:512], weight_bits=12, payload_bits=8, coding="payload", calibration="max")
+    pred = simulate(net, arith.quantize_input(xte, 1)).decisions
+    with torch.no_grad():
+        fpred = model(torch.from_numpy(xte)).argmax(1).numpy()
+    assert (pred == fpred).mean() >= 0.995
+    net.save(tmp_path)
+    again = IntNetwork.load(tmp_path)
+    assert np.array_equal(simulate(again, arith.quantize_input(xte, 1)).decisions, pred)
+
+
+def test_payload_wider_than_8_bits_is_refused():
+    # a spike carries at most 8 payload bits, so k = p = 12 is refused (k = 12, p = 8 is tested above)
+    with pytest.raises(UsageError, match=r"'payload_bits' parameter of convert must be an int in \[1, 8\]"):
+        convert(trained("mlp"), X16, weight_bits=12, payload_bits=12, coding="ttfs")
+
+
+def test_clipquant_ranges_are_used_and_count_frames_clip_to_the_payload():
+    model = make_aware(trained("mlp", binary=False), 4, 3, False, act_max=[2.5])
+    assert isinstance(model[2], ClipQuant)
+    (xtr, _), (xte, yte) = split(binary=False)
+    net = convert(model, xtr[:64], weight_bits=4, payload_bits=2, coding="payload", input_q=3)
+    assert net.layers[0].info["range"] == 2.5 and net.layers[0].info["s_out"] == pytest.approx(2.5 / 3)
+    net1 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3)
+    assert net1.input_q == 1                                 # count frames clipped to what one bit carries
+    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    assert net2.payload_bits == 1 and net2.layers[0].q_out == 1
+    acc = (simulate(net, arith.quantize_input(xte, 3)).decisions == yte).mean()
+    assert acc >= accuracy(model, xte, yte) - 0.05
+
+
+def test_quantize_input_rounds_half_even_and_clips():
+    # round half to even like numpy (numpy documentation): 0.5 -> 0, 1.5 -> 2, 2.5 -> 2
+    x = np.array([-1.0, 0.4, 0.5, 1.5, 2.5, 7.0])
+    assert arith.quantize_input(x, 3).tolist() == [0, 0, 0, 2, 2, 3]
+    assert arith.quantize_input(torch.tensor(x), 3).tolist() == [0, 0, 0, 2, 2, 3]
+    with pytest.raises(ValueError, match="NaN"):
+        arith.quantize_input(np.array([np.nan]), 1)
