@@ -133,36 +133,47 @@ def format_csv(values, index_names: list[str]) -> str:
     return "\n".join(rows) + "\n"
 
 
+def parse_csv_rows(text: str, header: list[str], name: str = "CSV file") -> tuple[np.ndarray, np.ndarray]:
+    """Integer rows of a CSV with exactly this header: (int64 (K, len(header)), 1-based line of each row).
+
+    Blank lines are skipped; a non-integer cell or a wrong column count is a FormatError naming the line.
+    """
+    lines = text.split("\n")
+    if not lines or lines[0].strip() != ",".join(header):
+        raise FormatError(f"{name} line 1: header must be {','.join(header)!r}")
+    rows, where = [], []
+    for lineno, row in enumerate(lines[1:], start=2):
+        if not row.strip():
+            continue
+        try:
+            nums = [int(p) for p in row.split(",")]
+        except ValueError:
+            raise FormatError(f"{name} line {lineno}: {row!r} is not a row of integers") from None
+        if len(nums) != len(header):
+            raise FormatError(f"{name} line {lineno}: expected {len(header)} columns, got {len(nums)}")
+        rows.append(nums)
+        where.append(lineno)
+    return np.asarray(rows, dtype=np.int64).reshape(-1, len(header)), np.asarray(where, dtype=np.int64)
+
+
 def parse_csv_table(text: str, index_names: list[str], shape: tuple, name: str = "CSV table") -> tuple[np.ndarray, np.ndarray]:
     """Read a table written by `format_csv`; returns (values with `shape`, 1-based line of each element).
 
     Rows may come in any order but every index must appear exactly once.
     """
-    lines = text.split("\n")
-    want = ",".join(index_names + ["value"])
-    if not lines or lines[0].strip() != want:
-        raise FormatError(f"{name} line 1: header must be {want!r}")
+    rows, lines = parse_csv_rows(text, index_names + ["value"], name)
     n = int(np.prod(shape)) if shape else 1
     out = np.zeros(n, dtype=np.int64)
     where = np.zeros(n, dtype=np.int64)
-    for lineno, row in enumerate(lines[1:], start=2):
-        if not row.strip():
-            continue
-        parts = row.split(",")
-        try:
-            nums = [int(p) for p in parts]
-        except ValueError:
-            raise FormatError(f"{name} line {lineno}: {row!r} is not a row of integers") from None
-        if len(nums) != len(index_names) + 1:
-            raise FormatError(f"{name} line {lineno}: expected {len(index_names) + 1} columns, got {len(nums)}")
-        ix = nums[:-1]
+    for r, lineno in zip(rows.tolist(), lines.tolist()):
+        ix = r[:-1]
         if any(i < 0 or i >= s for i, s in zip(ix, shape)):
             raise FormatError(f"{name} line {lineno}: index {ix} is outside the shape {list(shape)}")
         k = int(np.ravel_multi_index(ix, shape)) if shape else 0
         if where[k]:
             raise FormatError(f"{name} line {lineno}: index {ix} was already given on line {where[k]}")
-        out[k], where[k] = nums[-1], lineno
+        out[k], where[k] = r[-1], lineno
     if not where.all():
         k = int(np.flatnonzero(where == 0)[0])
-        raise FormatError(f"{name}: index {list(np.unravel_index(k, shape))} is missing")
+        raise FormatError(f"{name}: index {[int(i) for i in np.unravel_index(k, shape)]} is missing")
     return out.reshape(shape), where.reshape(shape)

@@ -22,7 +22,6 @@ import io
 import numpy as np
 from tqdm import tqdm
 
-from snnconvert.errors import FormatError
 from snnconvert.export.manifest import layer_id
 from snnconvert.intnet import IntNetwork
 
@@ -126,26 +125,6 @@ def csv_files(net: IntNetwork, arrays: dict[str, np.ndarray]) -> dict[str, bytes
     out["vectors/summary.csv"] = _csv(SUMMARY_COLUMNS, np.column_stack(
         [np.arange(n), arrays["sample_index"], arrays["label"], arrays["decision"], arrays["early_decision"]]))
     return out
-
-
-def parse_csv_rows(text: str, header: list[str], name: str) -> tuple[np.ndarray, np.ndarray]:
-    """Integer rows of a vector CSV with the given header: (int64 (K, len(header)), 1-based line of each row)."""
-    lines = text.split("\n")
-    if not lines or lines[0].strip() != ",".join(header):
-        raise FormatError(f"{name} line 1: header must be {','.join(header)!r}")
-    rows, where = [], []
-    for lineno, row in enumerate(lines[1:], start=2):
-        if not row.strip():
-            continue
-        try:
-            nums = [int(p) for p in row.split(",")]
-        except ValueError:
-            raise FormatError(f"{name} line {lineno}: {row!r} is not a row of integers") from None
-        if len(nums) != len(header):
-            raise FormatError(f"{name} line {lineno}: expected {len(header)} columns, got {len(nums)}")
-        rows.append(nums)
-        where.append(lineno)
-    return np.asarray(rows, dtype=np.int64).reshape(-1, len(header)), np.asarray(where, dtype=np.int64)
 
 
 def first_difference(expected: np.ndarray, got: np.ndarray) -> int | None:

@@ -21,7 +21,7 @@ import numpy as np
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
-from snnconvert.export.memfile import parse_csv_table, parse_mem
+from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_mem
 from snnconvert.export.writer import MANIFEST
 from snnconvert.files import load_json, load_npz, resolve_inside, sha256_bytes
 
@@ -194,7 +194,7 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
     csv = bool(vec.get("csv_folder"))
     summary = None
     if csv:
-        summary, summary_lines = V.parse_csv_rows(ck.text("vectors/summary.csv"), V.SUMMARY_COLUMNS,
+        summary, summary_lines = parse_csv_rows(ck.text("vectors/summary.csv"), V.SUMMARY_COLUMNS,
                                                   str(ck.folder / "vectors/summary.csv"))
     traces = V.simulate(net, x.astype(np.int64), progress, desc="verify")
     for s, tr in enumerate(traces):
@@ -204,13 +204,13 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
             _compare_stream(ck, s, sid, shapes[sid], ev[ev[:, 0] == s, 1:], got[sid], vec["npz"], None)
             if csv:
                 rel = f"{V.sample_folder(s)}/{sid}.csv"
-                rows, lines = V.parse_csv_rows(ck.text(rel), V.EVENT_COLUMNS, str(ck.folder / rel))
+                rows, lines = parse_csv_rows(ck.text(rel), V.EVENT_COLUMNS, str(ck.folder / rel))
                 _compare_stream(ck, s, sid, shapes[sid], rows, got[sid], rel, lines)
         pot = np.asarray(tr.potentials, dtype=np.int64).reshape(-1)
         pot_sources = [(vec["npz"], np.asarray(z["potentials"][s], dtype=np.int64).reshape(-1), None)]
         if csv:
             rel = f"{V.sample_folder(s)}/potentials.csv"
-            rows, lines = V.parse_csv_rows(ck.text(rel), ["class", "potential"], str(ck.folder / rel))
+            rows, lines = parse_csv_rows(ck.text(rel), ["class", "potential"], str(ck.folder / rel))
             pot_sources.append((rel, rows[:, 1], lines))
         for file, exp, lines in pot_sources:
             k = V.first_difference(exp.reshape(-1, 1), pot.reshape(-1, 1))
