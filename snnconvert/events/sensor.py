@@ -22,8 +22,8 @@ Stimuli:
              ON events at onset, OFF events at offset.
     saccade  the image is on screen from t = 0 (pixels adapted to it) and moves along a closed
              regular polygon of saccade_segments straight sides of saccade_amplitude pixels, each in
-             saccade_segment_us, sampled saccade_steps times per side (bilinear sub-pixel shifts,
-             dark level outside the image). Events appear at the moving edges.
+             saccade_segment_us, sampled saccade_steps times per side (bilinear sub-pixel shifts;
+             border pixels repeat outward, so a uniform image stays uniform). Events appear at the moving edges.
 """
 
 from __future__ import annotations
@@ -178,7 +178,7 @@ def _simulate_chunk(images, stimulus, config, rng, c_on, c_off):
 
         def gen():
             for ti, dx, dy in zip(times, px, py):
-                moved = ndimage.shift(images, (0, dy, dx), order=1, mode="constant", cval=0.0, prefilter=False)
+                moved = ndimage.shift(images, (0, dy, dx), order=1, mode="nearest", prefilter=False)
                 yield int(ti), log_i(np.clip(moved, 0, 1))
         frames = gen()
 
