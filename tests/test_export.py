@@ -52,7 +52,7 @@ def exported(tmp_path_factory):
     net = small_net()
     x, y = small_inputs()
     out = tmp_path_factory.mktemp("exp") / "export"
-    export_network(net, out, x, y, vectors=6, progress=False)
+    export_network(net, out, x, y, vectors=6, intel_hex=True, progress=False)
     return net, x, y, out
 
 
@@ -123,6 +123,31 @@ def test_csv_table_round_trip_and_errors():
         MF.parse_csv_table(text.replace("0,0,1,-5", "0,0,0,-5"), ["o", "i", "k"], a.shape)
 
 
+@pytest.mark.parametrize("address,rtype,data,record", [
+    (0, 0x01, b"", ":00000001FF"),                 # end-of-file record (Intel HEX-86 specification)
+    (0, 0x04, b"\xff\xff", ":02000004FFFFFC"),     # extended linear address example (same source)
+    (0x0010, 0x00, b"\x3d", ":010010003DB2"),       # 01+00+10+00+3D = 0x4E; 0x100 - 0x4E = 0xB2
+])
+def test_intel_hex_records(address, rtype, data, record):
+    assert MF.hex_record(address, rtype, data) == record
+
+
+def test_intel_hex_round_trip_with_extended_addresses_and_errors():
+    rng = np.random.default_rng(0)
+    v = rng.integers(-(2 ** 11), 2 ** 11, 70000)          # 70,000 words of 12 bits: crosses the 64 Ki boundary
+    text = MF.format_intel_hex(v, 12, True)
+    recs = text.split("\n")
+    assert recs[0] == MF.hex_record(0, 0, int(v[0] & 0xFFF).to_bytes(2, "big"))
+    assert recs[65536] == ":020000040001F9" and recs[-2] == ":00000001FF"
+    back, lines = MF.parse_intel_hex(text, 12, True, v.size)
+    assert np.array_equal(back, v) and lines[65536] == 65538
+    bad = text.replace(recs[3], recs[3][:-2] + format((int(recs[3][-2:], 16) + 1) & 0xFF, "02X"))
+    with pytest.raises(FormatError, match="line 4: checksum mismatch"):
+        MF.parse_intel_hex(bad, 12, True, v.size)
+    with pytest.raises(FormatError, match="end-of-file record :00000001FF is missing"):
+        MF.parse_intel_hex(text.replace(":00000001FF", ""), 12, True, v.size)
+
+
 # ---------------------------------------------------------------- tables and manifest
 
 def test_tables_hold_the_network_exactly(exported):
@@ -141,6 +166,8 @@ def test_tables_hold_the_network_exactly(exported):
             assert np.array_equal(vals.reshape(spec["shape"]), want)
             words = [w for w in (out / spec["file"]).read_text().split("\n") if w and not w.startswith("//")]
             assert {len(w) for w in words} == {MF.hex_digits(spec["bits"])}
+            hv, _ = MF.parse_intel_hex((out / spec["intel_hex"]).read_text(), spec["bits"], spec["signed"], spec["depth"])
+            assert np.array_equal(hv.reshape(spec["shape"]), want)
         assert d["weight_bits"] == net.weight_bits == d["tables"]["weight"]["bits"]
         assert d["bias"] == L.bias.tolist() and d["m0"] == L.m0.tolist() and d["shift"] == L.shift.tolist()
         assert d["threshold"] == pytest.approx((2.0 ** L.shift / L.m0).tolist())
@@ -292,7 +319,7 @@ def test_export_validates_inputs(tmp_path, x, labels, vectors, match):
 
 
 def test_schema_defaults_carry_reasons():
-    assert SCHEMA["vectors"].default == 16 and SCHEMA["csv"].default is True
+    assert SCHEMA["vectors"].default == 16 and SCHEMA["csv"].default is True and SCHEMA["intel_hex"].default is False
     assert all(k.reason for k in SCHEMA.values())
 
 

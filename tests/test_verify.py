@@ -23,7 +23,7 @@ def pristine(tmp_path_factory):
     root = tmp_path_factory.mktemp("pristine")
     x, y = small_inputs()
     for coding in ("payload", "ttfs"):
-        export_network(small_net(coding), root / coding, x, y, vectors=5, progress=False)
+        export_network(small_net(coding), root / coding, x, y, vectors=5, intel_hex=coding == "payload", progress=False)
     return root
 
 
@@ -74,6 +74,19 @@ def test_corrupt_table_word_is_named_by_file_line_and_index(exp, capsys, word):
     out = capsys.readouterr().out
     assert out.startswith(f"verify: FAILED: table mismatch in L2_conv2_weights.mem line {line}: layer L2_conv2, "
                           f"word {word} {m.index}: expected {orig}, got {new} (")
+
+
+def test_corrupt_intel_hex_word_is_named(exp):
+    path = exp / "L3_fc_m0.hex"
+    recs = path.read_text().split("\n")
+    b = bytearray(bytes.fromhex(recs[1][1:]))          # word 1 of the fc multipliers
+    b[4] ^= 0x01
+    b[-1] = (-sum(b[:-1])) & 0xFF                      # keep the checksum valid: only the value is wrong
+    recs[1] = ":" + b.hex().upper()
+    path.write_text("\n".join(recs))
+    m = verify(exp, progress=False).first_mismatch
+    assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", "L3_fc_m0.mem", 6, "L3_fc", 1)
+    assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))
 
 
 def test_corrupt_vector_line_is_named_by_sample_layer_and_neuron(exp, capsys):
@@ -132,13 +145,14 @@ def test_consistent_weight_change_is_caught_by_resimulation(exp):
     w[0] = arith.weight_max(4)                                        # out channel 0: every tap +7
     z[spec["npz_key"]] = w
     np.savez(exp / "tables.npz", **z)
-    from snnconvert.export.memfile import format_csv, format_mem
+    from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
     (exp / spec["file"]).write_text(format_mem(w, 4, True, ["changed"]))
     (exp / spec["csv"]).write_text(format_csv(w, spec["index_names"]))
+    (exp / spec["intel_hex"]).write_text(format_intel_hex(w, 4, True))
     res = verify(exp, progress=False)
     m = res.first_mismatch
     assert (m.kind, m.layer) == ("event", "L0_conv1") and m.neuron < 36   # a neuron of channel 0
-    assert set(res.sha256_failures) == {spec["file"], spec["csv"], "tables.npz"}
+    assert set(res.sha256_failures) == {spec["file"], spec["csv"], spec["intel_hex"], "tables.npz"}
 
 
 def test_changed_bytes_with_equal_values_fail_on_sha256(exp, capsys):

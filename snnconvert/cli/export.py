@@ -15,6 +15,8 @@ def add_arguments(p) -> None:
                    help="test inputs instead of the recipe's data set: array x int (N, C, H, W), optional y")
     p.add_argument("--csv", action=argparse.BooleanOptionalAction, default=None,
                    help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
+    p.add_argument("--intel-hex", action=argparse.BooleanOptionalAction, default=None,
+                   help="also write each table as Intel HEX (default: recipe [export] intel_hex, off)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -27,7 +29,7 @@ def run(args) -> int:
 
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
-    man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv,
+    man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,
                                inputs=args.inputs, progress=not args.quiet)
     man = load_json(man_path)
     out = Path(args.out_dir)

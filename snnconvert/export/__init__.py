@@ -13,6 +13,7 @@ SCHEMA: dict[str, Key] = {
     "vectors": Key(16, "int", "16 samples exercise every class of a small test set yet keep the golden files small enough to diff by hand",
                    lo=0, hi=100000),
     "csv": Key(True, "bool", "CSV tables and per-layer vector files are what testbench scripts and spreadsheets read most easily"),
+    "intel_hex": Key(False, "bool", "off: $readmemh files serve every HDL simulator; Intel HEX only for tools that load ROMs from it"),
 }
 
 from snnconvert.export.fromrun import export_from_run  # noqa: E402

@@ -40,10 +40,11 @@ def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True) -> tuple[n
 
 
 def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int | None = None,
-                    csv: bool | None = None, inputs=None, progress: bool = True) -> Path:
+                    csv: bool | None = None, intel_hex: bool | None = None, inputs=None,
+                    progress: bool = True) -> Path:
     """Export the network in `net_dir` to `out_dir`; returns the manifest path.
 
-    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv: default from the
+    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv/intel_hex: default from the
     recipe's [export] section. inputs: an NPZ path to use instead of the data set's test split.
     """
     from snnconvert import recipe as recipe_mod
@@ -59,10 +60,12 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     section = (recipe or {}).get("export", {})
     vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
     csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
+    intel_hex = section.get("intel_hex", SCHEMA["intel_hex"].default) if intel_hex is None else intel_hex
     if inputs is not None:
         x, y = load_inputs(inputs)
     elif recipe is None:
         raise UsageError(f"{net_dir / 'recipe.toml'} is missing, so the test data is unknown; give --inputs FILE.npz")
     else:
         x, y = test_inputs(net, recipe, progress)
-    return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, progress=progress)
+    return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
+                          progress=progress)

@@ -75,6 +75,8 @@ LAYER_FIELDS = {
 TABLE_FIELDS = {
     "file": "Verilog memory file for $readmemh: one word per line, hex_digits digits, two's complement if signed",
     "csv": "the same values as CSV, the indices as columns then value (null when CSV output is off)",
+    "intel_hex": "the same words as Intel HEX (one data record per word, record address = word address, type 04 records "
+                 "for address bits 31..16, ceil(bits/8) bytes most significant first); null when not written",
     "npz_key": "key of the same array in tables.npz",
     "shape": "array shape; word address k is the row-major (last index fastest) position",
     "layout": "index order written out, e.g. [out_channel][in_channel][ky][kx]",

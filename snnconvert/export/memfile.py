@@ -177,3 +177,73 @@ def parse_csv_table(text: str, index_names: list[str], shape: tuple, name: str =
         k = int(np.flatnonzero(where == 0)[0])
         raise FormatError(f"{name}: index {[int(i) for i in np.unravel_index(k, shape)]} is missing")
     return out.reshape(shape), where.reshape(shape)
+
+
+# ---------------------------------------------------------------- Intel HEX (optional output)
+# Convention of these files: one data record per word; the record address is the word address
+# (an extended linear address record, type 04, carries address bits 31..16 when they change);
+# the word is ceil(bits/8) bytes, most significant byte first, two's complement when signed.
+
+def hex_record(address: int, rtype: int, data: bytes) -> str:
+    """:LLAAAATT<data>CC with CC = two's complement of the 8-bit sum of all other record bytes."""
+    body = bytes([len(data), (address >> 8) & 0xFF, address & 0xFF, rtype]) + data
+    return ":" + (body + bytes([(-sum(body)) & 0xFF])).hex().upper()
+
+
+def format_intel_hex(values, bits: int, signed: bool) -> str:
+    if not fits(values, bits, signed):
+        raise ValueError(f"values do not fit {bits}-bit {'signed' if signed else 'unsigned'} words")
+    nbytes = -(-int(bits) // 8)
+    out, upper = [], 0
+    for addr, w in enumerate(to_words(values, bits).tolist()):
+        if addr >> 16 != upper:
+            upper = addr >> 16
+            out.append(hex_record(0, 0x04, upper.to_bytes(2, "big")))
+        out.append(hex_record(addr & 0xFFFF, 0x00, int(w).to_bytes(nbytes, "big")))
+    out.append(hex_record(0, 0x01, b""))        # end of file: :00000001FF
+    return "\n".join(out) + "\n"
+
+
+def parse_intel_hex(text: str, bits: int, signed: bool, depth: int, name: str = "Intel HEX file") -> tuple[np.ndarray, np.ndarray]:
+    """Read a file written by `format_intel_hex`: (values, 1-based line of each word). Checksums,
+    record lengths, the word size and the end record are checked (FormatError naming the line)."""
+    nbytes = -(-int(bits) // 8)
+    words = np.full(depth, -1, dtype=np.int64)
+    lines = np.zeros(depth, dtype=np.int64)
+    upper, ended = 0, False
+    for lineno, raw in enumerate(text.split("\n"), start=1):
+        rec = raw.strip()
+        if not rec:
+            continue
+        if ended:
+            raise FormatError(f"{name} line {lineno}: record after the end-of-file record")
+        try:
+            if not rec.startswith(":"):
+                raise ValueError
+            b = bytes.fromhex(rec[1:])
+        except ValueError:
+            raise FormatError(f"{name} line {lineno}: not an Intel HEX record") from None
+        if len(b) < 5 or len(b) != b[0] + 5:
+            raise FormatError(f"{name} line {lineno}: record length does not match its byte count")
+        if sum(b) & 0xFF:
+            raise FormatError(f"{name} line {lineno}: checksum mismatch")
+        rtype, addr, data = b[3], (b[1] << 8) | b[2], b[4:-1]
+        if rtype == 0x04 and len(data) == 2:
+            upper = int.from_bytes(data, "big")
+        elif rtype == 0x01:
+            ended = True
+        elif rtype == 0x00 and len(data) == nbytes:
+            k = (upper << 16) | addr
+            w = int.from_bytes(data, "big")
+            if k >= depth or w >> bits:
+                raise FormatError(f"{name} line {lineno}: word {data.hex()} at address {k} is outside "
+                                  f"the memory of {depth} words of {bits} bits")
+            words[k], lines[k] = w, lineno
+        else:
+            raise FormatError(f"{name} line {lineno}: unexpected record type {rtype:02X} with {len(data)} data bytes")
+    if not ended:
+        raise FormatError(f"{name}: the end-of-file record :00000001FF is missing")
+    missing = np.flatnonzero(lines == 0)
+    if missing.size:
+        raise FormatError(f"{name}: {missing.size} of {depth} words missing (first at address {missing[0]})")
+    return from_words(words, bits, signed), lines

@@ -2,8 +2,8 @@
 
 Checks, in this order (the first failure found is the one reported):
 1. every listed file exists and the manifest is readable (else FormatError/UsageError: exit 2);
-2. tables: the memory files are the source of truth; tables.npz, the CSV tables and the
-   manifest's bias/m0/shift lists must hold the same values, word for word;
+2. tables: the memory files are the source of truth; tables.npz, the CSV tables, the Intel HEX
+   files (when written) and the manifest's bias/m0/shift lists must hold the same values;
 3. vectors: the network rebuilt from manifest + memory files is re-simulated by the reference
    simulator on every golden input; every stream's events, the potentials and the decisions must
    equal vectors.npz and the CSV files exactly;
@@ -21,7 +21,7 @@ import numpy as np
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
-from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_mem
+from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_intel_hex, parse_mem
 from snnconvert.export.writer import MANIFEST
 from snnconvert.files import load_json, load_npz, resolve_inside, sha256_bytes
 
@@ -133,6 +133,10 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
             if spec.get("csv"):
                 cv, cl = parse_csv_table(ck.text(spec["csv"]), spec["index_names"], shape, name=str(ck.folder / spec["csv"]))
                 copies.append((spec["csv"], cv.reshape(-1), cl.reshape(-1)))
+            if spec.get("intel_hex"):
+                hv, hl = parse_intel_hex(ck.text(spec["intel_hex"]), int(spec["bits"]), bool(spec["signed"]),
+                                         int(spec["depth"]), name=str(ck.folder / spec["intel_hex"]))
+                copies.append((spec["intel_hex"], hv, hl))
             if kind in ("bias", "m0", "shift"):
                 copies.append((MANIFEST, np.asarray(d[kind], dtype=np.int64).reshape(-1), None))
             for file, other, other_lines in copies:

@@ -15,7 +15,7 @@ import numpy as np
 
 from snnconvert.errors import UsageError, check_bool, check_int
 from snnconvert.export import manifest as M
-from snnconvert.export.memfile import format_csv, format_mem
+from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.vectors import csv_files, golden_vectors, pick_samples
 from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, resolve_inside, sha256_bytes
 from snnconvert.intnet import IntNetwork
@@ -68,16 +68,19 @@ def _check_inputs(net, x_int, labels, vectors):
 
 
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
-                   recipe: dict | None = None, csv: bool = True, progress: bool = True) -> Path:
+                   recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
+                   progress: bool = True) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
     classes when `labels` are given) become golden vectors. vectors = 0 writes tables only.
+    csv: also CSV tables and vector files; intel_hex: also an Intel HEX file per table.
     An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
     a non-empty folder that holds no export is refused.
     """
     x, labels, vectors = _check_inputs(net, x_int, labels, vectors)
     csv = check_bool(csv, "csv", "export")
+    intel_hex = check_bool(intel_hex, "intel_hex", "export")
     out = Path(out_dir)
     old_files = _previous_export_files(out)
 
@@ -88,7 +91,8 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
         specs[i] = {}
         for kind, (spec, a) in tables.items():
             stem = f"{lid}_{TABLE_SUFFIX[kind]}"
-            spec = dict(spec, file=f"{stem}.mem", csv=f"{stem}.csv" if csv else None, npz_key=f"{lid}.{kind}")
+            spec = dict(spec, file=f"{stem}.mem", csv=f"{stem}.csv" if csv else None,
+                        intel_hex=f"{stem}.hex" if intel_hex else None, npz_key=f"{lid}.{kind}")
             try:
                 files[spec["file"]] = format_mem(a, spec["bits"], spec["signed"],
                                                  mem_header(lid, net.layers[i].kind, kind, spec, spec["file"])).encode()
@@ -96,6 +100,8 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
                 raise ValueError(f"layer {lid}, table {kind}: {exc}") from None
             if csv:
                 files[spec["csv"]] = format_csv(a, spec["index_names"]).encode()
+            if intel_hex:
+                files[spec["intel_hex"]] = format_intel_hex(a, spec["bits"], spec["signed"]).encode()
             npz_tables[spec["npz_key"]] = a
             specs[i][kind] = spec
     files[TABLES_NPZ] = npz_bytes(npz_tables)
