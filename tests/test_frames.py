@@ -1,0 +1,110 @@
+"""Frames: binning and sum-pooling checked against numpy's histogram2d and torch's pooling."""
+
+import numpy as np
+import pytest
+import torch
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from snnconvert import frames as F
+from snnconvert.errors import UsageError
+from snnconvert.events import EventStream
+
+
+def rand_stream(n=500, w=32, h=32, seed=0, t_max=10_000):
+    rng = np.random.default_rng(seed)
+    return EventStream.from_arrays(np.sort(rng.integers(0, t_max, n)), rng.integers(0, w, n), rng.integers(0, h, n),
+                                   rng.choice([-1, 1], n), w, h)
+
+
+def test_full_resolution_counts_match_histogram2d():
+    s = rand_stream()
+    got = F.bin_window(s, 0, 10_000, "count", 32, 1, 255)[0]
+    ref, _, _ = np.histogram2d(s.y, s.x, bins=[np.arange(33), np.arange(33)])  # numpy's own binning
+    assert np.array_equal(got, np.minimum(ref, 255))
+
+
+@pytest.mark.parametrize("size", [16, 8, 4])
+def test_subsampling_is_sum_pooling(size):
+    # divisible case: equals torch's avg_pool2d times the pool area (a sum pool)
+    s = rand_stream(2000)
+    full = F.bin_window(s, 0, 10_000, "count", 32, 1, 255)
+    k = 32 // size
+    ref = torch.nn.functional.avg_pool2d(torch.tensor(full)[None], k)[0].numpy() * k * k
+    got = F.bin_window(s, 0, 10_000, "count", size, 1, 255)
+    assert np.array_equal(got, np.rint(ref))
+
+
+def test_uneven_subsampling_keeps_every_event():
+    # 34 -> 16: target pixels take 2 or 3 sensor pixels, none dropped or counted twice
+    s = rand_stream(3000, 34, 34)
+    got = F.bin_window(s, 0, 10_000, "count", 16, 1, 255)
+    assert got.sum() == len(s)
+    edges = np.arange(34) * 16 // 34
+    assert set(np.bincount(edges).tolist()) == {2, 3}
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), size=st.integers(1, 40), threshold=st.integers(1, 6),
+       n=st.integers(0, 400))
+def test_binary_frame_invariant(seed, size, threshold, n):
+    # binary mode: a pixel fires at most once per window, and only if its pooled count reaches the threshold
+    s = rand_stream(n, 30, 20, seed)
+    b = F.bin_window(s, 0, 10_000, "binary", size, threshold)
+    c = F.bin_window(s, 0, 10_000, "count", size, 1, 255)
+    assert b.shape == (1, size, size) and b.dtype == np.float32
+    assert set(np.unique(b).tolist()) <= {0.0, 1.0}
+    assert np.array_equal(b, (c >= threshold).astype(np.float32))
+    assert b.sum() <= n
+
+
+def test_polarity_channels_and_clip():
+    s = EventStream.from_arrays([0, 1, 2, 3, 4, 5], [0, 0, 0, 0, 1, 1], [0] * 6, [1, 1, 1, -1, -1, 1], 2, 1)
+    f = F.bin_window(s, 0, 10, "polarity", 2, 1, 2)
+    assert f.shape == (2, 2, 2)
+    assert f[0, 0].tolist() == [2, 1] and f[1, 0].tolist() == [1, 1]  # ON clipped at max_count=2
+    assert F.bin_window(s, 0, 3, "count", 2, 1, 9)[0, 0].tolist() == [3, 0]  # window is [t0, t1)
+
+
+def test_bin_windows_equals_single_windows():
+    s = rand_stream(1000)
+    wins = [(0, 2000), (2000, 5000), (7000, 10_000)]
+    many = F.bin_windows(s, wins, "count", 8, 1, 50)
+    for i, (a, b) in enumerate(wins):
+        assert np.array_equal(many[i], F.bin_window(s, a, b, "count", 8, 1, 50))
+    with pytest.raises(UsageError, match="non-overlapping"):
+        F.bin_windows(s, [(0, 3000), (2000, 4000)])
+
+
+def test_input_q_and_channels():
+    assert F.input_q("binary", 9) == 1 and F.input_q("count", 9) == 9
+    assert F.channels("polarity") == 2 and F.channels("binary") == 1
+
+
+@pytest.mark.parametrize("kw, match", [
+    (dict(mode="gray"), r"The 'mode' parameter of frames must be one of 'binary', 'count', 'polarity'"),
+    (dict(size=0), r"The 'size' parameter of frames must be an int in \[1, 1024\]. Got 0"),
+    (dict(threshold=0), r"The 'threshold' parameter of frames must be an int >= 1. Got 0"),
+])
+def test_validation(kw, match):
+    args = dict(mode="binary", size=8, threshold=1, max_count=4) | kw
+    with pytest.raises(UsageError, match=match):
+        F.bin_window(rand_stream(10), 0, 10, **args)
+
+
+def test_frame_window_falls_back_to_all_events():
+    s = EventStream.from_arrays([0] * 5, [0, 1, 2, 3, 4], [0] * 5, [1] * 5, 8, 8)  # one instant: no burst
+    (a, b), ok = F.frame_window(s, {})
+    assert not ok and (a, b) == (0, 1)
+
+
+def test_plots_write_png(tmp_path):
+    from snnconvert import windows as W
+    s = rand_stream(2000)
+    wins = W.bursts(s, relative=False, upper=10.0, lower=5.0)
+    fr = [F.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in wins]
+    p = F.plot_recording(s, wins, W.rate_trace(s), fr, tmp_path / "r.png", thresholds=(10.0, 5.0))
+    assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    X = np.random.default_rng(0).integers(0, 2, (20, 1, 8, 8)).astype(np.float32)
+    q = F.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))
+    assert q.read_bytes()[:4] == b"\x89PNG"
