@@ -189,6 +189,9 @@ def test_every_manifest_field_is_documented(exported):
     assert man["layers"][0]["address"] == "addr = c*36 + y*6 + x  (c < 3, y < 6, x < 6)"
     assert man["rounding"]["formula"] == arith.ROUNDING_FORMULA
     assert man["format"] == "snnconvert-export" and man["version"] == 1
+    from snnconvert.export.manifest import fields_markdown
+    md = fields_markdown()
+    assert all(f"| `{k}` |" in md for k in [*MANIFEST_FIELDS, *LAYER_FIELDS, *TABLE_FIELDS])
 
 
 def test_manifest_lists_every_file_with_its_sha256(exported):

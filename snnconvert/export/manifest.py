@@ -40,7 +40,7 @@ MANIFEST_FIELDS = {
     "event_columns": "columns of every event table: addr (flat neuron address), t (time step; 0 in payload coding), payload (value carried)",
     "layers": "the layers in execution order; each entry's fields are described in LAYER_FIELDS",
     "tables_npz": "NPZ holding every table (keys '<id>.weight', '<id>.bias', '<id>.m0', '<id>.shift'), same values as the memory files",
-    "vectors": "golden vectors: sample count, NPZ file, CSV folder and the NPZ keys",
+    "vectors": "golden vectors: sample count, NPZ file and its keys, columns of the NPZ event tables, CSV folder",
     "files": "sha256 of every other file in the folder, keyed by path relative to the folder",
 }
 
@@ -96,6 +96,17 @@ _CODING_WORDS = {
             "V = B + sum W * (Q_in - t) = B + sum W * a; the neuron then fires at the first step where "
             "the falling threshold of rounding.ttfs_formula is crossed",
 }
+
+
+def fields_markdown() -> str:
+    """The three field tables as markdown, for the README."""
+    parts = []
+    for title, fields in (("manifest.json", MANIFEST_FIELDS), ("each entry of `layers`", LAYER_FIELDS),
+                          ("each entry of a layer's `tables`", TABLE_FIELDS)):
+        parts.append(f"Fields of {title}:\n\n| field | meaning |\n|---|---|")
+        parts += [f"| `{k}` | {v.replace('|', '/')} |" for k, v in fields.items()]
+        parts.append("")
+    return "\n".join(parts)
 
 
 def layer_id(index: int, name: str) -> str:

@@ -16,7 +16,7 @@ import numpy as np
 from snnconvert.errors import UsageError, check_bool, check_int
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
-from snnconvert.export.vectors import csv_files, golden_vectors, pick_samples
+from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
 from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, resolve_inside, sha256_bytes
 from snnconvert.intnet import IntNetwork
 
@@ -111,7 +111,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     if idx.size:
         arrays = golden_vectors(net, x[idx], idx, None if labels is None else labels[idx], progress=progress)
         files[VECTORS_NPZ] = npz_bytes(arrays)
-        vec_info.update(npz=VECTORS_NPZ, npz_keys=sorted(arrays))
+        vec_info.update(npz=VECTORS_NPZ, npz_keys=sorted(arrays), npz_event_columns=["sample"] + EVENT_COLUMNS)
         if csv:
             files.update(csv_files(net, arrays))
             vec_info.update(csv_folder="vectors", sample_folder="vectors/sample_NNNN (NNNN = sample, 4 digits)")
