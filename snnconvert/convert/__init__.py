@@ -146,7 +146,7 @@ def convert_checkpoint(train_dir, settings: dict, quiet: bool = False):
     from snnconvert.data import load_dataset
     from snnconvert.train import load_checkpoint
     model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
-    dataset = load_dataset(ckpt["recipe"])
+    dataset = load_dataset(ckpt["recipe"], progress=not quiet)
     net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet)
     net.meta.update(recipe=ckpt["recipe"], train_fingerprint=ckpt.get("data_fingerprint"))
     return net, metrics

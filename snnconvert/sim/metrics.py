@@ -72,9 +72,11 @@ def latency(net: IntNetwork, res) -> dict:
             "samples_without_output_spike": int((~fired).sum())}
 
 
-def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 0.5, quiet: bool = False,
-            classes=None) -> dict:
-    """All metrics of one conversion on a labelled test set (X float frames (N, C, H, W), y (N,))."""
+def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 0.5, quiet: bool = False) -> dict:
+    """All metrics of one conversion on a labelled test set (X float frames (N, C, H, W), y (N,)).
+
+    `float_model` may be None (frame metrics are then left out). Prints the table unless quiet.
+    """
     X = np.asarray(X_test, dtype=np.float32)
     y = np.asarray(y_test, dtype=np.int64)
     if len(X) == 0 or len(X) != len(y):

@@ -1,0 +1,69 @@
+"""`snnconvert convert TRAIN_DIR`: trained frame model -> single-spike integer network + metrics."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+HELP = "convert a trained frame model into a single-spike integer network and measure the cost"
+
+
+def add_arguments(p) -> None:
+    p.add_argument("train_dir", metavar="TRAIN_DIR", help="folder written by `snnconvert train` (holds model.pt)")
+    p.add_argument("--weight-bits", type=int, metavar="K", help="weight bits, 2..16 (default: the recipe's)")
+    p.add_argument("--payload-bits", type=int, metavar="P", help="payload bits, 1..8 (default: the recipe's)")
+    p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's)")
+    p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
+    p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
+    p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")
+    p.add_argument("--overflow", metavar="MODE", help="saturate | wrap, with a declared accumulator width")
+    p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding": "coding", "per_channel": "per_channel",
+         "calibration": "calibration", "accumulator_bits": "accumulator_bits", "overflow": "overflow"}
+
+
+def run(args) -> int:
+    from snnconvert.convert import convert_checkpoint, settings_from
+    from snnconvert.errors import UsageError
+    from snnconvert.sim.metrics import format_table
+
+    train_dir = Path(args.train_dir)
+    if not (train_dir / "model.pt").is_file():
+        raise UsageError(f"{train_dir / 'model.pt'}: file not found (TRAIN_DIR must be a folder written by "
+                         f"`snnconvert train`)")
+    ckpt_recipe = _checkpoint_recipe(train_dir)
+    settings = dict(ckpt_recipe.get("convert", {}))
+    for flag, key in FLAGS.items():
+        v = getattr(args, flag)
+        if v is not None:
+            settings[key] = v
+    settings = settings_from(settings)
+    out = Path(args.out) if args.out else train_dir.resolve().parent / "net"
+    net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
+    if args.quiet:   # otherwise measure() has printed it already
+        print(format_table(metrics))
+    write_outputs(net, metrics, {**ckpt_recipe, "convert": settings}, out)
+    print(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
+    return 0
+
+
+def _checkpoint_recipe(train_dir: Path) -> dict:
+    from snnconvert.train import load_checkpoint
+    _, ckpt = load_checkpoint(train_dir / "model.pt")
+    return dict(ckpt["recipe"])
+
+
+def write_outputs(net, metrics: dict, recipe: dict, out: Path) -> None:
+    """network.json/.npz, metrics.json, recipe.toml and confusion.png of one conversion, each atomic."""
+    from snnconvert import files
+    from snnconvert import recipe as recipe_mod
+    from snnconvert.train import plot_confusion
+    net.save(out)
+    files.atomic_write_json(out / "metrics.json", metrics)
+    recipe_mod.save(recipe, out)
+    classes = net.meta.get("classes") or [str(i) for i in range(net.n_classes)]
+    plot_confusion(metrics["confusion"], classes, out / "confusion.png",
+                   title=f"spike model ({net.coding}, k={net.weight_bits}, p={net.payload_bits}): "
+                         f"{100 * metrics['spike_accuracy']:.2f}%")

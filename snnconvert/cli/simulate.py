@@ -1,0 +1,77 @@
+"""`snnconvert simulate NET_DIR`: re-run a converted network on data and print its metrics."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+HELP = "re-run the simulation of a converted network (optionally event by event) and print its metrics"
+
+
+def add_arguments(p) -> None:
+    p.add_argument("net_dir", metavar="NET_DIR", help="folder written by `snnconvert convert` (network.json)")
+    p.add_argument("--data", metavar="SOURCE",
+                   help="TRAIN_DIR (its test split and frame model) or a frames NPZ with arrays X (N, C, H, W) "
+                        "and y (N,); default: the test split of the recipe stored in the network")
+    p.add_argument("--reference", action="store_true",
+                   help="also run the event-by-event reference simulator and check it agrees exactly")
+    p.add_argument("--limit", type=int, metavar="N", help="use only the first N samples")
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def _load_data(net, source, progress: bool):
+    """(float model or None, X, y) from a TRAIN_DIR, a frames NPZ, or the network's own recipe."""
+    from snnconvert import files
+    from snnconvert.data import load_dataset
+    from snnconvert.errors import FormatError, UsageError
+    if source is None:
+        if "recipe" not in net.meta:
+            raise UsageError("the network stores no recipe; give --data TRAIN_DIR or --data FRAMES.npz")
+        return None, *load_dataset(net.meta["recipe"], progress=progress).test
+    path = Path(source)
+    if path.is_dir():
+        from snnconvert.train import load_checkpoint
+        model, ckpt = load_checkpoint(path / "model.pt")
+        return model, *load_dataset(ckpt["recipe"], progress=progress).test
+    if path.suffix != ".npz":
+        raise UsageError(f"--data {source}: expected a TRAIN_DIR folder or a .npz frames file")
+    z = files.load_npz(path)
+    for k in ("X", "y"):
+        if k not in z:
+            raise FormatError(f"{path}: no array '{k}' (a frames NPZ holds X (N, C, H, W) and y (N,))")
+    X, y = z["X"], z["y"]
+    if X.ndim != 4 or tuple(X.shape[1:]) != tuple(net.input_shape) or len(y) != len(X):
+        raise FormatError(f"{path}: X has shape {X.shape} and y {y.shape}; the network needs "
+                          f"X (N, {', '.join(map(str, net.input_shape))}) and one label per frame")
+    return None, X.astype(np.float32), y.astype(np.int64)
+
+
+def run(args) -> int:
+    from snnconvert import arith
+    from snnconvert.errors import UsageError, check_int
+    from snnconvert.intnet import IntNetwork
+    from snnconvert.sim import reference as R
+    from snnconvert.sim import simulate
+    from snnconvert.sim.metrics import format_table, measure
+
+    if not (Path(args.net_dir) / "network.json").is_file():
+        raise UsageError(f"{Path(args.net_dir) / 'network.json'}: file not found (NET_DIR must be a folder written "
+                         f"by `snnconvert convert`)")
+    n = check_int(args.limit, "limit", "simulate", 1) if args.limit is not None else None
+    net = IntNetwork.load(args.net_dir)
+    model, X, y = _load_data(net, args.data, not args.quiet)
+    X, y = X[:n], y[:n]
+    m = measure(model, net, X, y, quiet=True)
+    print(format_table(m))
+    if args.reference:
+        x_int = arith.quantize_input(X, net.input_q)
+        vec = simulate(net, x_int, record=False)
+        traces = R.run_batch(net, x_int, progress=not args.quiet)
+        for i, tr in enumerate(traces):
+            if not np.array_equal(tr.potentials, vec.potentials[i]) or tr.decision != vec.decisions[i]:
+                print(f"reference and vectorized simulators differ on sample {i}")
+                return 1
+        print(f"reference simulator agrees with the vectorized one on {len(traces)} samples "
+              f"({sum(t.sops for t in traces) / len(traces):.0f} SOPs per sample)")
+    return 0

@@ -1,0 +1,98 @@
+"""`snnconvert convert` and `snnconvert simulate`: files written, exit codes, exact error lines."""
+
+import json
+import tomllib
+
+import numpy as np
+import pytest
+import torch
+
+from snnconvert import recipe, train
+from snnconvert.cli import main
+from snnconvert.intnet import IntNetwork
+
+torch.set_num_threads(1)   # small models; a second thread only spins on a shared 2-core machine
+
+TINY = {"name": "tiny", "data": {"limit": 300}, "train": {"epochs": 2, "threads": 1},
+        "model": {"layers": [{"type": "conv", "out": 4, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
+                             {"type": "maxpool", "size": 2, "stride": 2}, {"type": "dense"}]}}
+
+
+@pytest.fixture(scope="module")
+def run_dir(tmp_path_factory):
+    from snnconvert import data
+    root = tmp_path_factory.mktemp("run")
+    r = recipe.from_dict(TINY)
+    train.train(r, data.load_dataset(r, progress=False), root / "train", quiet=True)
+    return root
+
+
+def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
+    code = main(["convert", str(run_dir / "train"), "--weight-bits", "3", "--payload-bits", "2", "--coding", "ttfs",
+                 "--per-channel", "--calibration", "max", "--quiet"])
+    out = capsys.readouterr().out
+    assert code == 0
+    net_dir = run_dir / "net"
+    assert out.splitlines()[-1] == f"wrote {net_dir}/network.json, network.npz, metrics.json, recipe.toml, confusion.png"
+    assert "spike_accuracy" in out and "energy (estimate)" in out
+    net = IntNetwork.load(net_dir)
+    assert (net.coding, net.weight_bits, net.payload_bits, net.per_channel) == ("ttfs", 3, 2, True)
+    m = json.loads((net_dir / "metrics.json").read_text())
+    assert m["max_spikes_per_neuron"] == 1 and m["energy_is_estimate"] is True and m["coding"] == "ttfs"
+    conv = tomllib.loads((net_dir / "recipe.toml").read_text())["convert"]
+    assert conv["weight_bits"] == 3 and conv["calibration"] == "max" and conv["per_channel"] is True
+    assert (net_dir / "confusion.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"   # PNG signature (PNG spec)
+
+
+def test_simulate_reruns_and_checks_the_reference(run_dir, capsys):
+    assert main(["convert", str(run_dir / "train"), "--out", str(run_dir / "net2"), "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["simulate", str(run_dir / "net2"), "--data", str(run_dir / "train"), "--reference", "--limit", "25",
+                 "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "frame_accuracy" in out
+    assert out.splitlines()[-1].startswith("reference simulator agrees with the vectorized one on 25 samples")
+
+
+def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
+    assert main(["convert", str(run_dir / "train"), "--out", str(run_dir / "net3"), "--quiet"]) == 0
+    net = IntNetwork.load(run_dir / "net3")
+    rng = np.random.default_rng(0)
+    X = (rng.random((12,) + tuple(net.input_shape)) < 0.3).astype(np.float32)
+    np.savez(tmp_path / "f.npz", X=X, y=rng.integers(0, 10, 12))
+    capsys.readouterr()
+    assert main(["simulate", str(run_dir / "net3"), "--data", str(tmp_path / "f.npz")]) == 0
+    assert "spike_accuracy" in capsys.readouterr().out
+    np.savez(tmp_path / "bad.npz", X=X)
+    assert main(["simulate", str(run_dir / "net3"), "--data", str(tmp_path / "bad.npz")]) == 2
+    assert capsys.readouterr().err == (f"error: {tmp_path / 'bad.npz'}: no array 'y' (a frames NPZ holds "
+                                       f"X (N, C, H, W) and y (N,))\n")
+
+
+@pytest.mark.parametrize("argv,err", [
+    (["--payload-bits", "0"], "error: The 'payload_bits' parameter of convert must be an int in [1, 8]. Got 0 instead."),
+    (["--weight-bits", "1"], "error: The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 1 instead."),
+    (["--coding", "rate"],
+     "error: The 'coding' parameter of convert must be one of 'payload', 'ttfs', 'binary'. Got 'rate' instead."),
+    (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max' or 'percentile:Q' "
+                                  "with Q in (0, 100]. Got 'pct:99' instead."),
+])
+def test_convert_usage_errors(run_dir, argv, err, capsys):
+    assert main(["convert", str(run_dir / "train"), "--out", str(run_dir / "never"), *argv]) == 2
+    assert capsys.readouterr().err == err + "\n"
+    assert not (run_dir / "never").exists()
+
+
+def test_missing_folders_and_bad_versions(run_dir, tmp_path, capsys):
+    assert main(["convert", str(tmp_path / "nope")]) == 2
+    assert capsys.readouterr().err == (f"error: {tmp_path / 'nope' / 'model.pt'}: file not found (TRAIN_DIR must be "
+                                       f"a folder written by `snnconvert train`)\n")
+    assert main(["convert", str(run_dir / "train"), "--out", str(tmp_path / "n"), "--quiet"]) == 0
+    meta = json.loads((tmp_path / "n" / "network.json").read_text())
+    meta["version"] = 99
+    (tmp_path / "n" / "network.json").write_text(json.dumps(meta))
+    capsys.readouterr()
+    assert main(["simulate", str(tmp_path / "n")]) == 2
+    assert "format version 99 is not supported" in capsys.readouterr().err
+    assert main(["simulate", str(run_dir / "net"), "--limit", "0"]) == 2
+    assert capsys.readouterr().err == "error: The 'limit' parameter of simulate must be an int >= 1. Got 0 instead.\n"
