@@ -76,6 +76,17 @@ def test_corrupt_table_word_is_named_by_file_line_and_index(exp, capsys, word):
                           f"word {word} {m.index}: expected {orig}, got {new} (")
 
 
+def test_corrupt_csv_table_row_is_named(exp):
+    path = exp / "L0_conv1_bias.csv"
+    lines = path.read_text().split("\n")
+    o, v = map(int, lines[2].split(","))                # bias of out channel 1 (line 3)
+    lines[2] = f"{o},{v + 1}"
+    path.write_text("\n".join(lines))
+    m = verify(exp, progress=False).first_mismatch
+    assert (m.kind, m.file, m.line, m.layer, m.neuron, m.index) == ("table", "L0_conv1_bias.csv", 3, "L0_conv1", 1, [1])
+    assert (m.expected, m.got) == (v, v + 1)
+
+
 def test_corrupt_intel_hex_word_is_named(exp):
     path = exp / "L3_fc_m0.hex"
     recs = path.read_text().split("\n")
@@ -85,8 +96,8 @@ def test_corrupt_intel_hex_word_is_named(exp):
     recs[1] = ":" + b.hex().upper()
     path.write_text("\n".join(recs))
     m = verify(exp, progress=False).first_mismatch
-    assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", "L3_fc_m0.mem", 6, "L3_fc", 1)
-    assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))
+    assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", "L3_fc_m0.hex", 2, "L3_fc", 1)
+    assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))    # the flipped bit of the first data byte
 
 
 def test_corrupt_vector_line_is_named_by_sample_layer_and_neuron(exp, capsys):

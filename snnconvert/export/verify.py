@@ -2,8 +2,9 @@
 
 Checks, in this order (the first failure found is the one reported):
 1. every listed file exists and the manifest is readable (else FormatError/UsageError: exit 2);
-2. tables: the memory files are the source of truth; tables.npz, the CSV tables, the Intel HEX
-   files (when written) and the manifest's bias/m0/shift lists must hold the same values;
+2. tables: the memory files, tables.npz, the CSV tables, the Intel HEX files (when written) and
+   the manifest's bias/m0/shift lists must hold the same values, word for word; the network is
+   rebuilt from the memory files;
 3. vectors: the network rebuilt from manifest + memory files is re-simulated by the reference
    simulator on every golden input; every stream's events, the potentials and the decisions must
    equal vectors.npz and the CSV files exactly;
@@ -112,8 +113,28 @@ def _table_index(spec, k):
     return [int(i) for i in np.unravel_index(k, spec["shape"])] if spec["shape"] else []
 
 
+def _compare_copies(ck: _Checker, lid: str, spec: dict, copies: list) -> None:
+    """Every copy of a table must hold the same words. Where they differ, the value most copies
+    agree on is taken as right (ties: the memory file, listed first), and the first copy that
+    departs from it is the place named: a corrupt word is found in whichever file holds it."""
+    for file, other, _ in copies[1:]:
+        if other.shape != copies[0][1].shape:
+            raise FormatError(f"{ck.folder / file}: {spec['npz_key']} has {other.size} values, "
+                              f"the memory file {copies[0][1].size}")
+    stack = np.stack([c[1] for c in copies])                                       # (copies, words)
+    bad = np.flatnonzero(np.any(stack != stack[0], axis=0))
+    for k in bad.tolist():
+        col = stack[:, k].tolist()
+        right = max(col, key=lambda v: (col.count(v), v == col[0]))
+        for file, other, lines in copies:
+            if other[k] != right:
+                ck.fail(Mismatch("table", file, int(lines[k]) if lines is not None else None, layer=lid, neuron=k,
+                                 index=_table_index(spec, k), expected=int(right), got=int(other[k])))
+
+
 def _check_tables(ck: _Checker, man: dict) -> dict:
-    """Parse every memory file (the truth) and compare the other copies; returns {layer id: {kind: array}}."""
+    """Parse every memory file and compare the other copies of its table; returns {layer id: {kind: array}}
+    read from the memory files, which are what the network is rebuilt from."""
     npz = load_npz(resolve_inside(ck.folder, man["tables_npz"], "file"))
     arrays = {}
     for d in man["layers"]:
@@ -126,7 +147,7 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
                 raise FormatError(f"{ck.folder / name}: depth {vals.size} does not match shape {list(shape)}")
             arrays.setdefault(d["id"], {})[kind] = vals.reshape(shape)
             ck.words += vals.size
-            copies = []
+            copies = [(name, vals, lines)]
             if spec["npz_key"] not in npz:
                 raise FormatError(f"{ck.folder / man['tables_npz']}: array {spec['npz_key']!r} is missing")
             copies.append((man["tables_npz"], np.asarray(npz[spec["npz_key"]]).reshape(-1), None))
@@ -139,16 +160,7 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
                 copies.append((spec["intel_hex"], hv, hl))
             if kind in ("bias", "m0", "shift"):
                 copies.append((MANIFEST, np.asarray(d[kind], dtype=np.int64).reshape(-1), None))
-            for file, other, other_lines in copies:
-                if other.shape != vals.shape:
-                    raise FormatError(f"{ck.folder / file}: {spec['npz_key']} has {other.size} values, the memory file {vals.size}")
-                bad = np.flatnonzero(other != vals)
-                if bad.size:
-                    k = int(bad[0])
-                    # the memory file is the truth; the other copy says what it should have held
-                    ck.fail(Mismatch("table", name, int(lines[k]), layer=d["id"], neuron=k,
-                                     index=_table_index(spec, k), expected=int(other[k]), got=int(vals[k])))
-                    ck.count += bad.size - 1
+            _compare_copies(ck, d["id"], spec, copies)
     return arrays
 
 
