@@ -29,7 +29,12 @@ from snnconvert.files import load_json, load_npz, resolve_inside, sha256_bytes
 
 @dataclass
 class Mismatch:
-    """One disagreement. `expected` is what the export's file says, `got` what the check recomputed."""
+    """One disagreement, located in `file` (and `line`).
+
+    events, potentials, decisions: `expected` is the golden file's value, `got` the re-simulation's.
+    table: `expected` is the value the other copies of the table agree on, `got` what `file` holds.
+    sha256: `expected` is the manifest's digest, `got` the file's.
+    """
     kind: str                      # table | event | potential | decision | early_decision | sha256
     file: str                      # file (relative to the folder) holding the wrong or disagreeing value
     line: int | None = None        # 1-based line in `file`, when it is a text file
