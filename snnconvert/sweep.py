@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import csv
+import dataclasses
 import io
 import json
 import os
@@ -213,18 +214,22 @@ def net_fingerprint(net) -> str:
     return files.fingerprint(items)
 
 
-def _call(fn: Callable, model, dataset, recipe: dict, act_max, point: dict) -> tuple[dict, dict, float]:
-    """Run one point single-threaded: the same arithmetic order in a worker and in this process."""
+def _call(fn: Callable, model, dataset, recipe: dict, act_max, point: dict) -> tuple[dict, dict, dict]:
+    """Run one point single-threaded: the same arithmetic order in a worker and in this process.
+
+    Returns (point, metrics, timing) with wall and CPU seconds of this process for the point.
+    """
     import torch
     threads = torch.get_num_threads()
     torch.set_num_threads(1)
     torch.manual_seed(int(recipe.get("seed", 0)))
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     try:
         metrics = fn(model, dataset, recipe, act_max, point)
     finally:
         torch.set_num_threads(threads)
-    return point, metrics, time.perf_counter() - t0
+    return point, metrics, {"seconds": round(time.perf_counter() - t0, 3),
+                            "cpu_seconds": round(time.process_time() - c0, 3)}
 
 
 # --- the results log -----------------------------------------------------------------------
@@ -297,10 +302,10 @@ def run_points(points: list[dict], fn: Callable, model, dataset, recipe: dict, a
             delayed(_call)(fn, model, dataset, recipe, act_max, p) for p in pending)
     bar = tqdm(results, total=len(pending), desc="sweep", unit="point", disable=not progress or not pending,
                file=None)
-    for point, metrics, seconds in bar:
+    for point, metrics, timing in bar:
         rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
                "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,
-               "fingerprints": log.fingerprints, "seconds": round(seconds, 3)}
+               "fingerprints": log.fingerprints, **timing}
         log.append(rec)
         done[point["key"]] = rec
         bar.set_postfix_str(point["key"])
@@ -574,6 +579,15 @@ def _fingerprints(model, dataset, recipe: dict) -> dict:
             "settings": files.fingerprint(settings, recipe.get("seed"))}
 
 
+def _lean(dataset):
+    """The dataset without its raw recordings: workers need the frames only, and every task
+    ships its arguments to a worker process."""
+    if dataclasses.is_dataclass(dataset):
+        drop = {f.name: None for f in dataclasses.fields(dataset) if f.name in ("recordings", "windows")}
+        return dataclasses.replace(dataset, **drop) if drop else dataset
+    return dataset
+
+
 def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, per_channel: bool = False,
               aware: bool = False, aware_epochs: int = 2, jobs=None, out_dir=None, tolerance_pp: float = 0.5,
               progress: bool = True, recipe: dict | None = None, point_fn: Callable | None = None,
@@ -590,7 +604,7 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
         from snnconvert import data, train
         model, ckpt = train.load_checkpoint(train_dir)
         recipe = copy.deepcopy(recipe if recipe is not None else ckpt["recipe"])
-        dataset = data.load_dataset(recipe)
+        dataset = data.load_dataset(recipe, progress=progress)
     else:
         model, ckpt, dataset = context
         recipe = copy.deepcopy(recipe if recipe is not None else ckpt["recipe"])
@@ -605,7 +619,7 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
     out = Path(out_dir) if out_dir is not None else base.parent / "sweep"
     fps = _fingerprints(model, dataset, recipe)
     log = ResultsLog(out / "results.jsonl", fps)
-    records, computed = run_points(points, point_fn or evaluate_point, model, dataset, recipe,
+    records, computed = run_points(points, point_fn or evaluate_point, model, _lean(dataset), recipe,
                                    ckpt.get("act_max"), log, jobs, progress)
     frame = reference_accuracy(records, model, dataset)
     result = SweepResult(out, records, frame, tol, recommend(records, frame, tol), computed,

@@ -48,7 +48,7 @@ def run(args) -> int:
         return section[key] if value is None else value
 
     codings = ",".join(args.coding) if args.coding else section["codings"]
-    context = (model, ckpt, data.load_dataset(recipe))
+    context = (model, ckpt, data.load_dataset(recipe, progress=not args.quiet))
     result = sweep.run_sweep(
         path, pick(args.weight_bits, "weight_bits"), pick(args.payload_bits, "payload_bits"), codings,
         per_channel=pick(args.per_channel, "per_channel"), aware=pick(args.aware, "aware"),
