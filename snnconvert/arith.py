@@ -254,3 +254,30 @@ def quantize_input(x, q: int):
     if np.isnan(x).any():
         raise ValueError("frames contain NaN")
     return np.clip(round_half_even(x), 0, int(q))
+
+
+def requantize_float(v, m0, n, q: int, channel_axis: int = 1):
+    """a = clamp(floor((V * M0 + 2^(n-1)) * 2^-n), 0, Q) on float64 tensors holding integers.
+
+    The same integers as `requantize` while |V| * M0 + 2^(n-1) < 2^53: every product and sum is
+    an integer float64 holds exactly, scaling by 2^-n is exact, and floor equals the arithmetic
+    right shift. Callers check that bound (`float_requantize_ok`); it lets a simulator stay in
+    floating point, where CPU kernels are fastest, without changing a single payload.
+    """
+    shape = [1] * v.ndim
+    shape[channel_axis] = -1
+    if _is_torch(v):
+        m0b = torch.as_tensor(np.asarray(m0, dtype=np.float64)).reshape(shape)
+        sc = torch.as_tensor(np.ldexp(1.0, -np.asarray(n, dtype=np.int64))).reshape(shape)
+        half = torch.as_tensor(np.ldexp(1.0, np.asarray(n, dtype=np.int64) - 1)).reshape(shape)
+        out = v * m0b                                   # one temporary, then in place
+        return out.add_(half).mul_(sc).floor_().clamp_(0, int(q))
+    m0b = np.asarray(m0, dtype=np.float64).reshape(shape)
+    n = np.asarray(n, dtype=np.int64).reshape(shape)
+    return np.clip(np.floor((v * m0b + np.ldexp(1.0, n - 1)) * np.ldexp(1.0, -n)), 0, int(q))
+
+
+def float_requantize_ok(acc_bits: int, m0, n) -> bool:
+    """True when |V| * M0 + 2^(n-1) < 2^53 for every |V| < 2^(acc_bits-1) (see requantize_float)."""
+    top = (1 << (int(acc_bits) - 1)) * int(np.max(m0, initial=0)) + (1 << (int(np.max(n, initial=1)) - 1))
+    return top < 1 << 53

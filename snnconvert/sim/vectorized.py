@@ -61,12 +61,14 @@ def _conv_int64(a: np.ndarray, W: np.ndarray, stride, padding) -> np.ndarray:
 
 
 def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto") -> tuple[torch.Tensor, str]:
-    """sum W * a for a batch (no bias), exact, with the kernel chosen by the layer's bound."""
+    """sum W * a for a batch (no bias), exact, with the kernel chosen by the layer's bound.
+
+    Returns a float32/float64 tensor holding exact integers, or int64 for the int64 kernel."""
     k = _kernel_for(L, kernel)
     if L.kind == "dense":
         a = a.reshape(a.shape[0], -1)                                             # (N, F)
     if k == "int64":
-        an, Wn = a.numpy(), L.weight.astype(np.int64)
+        an, Wn = a.to(torch.int64).numpy(), L.weight.astype(np.int64)
         z = _conv_int64(an, Wn, L.stride, L.padding) if L.kind == "conv" else an @ Wn.T
         return torch.from_numpy(np.ascontiguousarray(z)), k
     dt = torch.float32 if k == "float32" else torch.float64
@@ -75,19 +77,16 @@ def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto") -> tuple[to
         z = F.conv2d(a.to(dt), W, None, stride=tuple(L.stride), padding=tuple(L.padding))   # (N, O, H', W')
     else:
         z = a.to(dt) @ W.T                                                        # (N, O)
-    return z.to(torch.int64), k
-
-
-def _bcast(x: np.ndarray, ndim: int) -> torch.Tensor:
-    return torch.from_numpy(np.asarray(x, dtype=np.int64)).reshape((1, -1) + (1,) * (ndim - 2))
+    return z, k
 
 
 @torch.no_grad()
 def simulate(net: IntNetwork, x_int, record: bool = True, limit: bool = True, kernel: str = "auto",
-             batch: int = 4096) -> SimResult:
+             batch: int = 4096, stats: bool = True) -> SimResult:
     """Run the integer network on `x_int` (N, C, H, W) input payloads in 0..input_q.
 
     limit=False ignores the declared accumulator width: that is the dense "quantized forward".
+    stats=False skips spike counts, |V| maxima and the single-spike check (decisions only).
     """
     if kernel not in KERNELS:
         raise ValueError(f"kernel must be one of {KERNELS}; got {kernel!r}")
@@ -96,7 +95,7 @@ def simulate(net: IntNetwork, x_int, record: bool = True, limit: bool = True, ke
         raise ValueError(f"inputs must have shape (N, {', '.join(map(str, net.input_shape))}); got {x.shape}")
     if x.size and (x.min() < 0 or x.max() > net.input_q):
         raise ValueError(f"input payloads must lie in 0..{net.input_q}; got {x.min()}..{x.max()}")
-    parts = [_run(net, torch.from_numpy(x[s:s + batch].astype(np.int64)), record, limit, kernel)
+    parts = [_run(net, torch.from_numpy(x[s:s + batch].astype(np.int64)), record, limit, kernel, stats)
              for s in range(0, max(len(x), 1), batch)]
     if len(parts) == 1:
         return parts[0]
@@ -110,48 +109,66 @@ def simulate(net: IntNetwork, x_int, record: bool = True, limit: bool = True, ke
                      overflows=cat("overflows"), kernels=parts[0].kernels)
 
 
-def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: str) -> SimResult:
+def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: str, stats: bool = True) -> SimResult:
+    """One batch. Values travel as float tensors holding exact integers wherever a layer's bound
+    allows it (see weighted_sum and arith.requantize_float), else as int64."""
     N, nL = a.shape[0], len(net.layers)
     counts = np.zeros((N, nL), dtype=np.int64)
     maxv = np.zeros((N, nL), dtype=np.int64)
     over = np.zeros((N, nL), dtype=np.int64)
     payloads, kernels = [], []
     x0 = a
+    a = a.to(torch.float32)                  # payloads <= 255 (sums <= n * 255) are exact in float32
     early = np.full(N, -1, dtype=np.int64)
     first = np.full(N, -1, dtype=np.int64)
     v = None
+    pooled_early = False
     for i, L in enumerate(net.layers):
         used = "none"
-        if L.kind == "maxpool":   # max commutes with the monotone quantizer; values <= 255 are exact in float32
-            a = F.max_pool2d(a.to(torch.float32), tuple(L.kernel), tuple(L.stride), tuple(L.padding)).to(torch.int64)
-        elif L.kind == "sumpool":   # values <= n * Q, exact in float64
-            a = (F.avg_pool2d(a.to(torch.float64), tuple(L.kernel), tuple(L.stride), divisor_override=1)
-                 .round().to(torch.int64))
+        if L.kind == "maxpool" and pooled_early:
+            pooled_early = False
+        elif L.kind == "maxpool":   # max commutes with the monotone quantizer
+            a = F.max_pool2d(a, tuple(L.kernel), tuple(L.stride), tuple(L.padding))
+        elif L.kind == "sumpool":
+            a = F.avg_pool2d(a, tuple(L.kernel), tuple(L.stride), divisor_override=1)
         else:
             z, used = weighted_sum(L, a, kernel)
-            v = z + _bcast(L.bias, z.ndim)                                         # (N, O, ...) int64
-            maxv[:, i] = v.abs().reshape(N, -1).max(dim=1).values.numpy() if v.numel() else 0
+            acc = net.acc_limit_bits if (limit and net.acc_limit_bits) else L.acc_bits
+            fast = used != "int64" and arith.float_requantize_ok(min(acc, L.acc_bits), L.m0, L.shift)
+            v = z.to(torch.float64 if fast else torch.int64) + torch.from_numpy(
+                L.bias.astype(np.float64 if fast else np.int64)).reshape((1, -1) + (1,) * (z.ndim - 2))
+            if stats:
+                maxv[:, i] = v.abs().reshape(N, -1).amax(dim=1).numpy() if v.numel() else 0
             if limit and net.acc_limit_bits:
                 v, ov = arith.limit_accumulator(v, net.acc_limit_bits, net.overflow)
                 over[:, i] = ov.reshape(N, -1).sum(dim=1).numpy()
-            a = arith.requantize(v, L.m0, L.shift, L.q_out)                       # (N, O, ...)
-        if L.kind != "sumpool" and a.numel() and (int(a.min()) < 0 or int(a.max()) > L.q_out):
+            nxt = net.layers[i + 1] if i + 1 < nL else None
+            if fast and nxt is not None and nxt.kind == "maxpool" and not (stats or record):
+                # requantize is monotone in V, so pooling V first gives the same payloads on 1/n of the values
+                v = F.max_pool2d(v, tuple(nxt.kernel), tuple(nxt.stride), tuple(nxt.padding))
+                pooled_early = True
+            if fast:
+                a = arith.requantize_float(v, L.m0, L.shift, L.q_out).to(torch.float32)   # (N, O, ...)
+            else:
+                a = arith.requantize(v, L.m0, L.shift, L.q_out).to(torch.float32)
+        kernels.append(used)
+        if stats and L.kind != "sumpool" and a.numel() and (float(a.min()) < 0 or float(a.max()) > L.q_out):
             # one spike carries at most Q; anything else would need a second spike
             raise RuntimeError(f"layer {L.name}: payload outside 0..{L.q_out}")
-        kernels.append(used)
-        if L.kind != "sumpool" and (not L.is_output or net.coding == "ttfs"):
+        if stats and L.kind != "sumpool" and (not L.is_output or net.coding == "ttfs"):
             counts[:, i] = (a > 0).reshape(N, -1).sum(dim=1).numpy()
         if L.is_output and net.coding == "ttfs":
             # largest payload = earliest spike; argmax_first gives the lowest index on ties
-            best = a.max(dim=1).values
-            early = np.where(best.numpy() > 0, arith.argmax_first(a).numpy(), -1)
-            first = np.where(best.numpy() > 0, L.q_out - best.numpy(), -1)
+            ai = a.to(torch.int64)
+            best = ai.max(dim=1).values.numpy()
+            early = np.where(best > 0, arith.argmax_first(ai).numpy(), -1)
+            first = np.where(best > 0, L.q_out - best, -1)
         if record:
-            payloads.append(a.numpy())
-    pot = v.numpy().astype(np.int64)
+            payloads.append(a.to(torch.int64).numpy())
+    pot = v.to(torch.int64)
     return SimResult(input_payloads=x0.numpy(), payloads=payloads, spike_counts=counts,
-                     input_spikes=(x0 > 0).reshape(N, -1).sum(dim=1).numpy(), potentials=pot,
-                     decisions=np.asarray(arith.argmax_first(v).numpy(), dtype=np.int64), early_decisions=early,
+                     input_spikes=(x0 > 0).reshape(N, -1).sum(dim=1).numpy(), potentials=pot.numpy(),
+                     decisions=np.asarray(arith.argmax_first(pot).numpy(), dtype=np.int64), early_decisions=early,
                      first_spike_step=first, max_abs_v=maxv, overflows=over, kernels=kernels)
 
 
