@@ -160,12 +160,23 @@ def _data_stage(run_: Run) -> None:
 
 
 def _example_recording(run_: Run) -> dict | None:
-    """Plot one recording (rate trace, bursts, frames) if the dataset exposes its recordings."""
-    from snnconvert import data as data_mod
-    fn = getattr(data_mod, "example_recording", None)
-    if fn is None:
+    """Plot the first training recording: rate trace, thresholds, bursts and their frames."""
+    from snnconvert import frames as F
+    from snnconvert import windows as W
+    ds = run_.dataset()
+    if ds.recordings is None or len(ds.recordings) == 0:
         return None
-    return fn(run_.recipe, run_.out / "data" / "events.png")
+    i = int(ds.split_index["train"][0]) if ds.split_index.get("train") is not None else 0
+    stream, label = ds.recordings[i]
+    fr = run_.recipe["frames"]
+    tk, rate = W.rate_trace(stream, fr["bin_us"])
+    wins = F.windows_of(stream, fr)
+    thr = W.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"]) if fr["window"] == "burst" else None
+    frames = [F.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
+    F.plot_recording(stream, wins, (tk, rate), frames, run_.out / "data" / "events.png", thresholds=thr,
+                     title=f"recording {i} (label {ds.classes[label]}): {len(stream)} events, {len(wins)} windows")
+    return {"index": i, "label": ds.classes[label], "events": len(stream),
+            "windows": [[int(a), int(b), int(np.count_nonzero((stream.t >= a) & (stream.t < b)))] for a, b in wins]}
 
 
 def _train_stage(run_: Run) -> None:
@@ -178,9 +189,10 @@ def _convert_settings(r: dict) -> dict:
 
 
 def _convert_stage(run_: Run) -> None:
-    from snnconvert.convert import convert_checkpoint, save_conversion
+    from snnconvert.cli.convert import write_outputs
+    from snnconvert.convert import convert_checkpoint
     net, metrics = convert_checkpoint(run_.out / "train", _convert_settings(run_.recipe))
-    save_conversion(net, metrics, run_.out / "net", run_.recipe)
+    write_outputs(net, metrics, run_.recipe, run_.out / "net")
 
 
 def _sweep_stage(run_: Run) -> None:
@@ -197,6 +209,8 @@ def _verify_stage(run_: Run) -> None:
     from snnconvert.export import verify
     res = verify(run_.out / "export")
     atomic_write_json(run_.out / "verify.json", res.to_dict())
+    if not res.passed:
+        _say(f"[verify] {res.first_mismatch.message()}")
 
 
 def _report_stage(run_: Run) -> None:
