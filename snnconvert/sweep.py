@@ -550,7 +550,9 @@ def plot_pareto(rows: list[dict], frame_accuracy: float, tolerance_pp: float, re
         ax.set_xlabel(label)
         ax.grid(alpha=0.3)
     axes[0].set_ylabel("spike accuracy (%)")
-    axes[1].legend(fontsize=7, loc="lower right")
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="lower center", ncol=len(labels), fontsize=8, bbox_to_anchor=(0.5, -0.07),
+               frameon=False)
     fig.suptitle("Accuracy against hardware cost (cost figures are counts, not measured energy)")
     _save_png(fig, path)
 
