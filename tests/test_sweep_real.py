@@ -108,3 +108,25 @@ def test_killed_sweep_process_resumes_without_loss(trained, tmp_path):
     resumed = {json.loads(x)["key"]: json.loads(x)["metrics"] for x in after}
     assert {k: resumed[k] for k in fresh} == fresh
     assert json.loads(before[0])["key"] == "payload/w2/p1/per-tensor/post-training"
+
+
+def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
+    from snnconvert import recipe
+    train_dir, _ = trained
+    out = tmp_path / "cli"
+    code = main(["sweep", str(train_dir), "--weight-bits", "3", "--payload-bits", "1,2", "--coding", "payload,ttfs",
+                 "--jobs", "1", "--out", str(out), "--tolerance-pp", "100", "--quiet"])
+    assert code == 0
+    lines = capsys.readouterr().out.splitlines()
+    rec = json.loads((out / "recommendation.json").read_text())
+    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "loss", "pp", "weight", "kbit", "SOPs/sample"]
+    assert [ln.split()[:3] for ln in lines[2:6]] == [["payload", "3", "1"], ["payload", "3", "2"],
+                                                    ["ttfs", "3", "1"], ["ttfs", "3", "2"]]
+    assert lines[-3] == f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} %"
+    assert lines[-2] == rec["message"] and lines[-1] == f"outputs in {out}"
+    # with a 100 pp tolerance every point qualifies: the cheapest is the 3-bit point with fewer SOPs
+    assert rec["point"]["weight_bits"] == 3 and rec["within_tolerance"] == 4
+    # the saved recipe is a valid recipe holding the grid that ran
+    r = recipe.load(out / "recipe.toml")
+    assert (r["sweep"]["weight_bits"], r["sweep"]["payload_bits"], r["sweep"]["codings"]) == ([3], [1, 2],
+                                                                                              ["payload", "ttfs"])
