@@ -10,7 +10,7 @@ Sources ([data] source):
                 recording, so the frame takes all its events; set frames.threshold to 1 or 2 there).
     recordings  a folder of event files with a CSV index `file,label` (paths inside the folder).
 
-Simulated recordings are cached as compressed NPZ in cache_dir, keyed by a hash of the images,
+Simulated recordings are cached as NPZ in cache_dir, keyed by a hash of the images,
 the stimulus, every sensor parameter and the seed; a second run with the same keys reuses them.
 Random draws: sensor rng([seed, 1]), `limit` subset rng([seed, 2]), splits random_state=seed.
 """
@@ -184,7 +184,8 @@ def cache_dir(section: dict) -> Path:
 def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, config: _sensor.SensorConfig,
                     seed: int, folder: Path) -> tuple[RecordingSet, Path, bool]:
     """Simulate (or reuse) the recordings of `images`. Returns (recordings, cache file, reused?)."""
-    key = files.fingerprint(CACHE_VERSION, images.astype(np.float32), labels, stimulus, config.as_dict(), int(seed))
+    key = _digest(CACHE_VERSION, images.astype(np.float32), labels, stimulus, sorted(config.as_dict().items()),
+                  int(seed))
     path = Path(folder) / f"recordings-{key}.npz"
     h, w = images.shape[1:]
     if path.is_file():
@@ -198,15 +199,34 @@ def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, confi
             print(f"warning: ignoring unreadable cache {path} ({exc}); simulating again", file=sys.stderr)
     rng = np.random.default_rng([int(seed), 1])
     ev, offsets = _sensor.simulate_batch(images, stimulus, config, rng, progress=True)
+    # uncompressed but compact (7 bytes per event on sensors up to 256 pixels): deflating millions of
+    # events costs more time than the simulation itself; uint32 us covers 71 minutes per recording
+    xy = np.uint8 if max(w, h) <= 256 else np.uint16
     buf = io.BytesIO()
-    # uint32 us covers 71 minutes per recording; the cache is a third of the in-memory size
-    np.savez_compressed(buf, format=np.array(CACHE_FORMAT), version=np.array(CACHE_VERSION), key=np.array(key),
-                        t=ev["t"].astype(np.uint32), x=ev["x"], y=ev["y"], p=ev["p"], offsets=offsets)
+    np.savez(buf, format=np.array(CACHE_FORMAT), version=np.array(CACHE_VERSION), key=np.array(key),
+             t=ev["t"].astype(np.uint32), x=ev["x"].astype(xy), y=ev["y"].astype(xy), p=ev["p"], offsets=offsets)
     try:
         files.atomic_write_bytes(path, buf.getvalue())
     except OSError as exc:  # a read-only cache must not stop the run
         print(f"warning: cannot write cache {path} ({exc})", file=sys.stderr)
     return RecordingSet(ev, offsets, labels, w, h), path, False
+
+
+def _digest(*items) -> str:
+    """16 hex digits of SHA-256 over arrays (dtype, shape, bytes) and the repr of everything else.
+
+    Kept here rather than files.fingerprint so that loading data never imports torch.
+    """
+    import hashlib
+    h = hashlib.sha256()
+    for item in items:
+        if isinstance(item, np.ndarray):
+            a = np.ascontiguousarray(item)
+            h.update(f"nd{a.dtype.str}{a.shape}".encode())
+            h.update(a.tobytes())
+        else:
+            h.update(repr(item).encode())
+    return h.hexdigest()[:16]
 
 
 # --- recordings folder -----------------------------------------------------------------------
@@ -414,7 +434,7 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         fallback_windows=int((~ok).sum()), sensor=[recs.width, recs.height],
         split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
     )
-    fp = files.fingerprint(X, y, tr, va, te, classes)
+    fp = _digest(X, y, tr, va, te, classes)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
                    input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,
                    windows=wins, split_index={"train": tr, "val": va, "test": te})
