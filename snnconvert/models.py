@@ -350,34 +350,40 @@ def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Te
     return w + (wq - w).detach()
 
 
-class QConv2d(nn.Conv2d):
+class _WeightQuant:
+    """Shared part of QConv2d/QLinear: the k-bit fake-quantized weight used in forward."""
+
+    def _init_quant(self, weight_bits: int, per_channel: bool) -> None:
+        self.weight_bits = check_int(weight_bits, "weight_bits", type(self).__name__, 2, 16)
+        self.per_channel = check_bool(per_channel, "per_channel", type(self).__name__)
+
+    def quantized_weight(self) -> torch.Tensor:
+        return weight_fake_quant(self.weight, self.weight_bits, self.per_channel)
+
+    def extra_repr(self) -> str:
+        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+
+
+class QConv2d(_WeightQuant, nn.Conv2d):
     """Conv2d whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
 
     def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
         super().__init__(*args, **kwargs)
-        self.weight_bits = check_int(weight_bits, "weight_bits", "QConv2d", 2, 16)
-        self.per_channel = check_bool(per_channel, "per_channel", "QConv2d")
+        self._init_quant(weight_bits, per_channel)
 
     def forward(self, x):
-        return self._conv_forward(x, weight_fake_quant(self.weight, self.weight_bits, self.per_channel), self.bias)
-
-    def extra_repr(self) -> str:
-        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+        return self._conv_forward(x, self.quantized_weight(), self.bias)
 
 
-class QLinear(nn.Linear):
+class QLinear(_WeightQuant, nn.Linear):
     """Linear whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
 
     def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
         super().__init__(*args, **kwargs)
-        self.weight_bits = check_int(weight_bits, "weight_bits", "QLinear", 2, 16)
-        self.per_channel = check_bool(per_channel, "per_channel", "QLinear")
+        self._init_quant(weight_bits, per_channel)
 
     def forward(self, x):
-        return nn.functional.linear(x, weight_fake_quant(self.weight, self.weight_bits, self.per_channel), self.bias)
-
-    def extra_repr(self) -> str:
-        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+        return nn.functional.linear(x, self.quantized_weight(), self.bias)
 
 
 def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_channel: bool,

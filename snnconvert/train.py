@@ -55,7 +55,7 @@ SCHEMA: dict[str, Key] = {
     "shift": Key(1, "int", "shifting frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
     "event_dropout": Key(0.1, "float", "removing 10% of input events mimics sensor noise and threshold mismatch",
                          lo=0.0, hi=0.9),
-    "threads": Key(0, "int", "0 = auto: one torch thread per available core, at most 2 on the target laptop",
+    "threads": Key(0, "int", "0 = auto: 1 thread for small models (thread hand-off dominates), else up to 2 cores",
                    lo=0, hi=256),
     "aware": Key(False, "bool", "conversion-aware fine-tuning is opt-in: plain float training is the baseline"),
     "aware_epochs": Key(3, "int", "a few epochs recover most accuracy lost to low-bit weights and payloads",
@@ -85,7 +85,10 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
     _check_dataset(dataset)
     n_classes = len(dataset.classes)
     input_shape = tuple(int(s) for s in dataset.input_shape)
-    with _threads(cfg["threads"]):
+    start = None if init is None else _init_model(init, input_shape, n_classes)
+    probe = start if start is not None else models.build_model(recipe["model"], input_shape, n_classes, quiet=True)
+    n_threads = resolve_threads(cfg["threads"], models.describe(probe, input_shape)["macs"] * cfg["batch_size"])
+    with _threads(n_threads):
         ss = np.random.SeedSequence(seed)
         init_seed, data_seed, aware_seed = (int(s.generate_state(1)[0]) for s in ss.spawn(3))
         history: list[dict] = []
@@ -97,7 +100,7 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
             model, hist = _fit(model, dataset, cfg, cfg["epochs"], cfg["lr"], data_seed, quiet, "float")
             history += hist
         else:
-            model = _init_model(init, input_shape, n_classes)
+            model = start
             if not cfg["aware"]:
                 torch.manual_seed(init_seed)
                 model, hist = _fit(model, dataset, cfg, cfg["epochs"], cfg["lr"], data_seed, quiet, "float")
@@ -135,7 +138,7 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
         "aware_epochs": sum(1 for h in history if h["phase"] == "aware"),
         "best_val_accuracy": val_best,
         "train_seconds": round(train_seconds, 3),
-        "threads": _resolve_threads(cfg["threads"]),
+        "threads": n_threads,
         "params": d["params"],
         "macs": d["macs"],
         "float_frame_accuracy": float_acc,
@@ -174,11 +177,11 @@ def finetune_aware(model: nn.Sequential, dataset, recipe: dict, weight_bits: int
     then (if `learn_act_max`) trains with the weights. Uses the recipe's [train] optimiser,
     batch size, augmentation and `aware_lr` (cosine to zero). Keeps the best-validation epoch.
     Returns (aware model in eval mode, act_max list of floats, one per activation).
-    Deterministic for a given seed; the input model is not modified.
+    Deterministic for a given seed and thread count; the input model is not modified. The torch
+    thread count is left as the caller set it (parallel sweep workers run one thread each).
     """
-    with _threads(recipe["train"]["threads"]):
-        aware, act_max, _ = _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel,
-                                      epochs, int(seed), quiet)
+    aware, act_max, _ = _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel,
+                                  epochs, int(seed), quiet)
     return aware, act_max
 
 
@@ -445,9 +448,18 @@ def _n_outputs(model) -> int:
     return last[-1].out_features if last else 0
 
 
-def _resolve_threads(threads: int) -> int:
+# Below this many multiply-accumulates per training step, handing work to a second thread costs
+# more than it saves (bench/train.py measures 1 vs 2 threads on the default model).
+SMALL_STEP_MACS = 50_000_000
+
+
+def resolve_threads(threads: int, macs_per_step: int | None = None) -> int:
+    """threads > 0: as given. 0 (auto): 1 for small steps (< SMALL_STEP_MACS multiply-accumulates,
+    forward only), else the available cores, at most 2 (the target laptop)."""
     if threads:
         return int(threads)
+    if macs_per_step is not None and macs_per_step < SMALL_STEP_MACS:
+        return 1
     try:
         cores = len(os.sched_getaffinity(0))
     except AttributeError:  # pragma: no cover - not on Linux
@@ -459,7 +471,7 @@ def _resolve_threads(threads: int) -> int:
 def _threads(threads: int):
     """Set torch's intra-op threads for the block and restore the caller's setting after."""
     before = torch.get_num_threads()
-    torch.set_num_threads(_resolve_threads(threads))
+    torch.set_num_threads(int(threads))
     try:
         yield
     finally:

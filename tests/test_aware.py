@@ -8,7 +8,15 @@ from snnconvert import train as T
 from snnconvert.errors import UsageError
 from test_train import digits_frames, small_recipe
 
-torch.set_num_threads(2)
+
+
+@pytest.fixture(autouse=True)
+def one_thread():
+    """finetune_aware keeps the caller's thread count; tiny models train fastest on one thread."""
+    before = torch.get_num_threads()
+    torch.set_num_threads(1)
+    yield
+    torch.set_num_threads(before)
 
 
 @pytest.fixture(scope="module")

@@ -9,7 +9,6 @@ import torch
 from snnconvert import cli, data
 from test_train import SMALL_LAYERS, _toml_layers, digits_frames
 
-torch.set_num_threads(2)
 
 ROOT = Path(__file__).resolve().parents[1]
 DEFAULT = str(ROOT / "recipes" / "default.toml")

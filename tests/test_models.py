@@ -8,7 +8,6 @@ from torch import nn
 from snnconvert import arith, models as M
 from snnconvert.errors import UsageError
 
-torch.set_num_threads(2)
 
 DEFAULT = M.DEFAULT_LAYERS
 
