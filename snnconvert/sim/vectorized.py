@@ -60,10 +60,11 @@ def _conv_int64(a: np.ndarray, W: np.ndarray, stride, padding) -> np.ndarray:
     return np.einsum("nchwij,ocij->nohw", win, W, optimize=True)                 # (N, O, H', W')
 
 
-def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto") -> tuple[torch.Tensor, str]:
+def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto", bias: bool = False) -> tuple[torch.Tensor, str]:
     """sum W * a for a batch (no bias), exact, with the kernel chosen by the layer's bound.
 
-    Returns a float32/float64 tensor holding exact integers, or int64 for the int64 kernel."""
+    Returns a float32/float64 tensor holding exact integers, or int64 for the int64 kernel.
+    bias=True adds B inside the kernel (callers use it only when |V| < 2^24 keeps float32 exact)."""
     k = _kernel_for(L, kernel)
     if L.kind == "dense":
         a = a.reshape(a.shape[0], -1)                                             # (N, F)
@@ -73,10 +74,11 @@ def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto") -> tuple[to
         return torch.from_numpy(np.ascontiguousarray(z)), k
     dt = torch.float32 if k == "float32" else torch.float64
     W = torch.from_numpy(L.weight).to(dt)
+    B = torch.from_numpy(L.bias).to(dt) if bias else None
     if L.kind == "conv":
-        z = F.conv2d(a.to(dt), W, None, stride=tuple(L.stride), padding=tuple(L.padding))   # (N, O, H', W')
+        z = F.conv2d(a.to(dt), W, B, stride=tuple(L.stride), padding=tuple(L.padding))      # (N, O, H', W')
     else:
-        z = a.to(dt) @ W.T                                                        # (N, O)
+        z = F.linear(a.to(dt), W, B)                                              # (N, O)
     return z, k
 
 
@@ -132,11 +134,17 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
         elif L.kind == "sumpool":
             a = F.avg_pool2d(a, tuple(L.kernel), tuple(L.stride), divisor_override=1)
         else:
-            z, used = weighted_sum(L, a, kernel)
-            acc = net.acc_limit_bits if (limit and net.acc_limit_bits) else L.acc_bits
-            fast = used != "int64" and arith.float_requantize_ok(min(acc, L.acc_bits), L.m0, L.shift)
-            v = z.to(torch.float64 if fast else torch.int64) + torch.from_numpy(
-                L.bias.astype(np.float64 if fast else np.int64)).reshape((1, -1) + (1,) * (z.ndim - 2))
+            limited = bool(limit and net.acc_limit_bits)
+            acc = min(net.acc_limit_bits, L.acc_bits) if limited else L.acc_bits
+            # |V| < 2^(acc_bits-1) <= 2^23: the potential, its bias and a wrap-around stay exact in float32
+            f32 = _kernel_for(L, kernel) == "float32" and L.acc_bits <= 24 and (not limited or net.acc_limit_bits <= 24)
+            z, used = weighted_sum(L, a, kernel, bias=f32)
+            fast = used != "int64" and arith.float_requantize_ok(acc, L.m0, L.shift)
+            if f32:
+                v = z
+            else:
+                dt = torch.float64 if fast else torch.int64
+                v = z.to(dt) + torch.from_numpy(L.bias).to(dt).reshape((1, -1) + (1,) * (z.ndim - 2))
             if stats:
                 maxv[:, i] = v.abs().reshape(N, -1).amax(dim=1).numpy() if v.numel() else 0
             if limit and net.acc_limit_bits:
@@ -148,7 +156,7 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
                 v = F.max_pool2d(v, tuple(nxt.kernel), tuple(nxt.stride), tuple(nxt.padding))
                 pooled_early = True
             if fast:
-                a = arith.requantize_float(v, L.m0, L.shift, L.q_out).to(torch.float32)   # (N, O, ...)
+                a = arith.requantize_float(v.to(torch.float64), L.m0, L.shift, L.q_out).to(torch.float32)  # (N, O, ...)
             else:
                 a = arith.requantize(v, L.m0, L.shift, L.q_out).to(torch.float32)
         kernels.append(used)
