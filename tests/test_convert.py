@@ -177,3 +177,13 @@ def test_quantize_input_rounds_half_even_and_clips():
     assert arith.quantize_input(torch.tensor(x), 3).tolist() == [0, 0, 0, 2, 2, 3]
     with pytest.raises(ValueError, match="NaN"):
         arith.quantize_input(np.array([np.nan]), 1)
+
+
+def test_percentile_weight_scale_clips_the_largest_weights():
+    model = trained("mlp")
+    (xtr, _), _ = split()
+    net = convert(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload", weight_scale="percentile:90")
+    w = fold(model)[0].weight
+    r = np.percentile(np.abs(w), 90)                                   # numpy's linear-interpolation percentile
+    assert np.array(net.layers[0].info["s_w"]) == pytest.approx(r / 7)
+    assert (np.abs(net.layers[0].weight) == 7).mean() >= 0.05          # ~10% of the weights clip to +-7
