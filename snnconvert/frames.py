@@ -40,8 +40,10 @@ SCHEMA: dict[str, Key] = {
     "mode": Key("binary", "choice", "one spike per pixel suits single-spike networks (input_q = 1)",
                 choices=MODES),
     "size": Key(16, "int", "half the 32-pixel sensor: keeps the digit shape, 4x fewer input neurons", lo=2, hi=1024),
-    "threshold": Key(4, "int", "binary: events a pooled pixel needs to fire; rejects stray noise events", lo=1),
-    "max_count": Key(4, "int", "count/polarity: clip so a few busy pixels do not dominate", lo=1, hi=255),
+    "threshold": Key(16, "int", "binary: ~4 onset events per pixel of a 2x2 block keeps strokes at half brightness "
+                     "and above and drops the blurred rim (measured best of 4-24 on digits)", lo=1),
+    "max_count": Key(15, "int", "count/polarity: a 4-bit input payload; clips only the brightest 2x2 blocks",
+                     lo=1, hi=255),
 }
 
 
@@ -70,13 +72,18 @@ def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str
     """
     _check(mode, size, threshold, max_count)
     c = channels(mode)
-    tx = x.astype(np.int64) * size // width
-    ty = y.astype(np.int64) * size // height
-    idx = ty * size + tx  # (E,) target pixel
+    plane = size * size
+    # lookup tables instead of per-event integer division: target row offset and column per sensor pixel
+    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size
+    lut_x = np.arange(width, dtype=np.int64) * size // width
+    idx = lut_y[y] + lut_x[x]  # (E,) target pixel
     if c == 2:
-        idx = idx + (p < 0) * (size * size)
-    idx = idx + np.asarray(group, np.int64) * (c * size * size)
-    counts = np.bincount(idx, minlength=n_groups * c * size * size)[: n_groups * c * size * size]
+        idx += (p < 0) * plane
+    group = np.asarray(group)
+    if group.ndim and group.size and group.min() < 0:  # a negative group means "outside every window": counted in one spare bin, then dropped
+        group = np.where(group < 0, n_groups, group)
+    idx += group * (c * plane)
+    counts = np.bincount(idx, minlength=(n_groups + 1) * c * plane)[: n_groups * c * plane]
     counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
     if mode == "binary":
         return (counts >= threshold).astype(np.float32)
@@ -90,12 +97,14 @@ def bin_windows(stream: EventStream, windows, mode: str = "binary", size: int = 
     w = np.asarray(windows, np.int64).reshape(-1, 2)  # (K, 2)
     if w.size and (np.any(w[:, 1] < w[:, 0]) or np.any(w[1:, 0] < w[:-1, 1])):
         raise UsageError("windows must be ordered, non-overlapping (t_start, t_end) pairs")
-    bounds = np.searchsorted(stream.t, w.ravel()).reshape(-1, 2)  # (K, 2) event index ranges
-    lens = bounds[:, 1] - bounds[:, 0]
-    sel = np.concatenate([np.arange(a, b) for a, b in bounds]) if len(w) else np.zeros(0, np.int64)
-    group = np.repeat(np.arange(len(w)), lens)
-    ev = stream.events[sel]
-    return bin_events(ev["x"], ev["y"], ev["p"], stream.width, stream.height, group, len(w), mode, size,
+    bounds = np.searchsorted(stream.t, w.ravel())  # (2K,) event index where each window opens/closes
+    # one group label per event without gathering events: windows are contiguous index ranges,
+    # the gaps between them get -1
+    seg_len = np.diff(np.r_[0, bounds, len(stream)])  # (2K + 1,) gap, window, gap, window, ..., gap
+    seg_val = np.full(seg_len.size, -1, np.int64)
+    seg_val[1::2] = np.arange(len(w))
+    group = np.repeat(seg_val, seg_len)  # (E,)
+    return bin_events(stream.x, stream.y, stream.p, stream.width, stream.height, group, len(w), mode, size,
                       threshold, max_count)
 
 

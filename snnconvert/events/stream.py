@@ -135,23 +135,23 @@ class EventStream:
 
 
 def _validate(t, x, y, p, width, height) -> None:
-    """Range and order checks shared by every constructor; the message names field and index."""
+    """Range and order checks shared by every constructor; the message names field and index.
+
+    Whole-array reductions first (cheap on millions of events); the offending index is only
+    searched for when a check fails.
+    """
     if not t.size:
         return
-    bad = np.flatnonzero(x >= width)
-    if bad.size:
-        i = int(bad[0])
+    if int(x.max()) >= width:
+        i = int(np.flatnonzero(x >= width)[0])
         raise UsageError(f"event field 'x' at index {i} is {x[i]}, outside the sensor (width {width})")
-    bad = np.flatnonzero(y >= height)
-    if bad.size:
-        i = int(bad[0])
+    if int(y.max()) >= height:
+        i = int(np.flatnonzero(y >= height)[0])
         raise UsageError(f"event field 'y' at index {i} is {y[i]}, outside the sensor (height {height})")
-    bad = np.flatnonzero((p != 1) & (p != -1))
-    if bad.size:
-        i = int(bad[0])
+    if int(p.min()) < -1 or int(p.max()) > 1 or not np.all(p):
+        i = int(np.flatnonzero((p != 1) & (p != -1))[0])
         raise UsageError(f"event field 'p' must be +1 or -1 at index {i}; got {p[i]}")
-    bad = np.flatnonzero(np.diff(t) < 0)
-    if bad.size:
-        i = int(bad[0]) + 1
+    if t.size > 1 and np.any(t[1:] < t[:-1]):
+        i = int(np.flatnonzero(t[1:] < t[:-1])[0]) + 1
         raise UsageError(f"event field 't' decreases at index {i} ({t[i - 1]} -> {t[i]}); "
                          "pass sort=True to order the events by time")
