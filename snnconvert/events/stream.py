@@ -54,26 +54,34 @@ class EventStream:
                 raise UsageError(f"event field '{name}' has {cols[name].shape[0]} values but 't' has {n}")
         width = check_int(width, "width", "EventStream", 1, MAX_SIDE)
         height = check_int(height, "height", "EventStream", 1, MAX_SIDE)
-        p = cols["p"].astype(np.int64)
-        bad = np.flatnonzero((p != 1) & (p != -1) & (p != 0))
-        if bad.size:
-            i = int(bad[0])
-            raise UsageError(f"event field 'p' must be +1/-1 (or 1/0) at index {i}; got {cols['p'][i]}")
+        p = cols["p"]
+        # reductions first (no int64 copies of millions of events); indices only on failure
+        if n and (int(p.min()) < -1 or int(p.max()) > 1):
+            i = int(np.flatnonzero((p < -1) | (p > 1))[0])
+            raise UsageError(f"event field 'p' must be +1/-1 (or 1/0) at index {i}; got {p[i]}")
         for name, side in (("x", width), ("y", height)):
-            c = cols[name].astype(np.int64)
-            bad = np.flatnonzero((c < 0) | (c >= side))
-            if bad.size:
-                i = int(bad[0])
-                raise UsageError(f"event field '{name}' at index {i} is {c[i]}, outside the sensor "
+            c = cols[name]
+            if n and (c.min() < 0 or c.max() >= side):
+                i = int(np.flatnonzero((c < 0) | (c >= side))[0])
+                raise UsageError(f"event field '{name}' at index {i} is {int(c[i])}, outside the sensor "
                                  f"({'width' if name == 'x' else 'height'} {side})")
         ev = np.empty(n, EVENT_DTYPE)
         ev["t"] = cols["t"]
         ev["x"] = cols["x"]
         ev["y"] = cols["y"]
-        ev["p"] = np.where(p == 0, -1, p)
+        ev["p"] = p
+        if n and not np.all(p):
+            ev["p"][p == 0] = -1  # 0/1 input: 0 is OFF
         if sort and n:
             ev = ev[np.argsort(ev["t"], kind="stable")]
-        return cls(ev, width, height)
+        out = cls.__new__(cls)
+        out.events, out.width, out.height = ev, width, height
+        t = ev["t"]
+        if n > 1 and np.any(t[1:] < t[:-1]):
+            i = int(np.flatnonzero(t[1:] < t[:-1])[0]) + 1
+            raise UsageError(f"event field 't' decreases at index {i} ({t[i - 1]} -> {t[i]}); "
+                             "pass sort=True to order the events by time")
+        return out
 
     @classmethod
     def empty(cls, width: int, height: int) -> "EventStream":
