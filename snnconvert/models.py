@@ -42,13 +42,14 @@ _LAYER_KEYS = {
     "dropout": {"p": ("float", 0.0, 0.9, True)},
 }
 
-# Two 3x3 convs with max pooling then one hidden dense layer: on 16x16 digit frames this trains to
-# ~99% in a few CPU seconds per epoch; widths stay small so the integer network stays small.
+# Two convs with max pooling, dropout, one hidden dense layer: on 16x16 digit frames this trains to
+# 97-99% in well under a second per epoch; widths stay small so the integer network stays small.
 DEFAULT_LAYERS = [
-    {"type": "conv", "out": 16, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
+    {"type": "conv", "out": 16, "kernel": 5, "stride": 1, "padding": 2, "bn": False},
     {"type": "maxpool", "size": 2, "stride": 2},
     {"type": "conv", "out": 32, "kernel": 3, "stride": 1, "padding": 1, "bn": False},
     {"type": "maxpool", "size": 2, "stride": 2},
+    {"type": "dropout", "p": 0.25},
     {"type": "dense", "units": 64, "bn": False},
     {"type": "dense"},
 ]
@@ -109,7 +110,7 @@ def _layer(item, owner: str) -> dict:
 
 SCHEMA = {
     "layers": Key(DEFAULT_LAYERS, "any",
-                  "2 conv + 2 maxpool + 1 hidden dense: reaches ~99% on 16x16 digit frames in seconds on a laptop CPU",
+                  "2 conv + 2 maxpool + dropout + 1 hidden dense: 97-99% on 16x16 digit frames in seconds on a CPU",
                   validator=check_layers),
 }
 
