@@ -40,7 +40,7 @@ body{font-family:system-ui,-apple-system,Segoe UI,Roboto,sans-serif;margin:2em a
 padding:0 1em;line-height:1.45}
 h1{font-size:1.6em}h2{font-size:1.25em;border-bottom:1px solid #ccc;padding-bottom:.2em;margin-top:2em}
 table{border-collapse:collapse;margin:.6em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:right}
-th{background:#f3f3f3}td.l,th.l{text-align:left}pre{background:#f7f7f7;padding:.8em;overflow-x:auto;font-size:.85em}
+th{background:#f3f3f3}td.l,th.l{text-align:left}pre{background:#f7f7f7;padding:.8em;overflow:auto;font-size:.85em;max-height:30em}
 img{max-width:100%;height:auto}.pair{display:flex;gap:1em;flex-wrap:wrap}.pair figure{flex:1;min-width:300px;margin:0}
 .missing{color:#8a5a00;background:#fff6e0;padding:.4em .7em;border-left:4px solid #e0a800}
 .ok{color:#1a6b1a;font-weight:bold}.bad{color:#a01818;font-weight:bold}.note{color:#555;font-size:.92em}
@@ -111,6 +111,8 @@ def _fmt(v) -> str:
     if isinstance(v, bool) or v is None:
         return str(v)
     if isinstance(v, float):
+        if abs(v) >= 1e4:
+            return f"{v:,.0f}"
         return f"{v:,.4g}" if abs(v) >= 1e-3 or v == 0 else f"{v:.3e}"
     if isinstance(v, int):
         return f"{v:,}"
@@ -146,10 +148,18 @@ def _net_metrics(run: Path) -> dict | None:
     return _json(run / "net" / "metrics.json")
 
 
-def _layer_dict(m: dict, key: str) -> dict:
-    """A per-layer {layer name: value} metric, or {} when absent."""
+def _layer_dict(m: dict, key: str, run: Path | None = None) -> dict:
+    """A per-layer {layer name: value} metric in network order ("input" first), or {} when absent.
+
+    JSON files are written with sorted keys, so the order comes from net/network.json.
+    """
     v = m.get(key)
-    return v if isinstance(v, dict) else {}
+    if not isinstance(v, dict):
+        return {}
+    net = _json(run / "net" / "network.json") if run is not None else None
+    names = [L.get("name") for L in net.get("layers", []) if isinstance(L, dict)] if net else []
+    order = {n: i for i, n in enumerate(["input"] + names)}
+    return dict(sorted(v.items(), key=lambda kv: order.get(kv[0], len(order))))
 
 
 def _confusion_png(cm, title: str) -> str:
@@ -258,7 +268,7 @@ def _spikes(run: Path) -> str:
         return _missing("No conversion metrics (net/metrics.json): spike counts are unknown.")
     out = [_kv(m, ["spikes_per_sample", "max_spikes_per_neuron", "sops_per_sample", "macs_per_sample",
                    "sops_per_mac"])]
-    layers = _layer_dict(m, "spikes_per_layer")
+    layers = _layer_dict(m, "spikes_per_layer", run)
     if not layers:
         out.append(_missing("The conversion metrics hold no per-layer spike counts."))
         return "\n".join(out)
@@ -293,7 +303,7 @@ def _accumulators(run: Path) -> str:
     m = _net_metrics(run)
     if not m:
         return _missing("No conversion metrics (net/metrics.json): accumulator widths are unknown.")
-    widths = _layer_dict(m, "accumulator_bits")
+    widths = _layer_dict(m, "accumulator_bits", run)
     if not widths:
         return _missing("The conversion metrics hold no accumulator widths.")
     seen, over = _layer_dict(m, "max_abs_potential"), _layer_dict(m, "overflows")

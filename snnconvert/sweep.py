@@ -493,7 +493,10 @@ def plot_heatmap(rows: list[dict], frame_accuracy: float, path: Path) -> None:
     codings = list(dict.fromkeys(r["coding"] for r in rows))
     wb = sorted({r["weight_bits"] for r in rows})
     fig, axes = plt.subplots(1, len(codings), figsize=(1.2 + 0.9 * max(3, len({r['payload_bits'] for r in rows})) *
-                                                       len(codings), 0.6 + 0.55 * max(4, len(wb))), squeeze=False)
+                                                       len(codings), 0.9 + 0.55 * max(4, len(wb))), squeeze=False,
+                             layout="constrained",
+                             gridspec_kw={"width_ratios": [max(1.5, len({r["payload_bits"] for r in rows
+                                                                          if r["coding"] == c})) for c in codings]})
     lo = min(100 * r["spike_accuracy"] for r in rows)
     for ax, c in zip(axes[0], codings):
         pb = sorted({r["payload_bits"] for r in rows if r["coding"] == c})
