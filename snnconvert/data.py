@@ -432,8 +432,13 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         nonzero_pixels_per_frame=float(np.count_nonzero(X.reshape(len(X), -1), axis=1).mean()) if len(X) else 0.0,
         frame_sum_mean=float(spikes.mean()) if len(X) else 0.0,
         fallback_windows=int((~ok).sum()), sensor=[recs.width, recs.height],
+        empty_frames=int(np.count_nonzero(spikes == 0)),
         split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
     )
+    if len(X) and info["empty_frames"] > len(X) // 10:
+        print(f"warning: {info['empty_frames']} of {len(X)} frames are empty; lower frames.threshold "
+              f"(now {fsec['threshold']}) or change frames.window/pick (sparse recordings such as saccades "
+              "need a threshold of 1-2)", file=sys.stderr)
     fp = _digest(X, y, tr, va, te, classes)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
                    input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,
