@@ -47,7 +47,7 @@ def main(argv: list[str] | None = None) -> dict:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--limit", type=int, default=0, help="digits used (train + val + test); 0 = all 1797")
     ap.add_argument("--epochs", type=int, default=None, help="float training epochs (default: the recipe's)")
-    ap.add_argument("--repeats", type=int, default=7)
+    ap.add_argument("--repeats", type=int, default=15)
     ap.add_argument("--reference-samples", type=int, default=200)
     args = ap.parse_args(argv)
 
