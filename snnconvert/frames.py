@@ -174,6 +174,7 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
         ax.axvspan(s / 1e3, e / 1e3, color="tab:orange", alpha=0.3, label="burst" if i == 0 else None)
     ax.set_xlabel("time (ms)")
     ax.set_yscale("symlog", linthresh=max(1.0, float(thresholds[1]) if thresholds is not None else 1.0))
+    ax.set_ylim(0, max(float(np.max(rate)) if len(rate) else 1.0, thresholds[0] if thresholds else 1.0) * 2)
     ax.set_ylabel("events / s (log above the lower threshold)")
     ax.set_title(title or f"{len(stream)} events, {len(bursts)} bursts", fontsize=9)
     ax.legend(fontsize=7, loc="upper right")
