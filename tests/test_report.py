@@ -119,3 +119,55 @@ def test_cli_writes_the_report(tmp_path, capsys):
     assert main(["report", str(tmp_path)]) == 0
     assert capsys.readouterr().out == f"report written to {tmp_path / 'report.html'}\n"
     check_page(tmp_path / "report.html")
+
+
+TINY_RECIPE = """
+name = "tiny-report"
+seed = 0
+[data]
+limit = 300
+cache_dir = "cache"
+[model]
+layers = [
+  {type = "conv", out = 4, kernel = 3, stride = 1, padding = 1, bn = false},
+  {type = "maxpool", size = 2, stride = 2},
+  {type = "dense", units = 16, bn = false},
+  {type = "dense"},
+]
+[train]
+epochs = 6
+batch_size = 16
+[sweep]
+weight_bits = "3,4"
+payload_bits = "2"
+jobs = 1
+[export]
+vectors = 2
+"""
+
+
+@pytest.mark.slow
+def test_report_of_a_real_run(tmp_path):
+    """A whole run on 300 simulated-sensor digits (scikit-learn's bundled set): every section is filled."""
+    import base64
+
+    from snnconvert import pipeline
+    (tmp_path / "tiny.toml").write_text(TINY_RECIPE)
+    run = tmp_path / "run"
+    pipeline.run(tmp_path / "tiny.toml", out=run)
+    text, p = check_page(run / "report.html")
+    assert 'class="missing"' not in text
+    m = json.loads((run / "net" / "metrics.json").read_text())
+    acc = section(text, "accuracy")
+    for key in ("frame_accuracy", "quantized_accuracy", "spike_accuracy"):
+        assert f"{100 * m[key]:.2f} %" in acc
+    # the sweep's PNG files are inlined byte for byte (base64, RFC 4648)
+    sweep_imgs = re.findall(r'src="data:image/png;base64,([^"]+)"', section(text, "sweep"))
+    assert [base64.b64decode(s) for s in sweep_imgs] == [(run / "sweep" / n).read_bytes()
+                                                         for n in ("heatmap.png", "pareto.png")]
+    accu = section(text, "accumulators")
+    for name, bits in m["accumulator_bits"].items():
+        assert f'<td class="l">{name}</td><td>{bits}</td>' in accu
+    assert "Estimate, not a measurement." in section(text, "energy")
+    assert "verify passed: 2 golden samples" in section(text, "export")
+    assert len(re.findall(r"<img ", section(text, "confusion"))) == 2
