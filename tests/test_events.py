@@ -171,6 +171,24 @@ def test_npz_wrong_format_and_version(tmp_path):
         read_events(tmp_path / "b.npz")
 
 
+def _npy_bytes():
+    import io
+    buf = io.BytesIO()
+    np.save(buf, np.arange(3))
+    return buf.getvalue()
+
+
+@pytest.mark.parametrize("content", [
+    _npy_bytes(),                       # a bare .npy under an .npz name
+    b"PK\x03\x04" + bytes(40),          # a zip header with nothing behind it
+])
+def test_npz_not_a_zip_archive(tmp_path, content):
+    f = tmp_path / "z.npz"
+    f.write_bytes(content)
+    with pytest.raises(FormatError, match="z.npz"):
+        read_events(f)
+
+
 @pytest.mark.parametrize("text, expect", [("34x34", (34, 34)), ("346X260", (346, 260))])
 def test_parse_sensor(text, expect):
     assert parse_sensor(text) == expect

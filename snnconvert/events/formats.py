@@ -82,7 +82,12 @@ def write_events(stream: EventStream, path) -> Path:
 
 # --- own NPZ ---------------------------------------------------------------------------------
 def _read_npz(path: Path, sensor) -> EventStream:
-    z = load_npz(path)
+    try:
+        z = load_npz(path)
+    except FormatError:
+        raise
+    except Exception as exc:  # a broken zip directory, or a bare .npy renamed to .npz
+        raise FormatError(f"{path}: not a readable NPZ file ({type(exc).__name__}: {exc})") from None
     fmt = str(z.get("format", ""))
     if fmt != FORMAT:
         raise FormatError(f"{path}: not an event file (format {fmt!r}, expected {FORMAT!r})")
