@@ -51,6 +51,8 @@ def pure_epoch_seconds(recipe: dict, dataset, threads: int) -> float:
 def main(argv: list[str] | None = None) -> dict:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=3, help="pure-epoch timing repeats per thread count")
+    ap.add_argument("--seeds", default="", metavar="LIST",
+                    help="also train with these seeds (e.g. 1,2,3): data, split and weights all change with the seed")
     ap.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE")
     args = ap.parse_args(argv)
 
@@ -90,6 +92,17 @@ def main(argv: list[str] | None = None) -> dict:
           f"(ratio 2/1 = {figures['threads_2_vs_1']:.2f})")
     print(f"loop ratio: train time / pure epoch = {figures['loop_ratio']:.1f} for {m['epochs']} epochs "
           f"(overhead per epoch x{figures['loop_ratio'] / max(m['epochs'], 1):.2f})")
+    if args.seeds:
+        accs = {int(r["seed"]): m["frame_accuracy"]}
+        for seed in (int(v) for v in args.seeds.split(",")):
+            rs = recipe.load(ROOT / "recipes" / "default.toml", [*args.overrides, f"seed={seed}"])
+            with tempfile.TemporaryDirectory(prefix="bench-train-") as tmp:
+                _, ms = train.train(rs, data.load_dataset(rs, progress=False), Path(tmp) / "train", quiet=True)
+            accs[seed] = ms["frame_accuracy"]
+        figures["accuracy_by_seed"] = accs
+        figures["accuracy_seed_mean"] = sum(accs.values()) / len(accs)
+        print("test accuracy by seed: " + ", ".join(f"{k}: {100 * v:.2f}%" for k, v in accs.items())
+              + f"; mean {100 * figures['accuracy_seed_mean']:.2f}%")
     for key, (op, goal) in GOALS.items():
         v = figures[key]
         ok = v >= goal if op == ">=" else v < goal
