@@ -287,28 +287,65 @@ class ResultsLog:
             os.fsync(fh.fileno())
 
 
+# Worker processes: one torch/BLAS thread each, since the parallelism is across points; idle
+# workers stay alive a few minutes so a resumed or extended sweep does not pay their start again.
+_WORKER_ENV = {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1"}
+_WORKER_IDLE_SECONDS = 300
+
+
+def _executor(n_jobs: int):
+    from joblib.externals.loky import get_reusable_executor
+    return get_reusable_executor(max_workers=n_jobs, timeout=_WORKER_IDLE_SECONDS, env=_WORKER_ENV)
+
+
+def _warm() -> None:
+    """Import what a point needs, so a worker's start overlaps the parent's loading."""
+    import torch  # noqa: F401
+    import snnconvert.convert  # noqa: F401
+    import snnconvert.sim.metrics  # noqa: F401
+
+
+def start_workers(jobs=None) -> int:
+    """Start the worker processes of a sweep now (without waiting); returns the job count."""
+    n_jobs = resolve_jobs(jobs)
+    if n_jobs > 1:
+        ex = _executor(n_jobs)
+        for _ in range(n_jobs):
+            ex.submit(_warm)
+    return n_jobs
+
+
 def run_points(points: list[dict], fn: Callable, model, dataset, recipe: dict, act_max, log: ResultsLog,
                jobs=None, progress: bool = True) -> tuple[list[dict], int]:
-    """Evaluate every point not yet in the log; return (records in grid order, number computed)."""
+    """Evaluate every point not yet in the log; return (records in grid order, number computed).
+
+    With more than one job the points run in joblib's loky worker processes and are logged in
+    the order they finish; each point's metrics do not depend on where it ran.
+    """
+    from concurrent.futures import as_completed
     from tqdm import tqdm
     done = log.load()
     pending = [p for p in points if p["key"] not in done]
     n_jobs = min(resolve_jobs(jobs), max(1, len(pending)))
+    futures = []
     if n_jobs == 1:
         results = (_call(fn, model, dataset, recipe, act_max, p) for p in pending)
     else:
-        from joblib import Parallel, delayed
-        results = Parallel(n_jobs=n_jobs, backend="loky", return_as="generator_unordered")(
-            delayed(_call)(fn, model, dataset, recipe, act_max, p) for p in pending)
-    bar = tqdm(results, total=len(pending), desc="sweep", unit="point", disable=not progress or not pending,
-               file=None)
-    for point, metrics, timing in bar:
-        rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
-               "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,
-               "fingerprints": log.fingerprints, **timing}
-        log.append(rec)
-        done[point["key"]] = rec
-        bar.set_postfix_str(point["key"])
+        ex = _executor(resolve_jobs(jobs))
+        futures = [ex.submit(_call, fn, model, dataset, recipe, act_max, p) for p in pending]
+        results = (f.result() for f in as_completed(futures))
+    bar = tqdm(results, total=len(pending), desc="sweep", unit="point", disable=not progress or not pending)
+    try:
+        for point, metrics, timing in bar:
+            rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
+                   "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,
+                   "fingerprints": log.fingerprints, **timing}
+            log.append(rec)
+            done[point["key"]] = rec
+            bar.set_postfix_str(point["key"])
+    finally:
+        for f in futures:  # on Ctrl-C or a failed point: queued points are dropped, finished ones are logged
+            f.cancel()
     return [done[p["key"]] for p in points], len(pending)
 
 
@@ -605,6 +642,8 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
     replaces the real conversion (tests); `context=(model, ckpt, dataset)` skips loading.
     """
     train_dir = Path(train_dir)
+    if point_fn is None:
+        start_workers(jobs)
     if context is None:
         from snnconvert import data, train
         model, ckpt = train.load_checkpoint(train_dir)

@@ -48,6 +48,7 @@ def run(args) -> int:
         return section[key] if value is None else value
 
     codings = ",".join(args.coding) if args.coding else section["codings"]
+    sweep.start_workers(pick(args.jobs, "jobs"))  # workers start while the data set loads
     context = (model, ckpt, data.load_dataset(recipe, progress=not args.quiet))
     result = sweep.run_sweep(
         path, pick(args.weight_bits, "weight_bits"), pick(args.payload_bits, "payload_bits"), codings,
