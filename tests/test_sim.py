@@ -47,6 +47,8 @@ CASES = [  # (model, coding, weight bits, payload bits, per-channel, binary fram
     ("conv_avg", "ttfs", 8, 5, True, True),
     ("mlp", "payload", 2, 2, False, False),
     ("mlp", "ttfs", 5, 6, True, False),
+    ("mlp", "ttfs", 4, 1, False, False),      # count inputs (Q_in = 3) wider than the 1-bit hidden payloads
+    ("mlp", "binary", 4, 1, True, False),
 ]
 
 
