@@ -14,6 +14,8 @@ def add_arguments(p) -> None:
     p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's)")
     p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
     p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
+    p.add_argument("--input-clip", action="store_true", default=None,
+                   help="clip count-frame inputs to the payload width 2^p - 1")
     p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")
     p.add_argument("--overflow", metavar="MODE", help="saturate | wrap, with a declared accumulator width")
     p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")
@@ -21,7 +23,7 @@ def add_arguments(p) -> None:
 
 
 FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding": "coding", "per_channel": "per_channel",
-         "calibration": "calibration", "accumulator_bits": "accumulator_bits", "overflow": "overflow"}
+         "calibration": "calibration", "input_clip": "input_clip", "accumulator_bits": "accumulator_bits", "overflow": "overflow"}
 
 
 def run(args) -> int:
