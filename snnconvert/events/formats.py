@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError
-from snnconvert.events.stream import EVENT_DTYPE, EventStream
+from snnconvert.events.stream import EventStream
 from snnconvert.files import atomic_write_bytes, load_npz
 
 FORMAT = "snnconvert-events"
