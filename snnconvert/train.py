@@ -166,7 +166,8 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
     _write_history(history, out_dir / "history.csv")
     plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training")
     plot_confusion(cm, dataset.classes, out_dir / "confusion.png",
-                   f"frame model, test accuracy {100 * ev['accuracy']:.2f}% ({ev['correct']}/{ev['count']})")
+                   f"{'conversion-aware ' if aware_info else ''}frame model, test accuracy "
+                   f"{100 * ev['accuracy']:.2f}% ({ev['correct']}/{ev['count']})")
     return model, metrics
 
 
