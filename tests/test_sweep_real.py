@@ -130,3 +130,19 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
     r = recipe.load(out / "recipe.toml")
     assert (r["sweep"]["weight_bits"], r["sweep"]["payload_bits"], r["sweep"]["codings"]) == ([3], [1, 2],
                                                                                               ["payload", "ttfs"])
+
+
+def test_aware_point_fine_tunes_from_the_float_checkpoint(trained, tmp_path):
+    from snnconvert import train
+    train_dir, _ = trained
+    res = sweep.run_sweep(train_dir, "3", "2", aware=True, aware_epochs=1, jobs=1, out_dir=tmp_path / "aw",
+                          progress=False)
+    (rec,) = res.records
+    assert rec["key"] == "payload/w3/p2/per-tensor/aware1"
+    _, ckpt = train.load_checkpoint(train_dir)
+    # the recommendation compares with the float checkpoint, not with the fine-tuned model
+    assert res.frame_accuracy == ckpt["metrics"]["frame_accuracy"]
+    assert 0.0 <= rec["metrics"]["spike_accuracy"] <= 1.0 and rec["metrics"]["max_spikes_per_neuron"] <= 1
+    again = sweep.run_sweep(train_dir, "3", "2", aware=True, aware_epochs=1, jobs=1, out_dir=tmp_path / "aw2",
+                            progress=False)
+    assert again.records[0]["metrics"] == rec["metrics"]  # seeded: the same fine-tuning twice
