@@ -126,7 +126,7 @@ name = "tiny-report"
 seed = 0
 [data]
 limit = 300
-cache_dir = "cache"
+cache_dir = "{cache}"
 [model]
 layers = [
   {type = "conv", out = 4, kernel = 3, stride = 1, padding = 1, bn = false},
@@ -152,7 +152,7 @@ def test_report_of_a_real_run(tmp_path):
     import base64
 
     from snnconvert import pipeline
-    (tmp_path / "tiny.toml").write_text(TINY_RECIPE)
+    (tmp_path / "tiny.toml").write_text(TINY_RECIPE.replace("{cache}", str(tmp_path / "cache")))
     run = tmp_path / "run"
     pipeline.run(tmp_path / "tiny.toml", out=run)
     text, p = check_page(run / "report.html")
