@@ -1,7 +1,16 @@
-"""Bit-width sweep: convert + simulate the trained model at every (weight bits, payload bits, coding).
+"""Bit-width sweep: convert + simulate the trained model at every (coding, weight bits, payload bits).
 
-Recipe section [sweep]. Grids are written as ranges "2-8", lists "2,4,8", a mix "2-4,8",
-or TOML int lists [2, 4, 8].
+    loss_pp(point)   = 100 * (frame_accuracy - spike_accuracy(point))
+    recommendation   = argmin over {points with loss_pp <= tolerance_pp} of
+                       (weight_memory_bits, sops_per_sample)
+
+- Grids (recipe section [sweep], CLI): ranges "2-8", lists "2,4,8", a mix "2-4,8", TOML int lists.
+- Parallel: points run in joblib's loky worker processes, one torch thread each. A point's metrics
+  depend only on the point, the recipe (seed included) and the checkpoint, never on the worker.
+- Resumable: each finished point is appended to results.jsonl at once (flush + fsync); a rerun
+  skips the points already there. Lines made from another model, data set or [convert] settings
+  (fingerprints) are refused rather than mixed.
+- Outputs: sweep.csv, heatmap.png, pareto.png, recommendation.json, recipe.toml.
 """
 
 from __future__ import annotations
@@ -465,10 +474,6 @@ class SweepResult:
     computed: int                       # points evaluated in this call
     reused: int                         # points taken from results.jsonl
     fingerprints: dict = field(default_factory=dict)
-
-    @property
-    def rows(self) -> list[dict]:
-        return [_row(r) for r in self.records]
 
 
 def table_rows(records: list[dict], frame_accuracy: float, tolerance_pp: float) -> list[dict]:
