@@ -15,12 +15,14 @@
 
 from __future__ import annotations
 
+import collections
 import copy
 import csv
 import dataclasses
 import io
 import json
 import os
+import queue
 import re
 import time
 from dataclasses import dataclass, field
@@ -309,52 +311,95 @@ def _executor(n_jobs: int):
 
 def _warm() -> None:
     """Import what a point needs, so a worker's start overlaps the parent's loading."""
+    import sklearn.metrics  # noqa: F401  (about a CPU second on its own)
     import torch  # noqa: F401
+
     import snnconvert.convert  # noqa: F401
     import snnconvert.sim.metrics  # noqa: F401
 
 
 def start_workers(jobs=None) -> int:
-    """Start the worker processes of a sweep now (without waiting); returns the job count."""
+    """Start the worker processes of a sweep now, without waiting; returns the job count.
+
+    A sweep of n jobs uses n - 1 workers: this process evaluates points too.
+    """
     n_jobs = resolve_jobs(jobs)
     if n_jobs > 1:
-        ex = _executor(n_jobs)
-        for _ in range(n_jobs):
+        ex = _executor(n_jobs - 1)
+        for _ in range(n_jobs - 1):
             ex.submit(_warm)
     return n_jobs
+
+
+def _in_parallel(pending: list[dict], n_jobs: int, args: tuple):
+    """Yield `_call` results as points finish, from n_jobs - 1 loky workers and this process.
+
+    Workers take points from the end of the list, this process from the front; once the list is
+    empty this process takes back points still queued for a worker, so nobody idles at the end.
+    """
+    ex = _executor(n_jobs - 1)
+    todo = collections.deque(pending)
+    finished: queue.Queue = queue.Queue()
+    inflight: dict = {}   # future -> point
+
+    def submit():
+        while todo and len(inflight) < 2 * (n_jobs - 1):
+            p = todo.pop()
+            f = ex.submit(_call, *args, p)
+            inflight[f] = p
+            f.add_done_callback(finished.put)
+
+    def harvest(block: bool):
+        while inflight:
+            try:
+                f = finished.get(block=block)
+            except queue.Empty:
+                return
+            block = False
+            if inflight.pop(f, None) is not None and not f.cancelled():
+                yield f.result()
+
+    try:
+        submit()
+        while todo or inflight:
+            yield from harvest(block=False)
+            submit()
+            if todo:
+                yield _call(*args, todo.popleft())
+            elif inflight:
+                for f in [f for f in inflight if f.cancel()]:
+                    todo.append(inflight.pop(f))
+                if not todo:
+                    yield from harvest(block=True)
+    finally:  # on Ctrl-C or a failed point: queued points are dropped, finished ones were logged
+        for f in inflight:
+            f.cancel()
 
 
 def run_points(points: list[dict], fn: Callable, model, dataset, recipe: dict, act_max, log: ResultsLog,
                jobs=None, progress: bool = True) -> tuple[list[dict], int]:
     """Evaluate every point not yet in the log; return (records in grid order, number computed).
 
-    With more than one job the points run in joblib's loky worker processes and are logged in
-    the order they finish; each point's metrics do not depend on where it ran.
+    Each point is logged as soon as this process has it, in the order points finish; a point's
+    metrics do not depend on the process that computed it.
     """
-    from concurrent.futures import as_completed
     from tqdm import tqdm
     done = log.load()
     pending = [p for p in points if p["key"] not in done]
-    n_jobs = min(resolve_jobs(jobs), max(1, len(pending)))
-    futures = []
-    if n_jobs == 1:
-        results = (_call(fn, model, dataset, recipe, act_max, p) for p in pending)
+    n_jobs = resolve_jobs(jobs)
+    args = (fn, model, dataset, recipe, act_max)
+    if n_jobs == 1 or len(pending) < 2:
+        results = (_call(*args, p) for p in pending)
     else:
-        ex = _executor(resolve_jobs(jobs))
-        futures = [ex.submit(_call, fn, model, dataset, recipe, act_max, p) for p in pending]
-        results = (f.result() for f in as_completed(futures))
+        results = _in_parallel(pending, n_jobs, args)
     bar = tqdm(results, total=len(pending), desc="sweep", unit="point", disable=not progress or not pending)
-    try:
-        for point, metrics, timing in bar:
-            rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
-                   "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,
-                   "fingerprints": log.fingerprints, **timing}
-            log.append(rec)
-            done[point["key"]] = rec
-            bar.set_postfix_str(point["key"])
-    finally:
-        for f in futures:  # on Ctrl-C or a failed point: queued points are dropped, finished ones are logged
-            f.cancel()
+    for point, metrics, timing in bar:
+        rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
+               "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,
+               "fingerprints": log.fingerprints, **timing}
+        log.append(rec)
+        done[point["key"]] = rec
+        bar.set_postfix_str(point["key"])
     return [done[p["key"]] for p in points], len(pending)
 
 
