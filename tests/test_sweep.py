@@ -229,3 +229,20 @@ def test_cli_usage_errors(tmp_path, capsys, argv, message):
     argv = [a.replace("{tmp}", str(tmp_path)) for a in argv]
     assert main(argv) == 2
     assert capsys.readouterr().err == message.replace("{tmp}", str(tmp_path))
+
+
+def failing_point(model, dataset, recipe, act_max, point):
+    if point["weight_bits"] == 3:
+        raise RuntimeError("point w3 failed")
+    return fake_point(model, dataset, recipe, act_max, point)
+
+
+def test_parallel_run_keeps_finished_points_when_one_fails(tmp_path):
+    with pytest.raises(RuntimeError, match="point w3 failed"):
+        _run(tmp_path, point_fn=failing_point, jobs=2, weight_bits="2-4", payload_bits="1")
+    logged = [json.loads(x)["key"] for x in (tmp_path / "sw" / "results.jsonl").read_text().splitlines()]
+    assert "payload/w3/p1/per-tensor/post-training" not in logged and len(logged) <= 2
+    res = _run(tmp_path, jobs=2, weight_bits="2-4", payload_bits="1")  # resumes with the failure fixed
+    assert res.computed == 3 - len(logged) and [r["params"]["weight_bits"] for r in res.records] == [2, 3, 4]
+    again = _run(tmp_path / "again", jobs=1, weight_bits="2-4", payload_bits="1")
+    assert [(r["params"], r["metrics"]) for r in res.records] == [(r["params"], r["metrics"]) for r in again.records]
