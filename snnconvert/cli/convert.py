@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import argparse
 from pathlib import Path
 
 HELP = "convert a trained frame model into a single-spike integer network and measure the cost"
@@ -14,8 +15,8 @@ def add_arguments(p) -> None:
     p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's)")
     p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
     p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
-    p.add_argument("--input-clip", action="store_true", default=None,
-                   help="clip count-frame inputs to the payload width 2^p - 1")
+    p.add_argument("--input-clip", action=argparse.BooleanOptionalAction, default=None,
+                   help="clip count-frame inputs to the payload width 2^p - 1 (default: the recipe's, true)")
     p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")
     p.add_argument("--overflow", metavar="MODE", help="saturate | wrap, with a declared accumulator width")
     p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")

@@ -60,8 +60,9 @@ SCHEMA: dict[str, Key] = {
     "accumulator_bits": Key(0, "int", "0 = unlimited: use the worst-case width so nothing overflows", lo=0, hi=62),
     "overflow": Key("saturate", "choice", "saturation degrades gracefully where wrap-around flips signs",
                     choices=("saturate", "wrap")),
-    "input_clip": Key(False, "bool", "count frames keep their own width, as the frame model saw them; clipping them "
-                      "to p bits cost 15 pp at p = 3 on the default count frames (measured)"),
+    "input_clip": Key(True, "bool", "input events carry p-bit payloads like every other layer, so one datapath width "
+                      "serves all; false keeps count frames at their own width (clipping 15-count frames "
+                      "to p = 3 cost 15 pp, measured)"),
     "tolerance_pp": Key(0.5, "float", "half a percentage point is within test-set noise of the digits split",
                         lo=0.0, hi=100.0),
 }
@@ -85,7 +86,7 @@ def _check_settings(weight_bits, payload_bits, coding, per_channel, calibration,
 def convert(model, calib_x, *, weight_bits: int, payload_bits: int, coding: str, per_channel: bool = False,
             calibration: str = "percentile:99.9", weight_scale: str = "max", input_q: int = 1,
             multiplier_bits: int = 16, acc_limit_bits: int = 0, overflow: str = "saturate",
-            act_max=None, input_clip: bool = False, quiet: bool = True) -> IntNetwork:
+            act_max=None, input_clip: bool = True, quiet: bool = True) -> IntNetwork:
     """Frame model -> single-spike integer network: a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, 2^p - 1).
 
     `calib_x` (N, C, H, W) float frames are used whole (pick the subset with
