@@ -664,7 +664,7 @@ def write_outputs(result: SweepResult, recipe: dict | None = None) -> None:
 # --- entry points --------------------------------------------------------------------------
 
 def _fingerprints(model, dataset, recipe: dict) -> dict:
-    swept = {"coding", "weight_bits", "payload_bits", "per_channel"}
+    swept = {"coding", "weight_bits", "payload_bits", "per_channel", "tolerance_pp"}  # the last changes no metric
     settings = {k: v for k, v in recipe["convert"].items() if k not in swept}
     return {"model": files.fingerprint({k: v for k, v in model.state_dict().items()}),
             "data": str(dataset.fingerprint),
