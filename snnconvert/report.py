@@ -192,8 +192,11 @@ def _overview(run: Path) -> str:
                             "or the run stopped before its first stage finished."))
     else:
         items = stages.get("stages", stages) if isinstance(stages, dict) else {}
+        from snnconvert.pipeline import STAGES
+        items = items if isinstance(items, dict) else {}
+        rank = {n: i for i, n in enumerate(STAGES)}
         rows = []
-        for name, st in (items.items() if isinstance(items, dict) else []):
+        for name, st in sorted(items.items(), key=lambda kv: rank.get(kv[0], len(rank))):  # job order
             if isinstance(st, dict):
                 rows.append([name, st.get("status", ""), st.get("seconds", ""), st.get("fingerprint",
                                                                                       st.get("input_fingerprint", ""))])

@@ -171,3 +171,5 @@ def test_report_of_a_real_run(tmp_path):
     assert "Estimate, not a measurement." in section(text, "energy")
     assert "verify passed: 2 golden samples" in section(text, "export")
     assert len(re.findall(r"<img ", section(text, "confusion"))) == 2
+    stages = re.findall(r'<tr><td class="l">([a-z]+)</td><td>done</td>', section(text, "overview"))
+    assert stages == pipeline.STAGES[:-1]  # the report stage itself is still running when the page is made
