@@ -519,6 +519,7 @@ class SweepResult:
     computed: int                       # points evaluated in this call
     reused: int                         # points taken from results.jsonl
     fingerprints: dict = field(default_factory=dict)
+    seconds: dict = field(default_factory=dict)   # wall time of "load", "points", "outputs"
 
 
 def table_rows(records: list[dict], frame_accuracy: float, tolerance_pp: float) -> list[dict]:
@@ -692,6 +693,7 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
     replaces the real conversion (tests); `context=(model, ckpt, dataset)` skips loading.
     """
     train_dir = Path(train_dir)
+    t0 = time.perf_counter()
     if point_fn is None:
         start_workers(jobs)
     if context is None:
@@ -713,8 +715,10 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
     out = Path(out_dir) if out_dir is not None else base.parent / "sweep"
     fps = _fingerprints(model, dataset, recipe)
     log = ResultsLog(out / "results.jsonl", fps)
+    t1 = time.perf_counter()
     records, computed = run_points(points, point_fn or evaluate_point, model, _lean(dataset), recipe,
                                    ckpt.get("act_max"), log, jobs, progress)
+    t2 = time.perf_counter()
     frame = reference_accuracy(records, model, dataset)
     result = SweepResult(out, records, frame, tol, recommend(records, frame, tol), computed,
                          len(points) - computed, fps)
@@ -724,6 +728,8 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
         "codings": cods, "per_channel": per_channel, "aware": aware, "aware_epochs": aware_epochs,
         "jobs": jobs, "tolerance_pp": tol})
     write_outputs(result, recipe)
+    result.seconds = {"load": round(t1 - t0, 3), "points": round(t2 - t1, 3),
+                      "outputs": round(time.perf_counter() - t2, 3)}
     return result
 
 
