@@ -27,7 +27,7 @@ STAGE_LOG_VERSION = 1
 # What each stage reads: recipe sections, and the stages whose results it consumes.
 _READS = {
     "data": (["data", "frames"], []),
-    "train": (["model", "train", "convert"], ["data"]),
+    "train": (["model", "train"], ["data"]),       # + the bit budget, when training is conversion-aware
     "convert": (["convert"], ["train"]),
     "sweep": (["sweep", "convert"], ["train"]),
     "export": (["export"], ["convert"]),
@@ -80,7 +80,10 @@ class Run:
 
     def stage(self, name: str, fn) -> None:
         sections, deps = _READS[name]
-        fp = fingerprint(name, self.recipe.get("seed"), {s: self.recipe.get(s) for s in sections},
+        reads = {s: self.recipe.get(s) for s in sections}
+        if name == "train" and self.recipe["train"]["aware"]:
+            reads["budget"] = {k: self.recipe["convert"][k] for k in ("weight_bits", "payload_bits", "per_channel")}
+        fp = fingerprint(name, self.recipe.get("seed"), reads,
                          [self.fingerprints[d] for d in deps if d in self.fingerprints])
         self.fingerprints[name] = fp
         rec = self.log["stages"].get(name)

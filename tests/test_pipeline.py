@@ -1,0 +1,135 @@
+"""`snnconvert run`: the whole job end to end, stage reuse, and every shipped recipe (scaled down)."""
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from snnconvert.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+RECIPES = ROOT / "recipes"
+
+
+def _stage_actions(out: Path) -> dict:
+    log = json.loads((out / "stages.json").read_text())
+    return {k: v["last_action"] for k, v in log["stages"].items()}
+
+
+@pytest.mark.slow
+def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
+    out = tmp_path / "run"
+    args = ["run", str(RECIPES / "default.toml"), "--out", str(out),
+            "--set", f"data.cache_dir={tmp_path / 'cache'}",
+            "--set", "train.epochs=12",
+            "--set", "sweep.weight_bits=3,4", "--set", "sweep.payload_bits=2,4",
+            "--set", "export.vectors=4"]
+    assert main(args) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    for key in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement", "weight_bits",
+                "payload_bits", "coding", "spikes_per_sample", "sops_per_sample", "macs_per_sample",
+                "verify_passed", "recommended", "paths"):
+        assert key in summary, key
+    assert summary["verify_passed"] is True
+    for rel in summary["paths"].values():
+        assert (out / rel).exists(), rel
+    net_metrics = json.loads((out / "net" / "metrics.json").read_text())
+    assert net_metrics["max_spikes_per_neuron"] <= 1
+    assert summary["weight_bits"] == 4 and summary["payload_bits"] == 4 and summary["coding"] == "payload"
+    # the conversion costs at most the recipe's tolerance
+    tol = summary["tolerance_pp"]
+    assert 100 * (summary["frame_accuracy"] - summary["spike_accuracy"]) <= tol + 1e-9
+    assert set(_stage_actions(out).values()) == {"ran"}
+    html = (out / "report.html").read_text()
+    assert "data:image/png;base64," in html
+    out_text = capsys.readouterr().out
+    assert "summary of run 'default'" in out_text and "verify_passed" in out_text
+
+    # a second run with the same resolved recipe reuses every stage
+    assert main(args) == 0
+    assert set(_stage_actions(out).values()) == {"reused"}
+    assert json.loads((out / "summary.json").read_text())["stages"]["train"] == "reused"
+
+    # --force redoes that stage and every later one, and nothing before it
+    assert main(args + ["--force", "export"]) == 0
+    actions = _stage_actions(out)
+    assert actions["train"] == "reused" and actions["convert"] == "reused"
+    assert actions["export"] == actions["verify"] == actions["report"] == "ran"
+
+    # a changed key invalidates its stage and the stages after it
+    assert main(args + ["--set", "convert.weight_bits=5"]) == 0
+    actions = _stage_actions(out)
+    assert actions["data"] == actions["train"] == "reused"
+    assert actions["convert"] == "ran"
+
+
+@pytest.mark.parametrize("argv,message", [
+    (["run", "no/such/recipe.toml"], "no/such/recipe.toml"),
+    (["run", str(RECIPES / "default.toml"), "--force", "bogus"], "invalid choice: 'bogus'"),
+    (["run", str(RECIPES / "default.toml"), "--set", "convert.weight_bit=3"], "Did you mean 'weight_bits'?"),
+])
+def test_run_usage_errors_exit_2_with_one_line(argv, message, capsys, tmp_path):
+    assert main(argv + ["--out", str(tmp_path / "r")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and message in err and err.count("\n") == 1
+
+
+def test_idx_recipe_without_files_fails_cleanly(tmp_path, capsys):
+    code = main(["run", str(RECIPES / "idx_files.toml"), "--out", str(tmp_path / "r"),
+                 "--set", f"data.idx_images={tmp_path / 'missing-images'}"])
+    assert code == 2
+    last = capsys.readouterr().err.strip().splitlines()[-1]   # stage progress lines come first
+    assert last.startswith("error: ") and "missing-images" in last and "data.idx_images" in last
+
+
+@pytest.mark.slow
+def test_idx_recipe_runs_on_idx_files(tmp_path):
+    # IDX files written from scikit-learn's digits, upsampled to 16x16 (the standard IDX layout)
+    from snnconvert.data import digits_images, write_idx
+    images, labels = digits_images(16)
+    write_idx(tmp_path / "images-idx3-ubyte", np.round(images[:400] * 255).astype(np.uint8))
+    write_idx(tmp_path / "labels-idx1-ubyte", labels[:400].astype(np.uint8))
+    out = tmp_path / "run"
+    assert main(["run", str(RECIPES / "idx_files.toml"), "--out", str(out),
+                 "--set", f"data.idx_images={tmp_path / 'images-idx3-ubyte'}",
+                 "--set", f"data.idx_labels={tmp_path / 'labels-idx1-ubyte'}",
+                 "--set", f"data.cache_dir={tmp_path / 'cache'}", "--set", "train.epochs=3",
+                 "--set", "sweep.enabled=false", "--set", "export.vectors=2"]) == 0
+    assert json.loads((out / "summary.json").read_text())["verify_passed"] is True
+
+
+@pytest.mark.slow
+def test_recordings_recipe_runs_on_a_generated_folder(tmp_path):
+    folder = tmp_path / "recordings"
+    proc = subprocess.run([sys.executable, str(RECIPES / "make_recordings.py"), str(folder), "--per-class", "12"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    out = tmp_path / "run"
+    assert main(["run", str(RECIPES / "recordings.toml"), "--out", str(out),
+                 "--set", f"data.recordings_index={folder / 'index.csv'}",
+                 "--set", "train.epochs=3", "--set", "sweep.weight_bits=4", "--set", "sweep.payload_bits=2",
+                 "--set", "export.vectors=2"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["verify_passed"] is True and summary["recommended"] is not None
+
+
+@pytest.mark.slow
+def test_saccade_ttfs_recipe_runs(tmp_path):
+    out = tmp_path / "run"
+    assert main(["run", str(RECIPES / "saccade_ttfs.toml"), "--out", str(out),
+                 "--set", f"data.cache_dir={tmp_path / 'cache'}", "--set", "data.limit=300",
+                 "--set", "train.epochs=3", "--set", "train.aware_epochs=1",
+                 "--set", "sweep.weight_bits=3", "--set", "sweep.payload_bits=3",
+                 "--set", "export.vectors=2"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["coding"] == "ttfs" and summary["verify_passed"] is True
+    net = json.loads((out / "net" / "metrics.json").read_text())
+    assert net["max_spikes_per_neuron"] <= 1
+
+
+def test_recipes_folder_ships_the_four_scenarios():
+    names = sorted(p.name for p in RECIPES.glob("*.toml"))
+    assert names == ["default.toml", "idx_files.toml", "recordings.toml", "saccade_ttfs.toml"]
