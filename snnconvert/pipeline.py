@@ -158,6 +158,7 @@ def _data_stage(run_: Run) -> None:
     if example is not None:
         summary["example_recording"] = example
     atomic_write_json(d / "summary.json", summary)
+    recipe_mod.save(run_.recipe, d)
     _say(f"[data] {summary['samples']} samples, frames {tuple(ds.input_shape)}, "
          f"{events_per_frame:.1f} input events per frame (mean, train split)")
 

@@ -15,15 +15,15 @@ DEFAULT = M.DEFAULT_LAYERS
 def test_default_model_structure_params_and_macs(capsys):
     m = M.build_model({"layers": DEFAULT}, (1, 16, 16), 10)
     kinds = [type(x).__name__ for x in m]
-    assert kinds == ["Conv2d", "ReLU", "MaxPool2d", "Conv2d", "ReLU", "MaxPool2d", "Dropout", "Flatten", "Linear",
-                     "ReLU", "Linear"]
+    assert kinds == ["Conv2d", "ReLU", "Conv2d", "ReLU", "MaxPool2d", "Conv2d", "ReLU", "MaxPool2d", "Dropout",
+                     "Flatten", "Linear", "ReLU", "Linear"]
     d = M.describe(m, (1, 16, 16))
     # MACs by the usual count C_out*H_out*W_out*C_in*k*k per conv and in*out per dense (common practice):
-    # 16*16*16*1*25 + 32*8*8*16*9 + 512*64 + 64*10
-    assert d["macs"] == 102400 + 294912 + 32768 + 640
-    # (16*25 + 16) + (32*16*9 + 32) + (512*64 + 64) + (64*10 + 10)
-    assert d["params"] == sum(p.numel() for p in m.parameters()) == 416 + 4640 + 32832 + 650
-    assert "38,538 parameters, 430,720 multiply-accumulates per sample" in capsys.readouterr().err
+    # 16*16*16*1*9 + 16*16*16*16*9 + 32*8*8*16*9 + 512*64 + 64*10
+    assert d["macs"] == 36864 + 589824 + 294912 + 32768 + 640
+    # (16*9 + 16) + (16*16*9 + 16) + (32*16*9 + 32) + (512*64 + 64) + (64*10 + 10)
+    assert d["params"] == sum(p.numel() for p in m.parameters()) == 160 + 2320 + 4640 + 32832 + 650
+    assert "40,602 parameters, 955,008 multiply-accumulates per sample" in capsys.readouterr().err
 
 
 @pytest.mark.parametrize("layers,shape", [
