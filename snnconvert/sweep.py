@@ -231,12 +231,14 @@ def _call(fn: Callable, model, dataset, recipe: dict, act_max, point: dict) -> t
     Returns (point, metrics, timing) with wall and CPU seconds of this process for the point.
     """
     import torch
+    from threadpoolctl import threadpool_limits
     threads = torch.get_num_threads()
     torch.set_num_threads(1)
     torch.manual_seed(int(recipe.get("seed", 0)))
     t0, c0 = time.perf_counter(), time.process_time()
     try:
-        metrics = fn(model, dataset, recipe, act_max, point)
+        with threadpool_limits(limits=1):  # BLAS/OpenMP too: float sums in one fixed order
+            metrics = fn(model, dataset, recipe, act_max, point)
     finally:
         torch.set_num_threads(threads)
     return point, metrics, {"seconds": round(time.perf_counter() - t0, 3),
