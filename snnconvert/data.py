@@ -176,9 +176,13 @@ def write_idx(path, array) -> Path:
 
 
 # --- simulated recordings with a disk cache --------------------------------------------------
-def cache_dir(section: dict) -> Path:
-    d = section.get("cache_dir") or os.environ.get("SNNCONVERT_CACHE") or "~/.cache/snnconvert"
-    return Path(d).expanduser()
+def cache_dir(section: dict, base: Path | None = None) -> Path:
+    """The recordings cache: the recipe's cache_dir (relative to the recipe's folder), else
+    $SNNCONVERT_CACHE, else ~/.cache/snnconvert."""
+    if section.get("cache_dir"):
+        d = Path(section["cache_dir"]).expanduser()
+        return d if d.is_absolute() or base is None else Path(base) / d
+    return Path(os.environ.get("SNNCONVERT_CACHE") or "~/.cache/snnconvert").expanduser()
 
 
 def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, config: _sensor.SensorConfig,
@@ -348,7 +352,7 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
     if src == "digits":
         images, labels = digits_images(sec["sensor_size"])
         keep = _subset(labels, sec["limit"], seed)
-        recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed, cache_dir(sec))
+        recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed, cache_dir(sec, base))
         classes = [str(c) for c in range(10)]
         info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
     elif src == "idx":
@@ -368,7 +372,7 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         images = np.clip(images.astype(np.float64) / full, 0, 1)
         if sec["idx_mode"] == "sensor":
             recs, path, hit = simulate_cached(_resize(images, sec["sensor_size"]), labels, sec["stimulus"], config,
-                                              seed, cache_dir(sec))
+                                              seed, cache_dir(sec, base))
             info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
         else:
             recs = _binarized_recordings(images, labels, sec["binarize_level"])

@@ -26,6 +26,7 @@ def atomic_write_bytes(path, data: bytes) -> Path:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.fchmod(fd, 0o666 & ~_umask())  # mkstemp makes files owner-only; artifacts are for sharing
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
@@ -38,6 +39,12 @@ def atomic_write_bytes(path, data: bytes) -> Path:
             pass
         raise
     return path
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def atomic_write_text(path, text: str) -> Path:
