@@ -11,6 +11,7 @@ finished stages intact and the next run picks up where this one stopped.
 
 from __future__ import annotations
 
+import shutil
 import sys
 import time
 from pathlib import Path
@@ -206,7 +207,10 @@ def _sweep_stage(run_: Run) -> None:
 
 def _export_stage(run_: Run) -> None:
     from snnconvert.export import export_from_run
-    export_from_run(run_.out / "net", run_.out / "export", run_.recipe)
+    target = run_.out / "export"
+    if target.exists():  # an export of an older network, or one cut short by Ctrl-C: never mix the two
+        shutil.rmtree(target)
+    export_from_run(run_.out / "net", target, run_.recipe)
 
 
 def _verify_stage(run_: Run) -> None:

@@ -133,3 +133,29 @@ def test_saccade_ttfs_recipe_runs(tmp_path):
 def test_recipes_folder_ships_the_four_scenarios():
     names = sorted(p.name for p in RECIPES.glob("*.toml"))
     assert names == ["default.toml", "idx_files.toml", "recordings.toml", "saccade_ttfs.toml"]
+
+
+def test_interrupt_keeps_finished_stages_and_the_rerun_reuses_them(tmp_path, monkeypatch, capsys):
+    out = tmp_path / "run"
+    args = ["run", str(RECIPES / "default.toml"), "--out", str(out),
+            "--set", f"data.cache_dir={tmp_path / 'cache'}", "--set", "data.limit=300",
+            "--set", "train.epochs=2", "--set", "sweep.enabled=false", "--set", "export.vectors=2"]
+
+    from snnconvert import export as export_mod
+
+    def ctrl_c_mid_export(net_dir, out_dir, recipe, **kw):
+        out_dir.mkdir(parents=True)
+        (out_dir / "L0_conv0_weights.mem").write_text("// cut short\n")   # a half-written export
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(export_mod, "export_from_run", ctrl_c_mid_export)
+    assert main(args) == 130
+    assert "interrupted" in capsys.readouterr().err
+    log = json.loads((out / "stages.json").read_text())["stages"]
+    assert all(log[s]["status"] == "done" for s in ("data", "train", "convert"))
+    assert log["export"]["status"] == "running"
+    monkeypatch.undo()
+    assert main(args) == 0
+    actions = _stage_actions(out)
+    assert actions["data"] == actions["train"] == actions["convert"] == "reused"
+    assert actions["export"] == "ran"
