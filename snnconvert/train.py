@@ -56,6 +56,8 @@ SCHEMA: dict[str, Key] = {
     "shift": Key(1, "int", "shifting frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
     "event_dropout": Key(0.05, "float", "removing 5% of input events mimics sensor noise; 10-20% cost accuracy on digits",
                          lo=0.0, hi=0.9),
+    "activity_l1": Key(0.0, "float", "0 = off: the L1 penalty on hidden activations trades accuracy for fewer "
+                       "synaptic operations, so it is opt-in", lo=0.0, hi=100.0),
     "threads": Key(0, "int", "0 = auto: 1 thread for small models (thread hand-off dominates), else up to 2 cores",
                    lo=0, hi=256),
     "aware": Key(False, "bool", "conversion-aware fine-tuning is opt-in: plain float training is the baseline"),
@@ -306,6 +308,7 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
         opt = torch.optim.SGD(params, lr=lr, momentum=cfg["momentum"], weight_decay=cfg["weight_decay"])
     loss_fn = nn.CrossEntropyLoss()
     integral = bool(torch.equal(xtr, xtr.round()))
+    l1 = float(cfg.get("activity_l1", 0.0))
     best_acc, best_state, bad, history = -1.0, None, 0, []
     step = 0
     for epoch in range(epochs):
@@ -321,8 +324,12 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
             idx = perm[b * bs:(b + 1) * bs]
             xb = augment(xtr[idx], cfg["shift"], cfg["event_dropout"], gen, integral)  # (B, C, H, W)
             yb = ytr[idx]
-            out = model(xb)  # (B, classes)
-            loss = loss_fn(out, yb)
+            if l1:
+                out, act = forward_with_activity(model, xb)  # (B, classes), scalar
+                loss = loss_fn(out, yb) + l1 * act
+            else:
+                out = model(xb)  # (B, classes)
+                loss = loss_fn(out, yb)
             opt.zero_grad(set_to_none=True)
             loss.backward()
             opt.step()
@@ -360,6 +367,37 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
     model.load_state_dict(best_state)
     model.eval()
     return model, history
+
+
+def forward_with_activity(model: nn.Sequential, x: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    """(model(x), A) with A = sum_l f_l * mean_n ||a_l[n]||_1 / sum_l MACs_l, the synaptic-operation
+    share of the activity.
+
+    a_l is the tensor entering weighted layer l (conv/dense) after ReLU and pooling, f_l =
+    MACs_l / a_l[n].numel() the mean fan-out of one of its values, MACs_l the layer's dense
+    multiply-accumulates per sample. For binary-coded events ||a||_0 * f would be the SOPs; the
+    L1 norm is its usual convex stand-in (common practice for sparse spiking activity), so A
+    approximates SOPs / MACs. The first weighted layer's input is the data itself and is not
+    penalised; dropout is skipped so the penalty sees the activity the converted network will.
+    A model with a single weighted layer gives A = 0.
+    """
+    reg = x.new_zeros(())
+    total_macs, feed, seen_weighted = 0, x, False
+    for m in model:
+        y = m(x)
+        if isinstance(m, (nn.Conv2d, nn.Linear)):
+            fan_in = m.in_features if isinstance(m, nn.Linear) else \
+                m.in_channels // m.groups * m.kernel_size[0] * m.kernel_size[1]
+            macs_l = y[0].numel() * fan_in
+            total_macs += macs_l
+            if seen_weighted:
+                reg = reg + (macs_l / feed[0].numel()) * feed.abs().flatten(1).sum(1).mean()
+            seen_weighted = True
+            feed = y
+        elif not isinstance(m, nn.Dropout):
+            feed = y if feed is x else m(feed)  # after a dropout, follow the undropped tensor
+        x = y
+    return x, reg / max(total_macs, 1)
 
 
 def _lr_at(cfg, lr, step, total, epoch) -> float:

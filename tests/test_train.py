@@ -223,3 +223,50 @@ def test_default_recipe_cnn_vs_svc_on_the_same_split(tmp_path):
     print(f"frame CNN {100 * m['frame_accuracy']:.2f}% vs SVC(gamma=0.001) on 8x8 pixels {100 * svc_acc:.2f}% "
           f"({len(te)} test digits)")
     assert m["frame_accuracy"] >= svc_acc - SVC_MARGIN
+
+
+def test_activity_penalty_is_the_fanout_weighted_l1_share_of_macs():
+    torch.manual_seed(0)
+    m = torch.nn.Sequential(torch.nn.Conv2d(1, 3, 3, padding=1), torch.nn.ReLU(), torch.nn.MaxPool2d(2),
+                            torch.nn.Dropout(0.5), torch.nn.Flatten(), torch.nn.Linear(48, 5)).train()
+    x = torch.rand(2, 1, 8, 8)  # (N, C, H, W)
+    torch.manual_seed(1)
+    out, a = T.forward_with_activity(m, x)
+    torch.manual_seed(1)
+    assert torch.equal(out, m(x))  # same dropout draw: the penalty does not change the forward pass
+    # MACs by the usual count C_out*H_out*W_out*C_in*k*k per conv and in*out per dense (common practice):
+    conv_macs, dense_macs = 3 * 8 * 8 * 1 * 9, 48 * 5
+    pooled = torch.nn.functional.max_pool2d(torch.relu(m[0](x)), 2).flatten(1)  # (N, 48), before dropout
+    fan = dense_macs / 48  # each pooled value reaches the 5 dense units
+    expected = fan * pooled.abs().sum(1).mean() / (conv_macs + dense_macs)
+    assert torch.allclose(a, expected, rtol=1e-6)
+
+
+def test_activity_l1_lowers_the_mean_hidden_activation(ds, tmp_path):
+    def mean_activation(model):
+        acts, x = [], ds.test[0]
+        with torch.no_grad():
+            for mod in model:
+                x = mod(x)
+                if isinstance(mod, torch.nn.ReLU):
+                    acts.append(float(x.mean()))
+        return sum(acts) / len(acts)
+
+    plain, m0 = T.train(small_recipe(), ds, tmp_path / "plain", quiet=True)
+    sparse, m1 = T.train(small_recipe("train.activity_l1=5.0"), ds, tmp_path / "sparse", quiet=True)
+    a0, a1 = mean_activation(plain), mean_activation(sparse)
+    print(f"mean hidden activation: {a0:.4f} plain, {a1:.4f} with activity_l1=5.0; "
+          f"accuracy {m0['frame_accuracy']:.3f} vs {m1['frame_accuracy']:.3f}")
+    assert a1 < 0.7 * a0
+    again, _ = T.train(small_recipe("train.activity_l1=5.0"), ds, tmp_path / "again", quiet=True)
+    for k, v in sparse.state_dict().items():  # the penalty draws no random numbers of its own
+        assert torch.equal(v, again.state_dict()[k]), k
+
+
+@pytest.mark.parametrize("value,pattern", [
+    ("-0.1", r"The 'activity_l1' parameter of train must be a float in \[0.0, 100.0\]. Got -0.1 instead."),
+    ('"high"', r"'activity_l1' parameter of train must be a float"),
+])
+def test_activity_l1_is_validated(value, pattern):
+    with pytest.raises((UsageError, TypeError), match=pattern):
+        small_recipe(f"train.activity_l1={value}")
