@@ -56,8 +56,9 @@ SCHEMA: dict[str, Key] = {
     "shift": Key(1, "int", "shifting frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
     "event_dropout": Key(0.05, "float", "removing 5% of input events mimics sensor noise; 10-20% cost accuracy on digits",
                          lo=0.0, hi=0.9),
-    "activity_l1": Key(0.0, "float", "0 = off: the L1 penalty on hidden activations trades accuracy for fewer "
-                       "synaptic operations, so it is opt-in", lo=0.0, hi=100.0),
+    "activity_l1": Key(0.0, "float", "0 = off: the fan-out weighted L1 penalty on hidden activations (ramped in "
+                       "over the first quarter of the steps) trades accuracy for fewer synaptic operations, "
+                       "so it is opt-in", lo=0.0, hi=100.0),
     "threads": Key(0, "int", "0 = auto: 1 thread for small models (thread hand-off dominates), else up to 2 cores",
                    lo=0, hi=256),
     "aware": Key(False, "bool", "conversion-aware fine-tuning is opt-in: plain float training is the baseline"),
@@ -326,7 +327,9 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
             yb = ytr[idx]
             if l1:
                 out, act = forward_with_activity(model, xb)  # (B, classes), scalar
-                loss = loss_fn(out, yb) + l1 * act
+                # ramped in over the first quarter of the steps: a full penalty on a fresh network
+                # can silence a whole layer before the classifier learns (dead ReLUs never recover)
+                loss = loss_fn(out, yb) + l1 * min(1.0, 4.0 * step / total) * act
             else:
                 out = model(xb)  # (B, classes)
                 loss = loss_fn(out, yb)
