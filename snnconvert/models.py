@@ -337,6 +337,13 @@ class ClipQuant(nn.Module):
         return f"levels={self.levels}, a_max={float(self.a_max):.4g}, learn={self.a_max.requires_grad}"
 
 
+def weight_scale_of(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
+    """s_w per output channel, shape (O,): max|w| / (2^(k-1)-1) over the layer or each channel."""
+    flat = w.detach().abs().reshape(w.shape[0], -1)  # (O, fan_in)
+    r = flat.amax(dim=1) if per_channel else flat.amax().expand(w.shape[0])
+    return r.clamp_min(1e-12) / arith.weight_max(bits)
+
+
 def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
     """w_q = s * clamp(round(w * (1/s)), -(2^(k-1)-1), 2^(k-1)-1),  s = max|w| / (2^(k-1)-1)
     (max over the layer or over each output channel; the rule of `arith.weight_scale`;
@@ -345,9 +352,7 @@ def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Te
     An all-zero weight tensor gives s = 1e-12 / qmax and w_q = 0.
     """
     qm = arith.weight_max(bits)
-    flat = w.detach().abs().reshape(w.shape[0], -1)  # (O, fan_in)
-    r = flat.amax(dim=1) if per_channel else flat.amax().expand(w.shape[0])
-    s = (r.clamp_min(1e-12) / qm).reshape(-1, *[1] * (w.dim() - 1))  # (O, 1, ...)
+    s = weight_scale_of(w, bits, per_channel).reshape(-1, *[1] * (w.dim() - 1))  # (O, 1, ...)
     inv = 1.0 / s
     wq = torch.clamp(torch.round(w.detach() * inv), -qm, qm) * s
     return w + (wq - w).detach()
@@ -359,6 +364,23 @@ class _WeightQuant:
     def _init_quant(self, weight_bits: int, per_channel: bool) -> None:
         self.weight_bits = check_int(weight_bits, "weight_bits", type(self).__name__, 2, 16)
         self.per_channel = check_bool(per_channel, "per_channel", type(self).__name__)
+        # Where the input scale comes from, for the bias: [None] = integer frames (s_in = 1), or
+        # [ClipQuant] whose a_max/levels is s_in; divided by the sum-pool size in between.
+        # A plain list, so the ClipQuant is not registered twice as a submodule.
+        self._bias_src, self._bias_div = [None], 1
+
+    def quantized_bias(self):
+        """B_q = s_acc * round(b / s_acc), s_acc = s_w * s_in / n: the bias on the accumulator's
+        grid, as the integer network stores it (`arith.quantize_bias`); straight-through gradients.
+        With binary inputs (s_in = 1) that grid can be coarser than the output step, so training
+        has to see it."""
+        if self.bias is None:
+            return None
+        src = self._bias_src[0]
+        s_in = 1.0 if src is None else src.a_max.detach().clamp_min(1e-6) / src.levels
+        s_acc = weight_scale_of(self.weight, self.weight_bits, self.per_channel) * s_in / self._bias_div  # (O,)
+        bq = torch.round(self.bias.detach() / s_acc) * s_acc
+        return self.bias + (bq - self.bias).detach()
 
     def quantized_weight(self) -> torch.Tensor:
         return weight_fake_quant(self.weight, self.weight_bits, self.per_channel)
@@ -375,7 +397,7 @@ class QConv2d(_WeightQuant, nn.Conv2d):
         self._init_quant(weight_bits, per_channel)
 
     def forward(self, x):
-        return self._conv_forward(x, self.quantized_weight(), self.bias)
+        return self._conv_forward(x, self.quantized_weight(), self.quantized_bias())
 
 
 class QLinear(_WeightQuant, nn.Linear):
@@ -386,7 +408,7 @@ class QLinear(_WeightQuant, nn.Linear):
         self._init_quant(weight_bits, per_channel)
 
     def forward(self, x):
-        return nn.functional.linear(x, self.quantized_weight(), self.bias)
+        return nn.functional.linear(x, self.quantized_weight(), self.quantized_bias())
 
 
 def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_channel: bool,
@@ -409,21 +431,28 @@ def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_ch
             check_float(a, f"act_max[{j}]", "make_aware", 0.0, None, lo_open=True)
     levels = arith.payload_max(payload_bits)
     out, j = [], 0
+    src, div = None, 1      # the input scale seen by the next weighted layer's bias
     for m in folded:
         if isinstance(m, nn.Conv2d):
             q = QConv2d(m.in_channels, m.out_channels, m.kernel_size, m.stride, m.padding, m.dilation, m.groups,
                         m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
             q.load_state_dict(m.state_dict())
+            q._bias_src, q._bias_div = [src], div
             out.append(q)
         elif isinstance(m, nn.Linear):
             q = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
             q.load_state_dict(m.state_dict())
+            q._bias_src, q._bias_div = [src], div
             out.append(q)
         elif isinstance(m, (nn.ReLU, ClipQuant)):
             a = act_max[j] if act_max is not None else (float(m.a_max) if isinstance(m, ClipQuant) else 1.0)
             out.append(ClipQuant(a, levels, learn=learn_act_max))
+            src, div = out[-1], 1
             j += 1
         else:
+            if isinstance(m, nn.AvgPool2d):   # becomes a sum pool: the next layer sees n times the scale
+                k = m.kernel_size if isinstance(m.kernel_size, tuple) else (m.kernel_size, m.kernel_size)
+                div *= int(k[0]) * int(k[1])
             out.append(copy.deepcopy(m))
     aware = nn.Sequential(*out)
     aware.train(model.training)

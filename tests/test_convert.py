@@ -189,3 +189,33 @@ def test_percentile_weight_scale_clips_the_largest_weights():
     r = np.percentile(np.abs(w), 90)                                   # numpy's linear-interpolation percentile
     assert np.array(net.layers[0].info["s_w"]) == pytest.approx(r / 7)
     assert (np.abs(net.layers[0].weight) == 7).mean() >= 0.05          # ~10% of the weights clip to +-7
+
+
+@pytest.mark.parametrize("kind,wb,pb,per_channel", [("conv_max", 3, 3, False), ("conv_avg", 4, 2, True),
+                                                    ("mlp", 2, 2, False)])
+def test_aware_model_and_its_integer_network_agree_neuron_for_neuron(kind, wb, pb, per_channel):
+    # The aware model fake-quantizes weights, activations and the bias on the accumulator grid, so the
+    # integer network is the same function: every ClipQuant output / s_out equals the payload.
+    from snnconvert.models import ClipQuant, activation_ranges
+    base = trained(kind)
+    (xtr, _), (xte, _) = split()
+    ranges = activation_ranges(base, torch.from_numpy(xtr[:256]))
+    aware = make_aware(base, wb, pb, per_channel, act_max=ranges).eval()
+    net = convert(aware, xtr[:64], weight_bits=wb, payload_bits=pb, coding="payload", per_channel=per_channel)
+    acts = []
+    hooks = [m.register_forward_hook(lambda m_, i_, o_: acts.append(o_.detach())) for m in aware
+             if isinstance(m, ClipQuant)]
+    with torch.no_grad():
+        logits = aware(torch.from_numpy(xte))
+    for h in hooks:
+        h.remove()
+    res = simulate(net, arith.quantize_input(xte, net.input_q))
+    hidden = [i for i, L in enumerate(net.layers) if L.kind in ("conv", "dense") and not L.is_output]
+    assert len(hidden) == len(acts)
+    for a_float, i in zip(acts, hidden):
+        scaled = (a_float / net.layers[i].info["s_out"]).numpy().reshape(res.payloads[i].shape)
+        assert np.array_equal(np.rint(scaled).astype(np.int64), res.payloads[i]), net.layers[i].name
+    # the output potentials are the aware model's logits on the accumulator grid s_w * s_in
+    out = net.layers[-1]
+    s_acc = np.asarray(out.info["s_w"]) * out.info["s_in"]                 # (classes,)
+    assert np.allclose(res.potentials * s_acc, logits.numpy(), rtol=1e-5, atol=1e-4 * s_acc.max())
