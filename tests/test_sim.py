@@ -205,3 +205,20 @@ def test_fast_path_without_statistics_gives_the_same_decisions(kind, coding):
     slow = simulate(net, x, kernel="int64")
     assert np.array_equal(full.potentials, slow.potentials)
     assert all(np.array_equal(p, q) for p, q in zip(full.payloads, slow.payloads))
+
+
+@pytest.mark.parametrize("shape,kernel,stride,padding,dtype", [
+    ((3, 2, 16, 16), (2, 2), (2, 2), (0, 0), torch.float32),
+    ((3, 2, 9, 7), (2, 2), (2, 2), (0, 0), torch.float32),     # odd sides: the last row/column is dropped
+    ((2, 4, 12, 12), (3, 3), (3, 3), (0, 0), torch.float64),
+    ((2, 1, 8, 6), (2, 3), (2, 3), (0, 0), torch.float32),
+    ((2, 3, 10, 10), (3, 3), (2, 2), (1, 1), torch.float32),   # overlapping with padding: F.max_pool2d itself
+])
+def test_strided_max_pool_equals_torch_max_pool2d(shape, kernel, stride, padding, dtype):
+    from snnconvert.sim.vectorized import max_pool
+    g = torch.Generator().manual_seed(0)
+    x = torch.randint(-50, 50, shape, generator=g).to(dtype)
+    # torch's own max_pool2d is the reference
+    assert torch.equal(max_pool(x, kernel, stride, padding), torch.nn.functional.max_pool2d(x, kernel, stride, padding))
+    xi = x.to(torch.int64)
+    assert torch.equal(max_pool(xi, kernel, stride, padding).to(dtype), torch.nn.functional.max_pool2d(x, kernel, stride, padding))

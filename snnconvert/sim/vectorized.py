@@ -51,6 +51,24 @@ def _kernel_for(L: IntLayer, kernel: str) -> str:
     return "float32" if bound < 2**24 else "float64" if bound < 2**53 else "int64"
 
 
+def max_pool(a: torch.Tensor, kernel, stride, padding) -> torch.Tensor:
+    """Max pooling, exact for any dtype. Non-overlapping pools without padding (kernel == stride)
+    take the maximum of kh*kw strided views, several times faster on CPU than F.max_pool2d for
+    these shapes; anything else goes to F.max_pool2d. Rows and columns that do not fill a whole
+    window are dropped, as F.max_pool2d does."""
+    kh, kw = (int(k) for k in kernel)
+    if (kh, kw) != tuple(int(s) for s in stride) or any(int(p) for p in padding):
+        return F.max_pool2d(a, (kh, kw), tuple(stride), tuple(padding))
+    H, W = a.shape[-2] // kh * kh, a.shape[-1] // kw * kw
+    a = a[..., :H, :W]                                                           # (N, C, H, W) cropped
+    out = None
+    for i in range(kh):
+        for j in range(kw):
+            view = a[..., i::kh, j::kw]                                          # (N, C, H/kh, W/kw)
+            out = view if out is None else torch.maximum(out, view)
+    return out.contiguous() if out is not None else out
+
+
 def _conv_int64(a: np.ndarray, W: np.ndarray, stride, padding) -> np.ndarray:
     """Exact integer cross-correlation (the torch Conv2d convention), numpy int64."""
     ph, pw = padding
@@ -130,7 +148,7 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
         if L.kind == "maxpool" and pooled_early:
             pooled_early = False
         elif L.kind == "maxpool":   # max commutes with the monotone quantizer
-            a = F.max_pool2d(a, tuple(L.kernel), tuple(L.stride), tuple(L.padding))
+            a = max_pool(a, L.kernel, L.stride, L.padding)
         elif L.kind == "sumpool":
             a = F.avg_pool2d(a, tuple(L.kernel), tuple(L.stride), divisor_override=1)
         else:
@@ -153,7 +171,7 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
             nxt = net.layers[i + 1] if i + 1 < nL else None
             if fast and nxt is not None and nxt.kind == "maxpool" and not (stats or record):
                 # requantize is monotone in V, so pooling V first gives the same payloads on 1/n of the values
-                v = F.max_pool2d(v, tuple(nxt.kernel), tuple(nxt.stride), tuple(nxt.padding))
+                v = max_pool(v, nxt.kernel, nxt.stride, nxt.padding)
                 pooled_early = True
             if fast:
                 a = arith.requantize_float(v.to(torch.float64), L.m0, L.shift, L.q_out).to(torch.float32)  # (N, O, ...)
