@@ -38,6 +38,7 @@ def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
     net = IntNetwork.load(net_dir)
     assert (net.coding, net.weight_bits, net.payload_bits, net.per_channel) == ("ttfs", 3, 2, True)
     m = json.loads((net_dir / "metrics.json").read_text())
+    # single-spike code (Stanojevic et al. 2023); Horowitz 2014 figures are estimates
     assert m["max_spikes_per_neuron"] == 1 and m["energy_is_estimate"] is True and m["coding"] == "ttfs"
     conv = tomllib.loads((net_dir / "recipe.toml").read_text())["convert"]
     assert conv["weight_bits"] == 3 and conv["calibration"] == "max" and conv["per_channel"] is True

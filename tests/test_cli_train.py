@@ -49,6 +49,7 @@ def test_train_command_writes_outputs_and_summary(small_data, tmp_path, capsys):
      "error: The 'batch_size' parameter of train must be an int in [1, 65536]. Got 0 instead."),
     (["train", DEFAULT, "--set", "train.optimizer=rmsprop"],
      "error: The 'optimizer' parameter of train must be one of 'adam', 'sgd'. Got 'rmsprop' instead."),
+    # output side floor((H + 2p - k)/s) + 1 (torch.nn.Conv2d / MaxPool2d documentation): 16 -> 2 -> 0
     (["train", DEFAULT, "--set",
       "model.layers=[{type=\"conv\", out=4, kernel=15, padding=0}, {type=\"maxpool\", size=4}, {type=\"dense\"}]"],
      "error: model.layers[1] (maxpool) with kernel 4, stride 4, padding 0 cannot take input shape (4, 2, 2): "

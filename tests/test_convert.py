@@ -94,10 +94,14 @@ def test_maxpool_before_relu_is_reordered_exactly():
 
 def test_calibration_is_deterministic_and_uses_positive_values():
     idx = calibration_subset(1000, 7)
-    assert idx.tolist() == [0, 166, 333, 500, 666, 832, 999]      # 999*5/6 = 832.5 rounds half to even
+    # formula: round(i * 999 / 6) for i = 0..6, half to even like numpy (numpy documentation):
+    # 166.5 -> 166, 499.5 -> 500, 832.5 -> 832
+    assert idx.tolist() == [0, 166, 333, 500, 666, 832, 999]
+    assert idx.tolist() == np.round(np.linspace(0, 999, 7)).astype(int).tolist()  # numpy as reference
     v = np.array([0.0, 0.0, 0.0, 1.0, 2.0, 3.0, 4.0, -1.0])
+    # numpy's linear-interpolation median of the positive values 1..4 is 2.5 (numpy.percentile as reference)
     assert range_statistic(v, "percentile", 50.0) == np.percentile([1.0, 2.0, 3.0, 4.0], 50.0) == 2.5
-    assert range_statistic(v, "max", 100.0) == 4.0
+    assert range_statistic(v, "max", 100.0) == 4.0                # largest value of v (hand-computed)
     model = trained("mlp")
     (xtr, _), _ = split()
     r1 = activation_ranges(fold(model), xtr[:256], "percentile", 99.9)
@@ -123,8 +127,10 @@ def test_weights_are_symmetric_k_bit_and_biases_at_the_accumulator_scale(k, pc):
         if k == 2:
             assert set(np.unique(L.weight)) <= {-1, 0, 1}   # ternary
         s_w, s_in = np.array(L.info["s_w"]), L.info["s_in"]
+        # integer bias at the accumulator scale s_w * s_in (Jacob et al. 2018, from memory)
         assert np.array_equal(L.bias, np.rint(op.bias / (s_w * s_in)).astype(np.int64))
         m = np.array(L.info["multiplier"])
+        # 16-bit fixed-point multiplier M0 * 2^-n: relative error <= half an ulp = 2^-16 (Jacob et al. 2018, from memory)
         assert np.all(np.abs(L.m0 * 2.0 ** -L.shift - m) <= m * 2.0 ** -16 + 1e-300)
 
 
@@ -132,6 +138,9 @@ def test_sumpool_divides_the_next_multiplier_and_widens_its_input():
     net = convert(trained("conv_avg"), split()[0][0][:64], weight_bits=4, payload_bits=3, coding="payload")
     kinds = [L.kind for L in net.layers]
     assert kinds == ["conv", "sumpool", "conv", "sumpool", "dense", "dense"]
+    # hand-computed from the conv_avg layout (_convert_helpers): a 2x2 sum pool adds 4 payloads of at most
+    # 2^3 - 1 = 7; after two pools 16x16 -> 4x4 with 8 channels; the second conv has fan-in 6 * 3 * 3 and
+    # 4-bit weights of at most 2^3 - 1 = 7 (symmetric signed range, common practice)
     assert net.layers[2].q_in == 4 * 7 and net.layers[2].info["pool_divisor"] == 4
     assert net.layers[4].q_in == 4 * 7 and net.layers[4].in_shape == (8 * 4 * 4,)
     assert net.layers[2].acc_bits == arith.accumulator_bits(6 * 9, 7, 28, int(np.abs(net.layers[2].bias).max()))
@@ -161,13 +170,14 @@ def test_clipquant_ranges_are_used_and_count_frames_clip_to_the_payload():
     assert isinstance(model[2], ClipQuant)
     (xtr, _), (xte, yte) = split(binary=False)
     net = convert(model, xtr[:64], weight_bits=4, payload_bits=2, coding="payload", input_q=3)
+    # s_out = range / (2^p - 1) with p = 2 (formula: uniform payload grid)
     assert net.layers[0].info["range"] == 2.5 and net.layers[0].info["s_out"] == pytest.approx(2.5 / 3)
     net1 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3, input_clip=True)
-    assert net1.input_q == 1                                 # count frames clipped to what one bit carries
+    assert net1.input_q == 1                                 # count frames clipped to what one bit carries: 2^1 - 1
     assert convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3,
                    input_clip=False).input_q == 3            # or kept at the frame's own count width
     net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
-    assert net2.payload_bits == 1 and net2.layers[0].q_out == 1
+    assert net2.payload_bits == 1 and net2.layers[0].q_out == 1   # binary spikes: 1 bit, largest value 2^1 - 1
     acc = (simulate(net, arith.quantize_input(xte, 3)).decisions == yte).mean()
     assert acc >= accuracy(model, xte, yte) - 0.05
 
@@ -187,7 +197,7 @@ def test_percentile_weight_scale_clips_the_largest_weights():
     net = convert(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload", weight_scale="percentile:90")
     w = fold(model)[0].weight
     r = np.percentile(np.abs(w), 90)                                   # numpy's linear-interpolation percentile
-    assert np.array(net.layers[0].info["s_w"]) == pytest.approx(r / 7)
+    assert np.array(net.layers[0].info["s_w"]) == pytest.approx(r / 7)  # 4-bit symmetric max 2^3 - 1 = 7 (common practice)
     assert (np.abs(net.layers[0].weight) == 7).mean() >= 0.05          # ~10% of the weights clip to +-7
 
 

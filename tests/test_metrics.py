@@ -30,13 +30,13 @@ def test_counts_match_the_reference_simulator(kind, coding, pc, capsys):
     assert m["sops_per_sample"] == pytest.approx(np.mean([t.sops for t in traces]), rel=1e-12)
     n_events = [len(t.input_events) + sum(len(e) for e in t.layer_events if e is not None) for t in traces]
     assert m["spikes_per_sample"] == pytest.approx(np.mean(n_events), rel=1e-12)
-    assert m["max_spikes_per_neuron"] == 1
+    assert m["max_spikes_per_neuron"] == 1                          # single-spike code (Stanojevic et al. 2023)
     assert m["spike_accuracy"] == np.mean([t.decision == y for t, y in zip(traces, yte)])
     assert m["quantized_accuracy"] == m["spike_accuracy"]          # no declared accumulator width
     assert m["frame_accuracy"] == accuracy(model, xte, yte)
     assert m["conversion_loss_pp"] == pytest.approx(100 * (m["frame_accuracy"] - m["spike_accuracy"]))
     assert np.sum(m["confusion"]) == len(yte) and np.trace(m["confusion"]) == round(m["spike_accuracy"] * len(yte))
-    assert m["energy_is_estimate"] is True and "Horowitz 2014" in m["energy"]["source"]
+    assert m["energy_is_estimate"] is True and "Horowitz 2014" in m["energy"]["source"]  # source of the pJ table
     for name, bits in m["accumulator_bits"].items():
         assert m["max_abs_potential"][name] < 2 ** (bits - 1)       # the bound holds on data
     if coding == "ttfs":
@@ -53,13 +53,13 @@ def test_macs_memory_and_energy_follow_their_formulas():
     net = convert(model, xtr[:256], weight_bits=5, payload_bits=3, coding="payload")
     m = measure(model, net, xte[:50], yte[:50], quiet=True)
     assert m["macs_per_sample"] == 256 * 32 + 32 * 10             # dense MACs: in * out per Linear (common practice)
-    assert m["weight_memory_bits"] == (256 * 32 + 32 * 10) * 5
+    assert m["weight_memory_bits"] == (256 * 32 + 32 * 10) * 5      # weights x weight bits (common practice)
     e = m["energy"]
     widest = max(m["accumulator_bits"].values())
     add = 0.03 if widest <= 8 else 0.05 if widest <= 16 else 0.1   # Horowitz 2014: int8 / int16 / int32 add, pJ
     assert e["spike_pj_per_sample"] == pytest.approx(m["sops_per_sample"] * (add + 0.2))  # + int8 mult 0.2 pJ
     assert e["frame_pj_per_sample"] == pytest.approx(m["macs_per_sample"] * (3.7 + 0.9))  # fp32 mult + add, pJ
-    assert "energy (estimate)" in format_table(m)
+    assert "energy (estimate)" in format_table(m)                  # Horowitz 2014 figures are labelled estimates
 
 
 def test_declared_width_separates_spike_from_quantized_accuracy():

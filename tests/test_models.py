@@ -23,6 +23,7 @@ def test_default_model_structure_params_and_macs(capsys):
     assert d["macs"] == 36864 + 589824 + 294912 + 32768 + 640
     # (16*9 + 16) + (16*16*9 + 16) + (32*16*9 + 32) + (512*64 + 64) + (64*10 + 10)
     assert d["params"] == sum(p.numel() for p in m.parameters()) == 160 + 2320 + 4640 + 32832 + 650
+    # the two sums above: 160 + 2320 + 4640 + 32832 + 650 = 40,602 and 36864 + ... + 640 = 955,008
     assert "40,602 parameters, 955,008 multiply-accumulates per sample" in capsys.readouterr().err
 
 
@@ -66,6 +67,7 @@ def test_built_models_run_and_macs_match_the_formula(layers, shape):
      r"model\.layers\[0\] \(dense\) is the output layer: its units must equal the number of classes\. Got units=5 for 10 classes"),
     ([{"type": "conv", "out": 4, "kernel": 5, "padding": 0}, {"type": "conv", "out": 4, "kernel": 5, "padding": 0},
       {"type": "dense"}], (1, 8, 8), 10,
+     # output side floor((H + 2p - k)/s) + 1 (torch.nn.Conv2d documentation): 8 -> 4 -> 0
      r"model\.layers\[1\] \(conv\) with kernel 5, stride 1, padding 0 cannot take input shape \(4, 4, 4\): "
      r"output shape would be \(4, 0, 0\)"),
     ([{"type": "dense", "units": 8}, {"type": "conv", "out": 4}, {"type": "dense"}], (1, 8, 8), 10,
@@ -112,7 +114,10 @@ def test_hand_written_sequential_round_trips_through_its_spec():
     spec = M.spec_from_model(hand)
     rebuilt = M.build_model(spec, (2, 8, 8), 3, quiet=True)
     assert [type(a) for a in rebuilt] == [type(b) for b in hand]
-    rebuilt.load_state_dict(hand.state_dict())  # same keys and shapes
+    rebuilt.load_state_dict(hand.state_dict())  # strict: raises unless keys and shapes are the same
+    hand.eval(), rebuilt.eval()
+    x = torch.rand(3, 2, 8, 8, generator=torch.Generator().manual_seed(0))
+    assert torch.equal(rebuilt(x), hand(x))  # same layers, same order: the same function
 
 
 @pytest.mark.parametrize("bad,pattern", [
@@ -201,7 +206,7 @@ def test_make_aware_structure_and_values():
     assert [x.levels for x in a if isinstance(x, M.ClipQuant)] == [3, 3]
     assert all(x.weight_bits == 3 and x.per_channel for x in a if isinstance(x, (M.QConv2d, M.QLinear)))
     x = torch.rand(5, 1, 6, 6)
-    h = a[1](a[0](x))  # (5, 4, 6, 6) on the grid {0, 2/3, 4/3, 2}
+    h = a[1](a[0](x))  # (5, 4, 6, 6) on the grid step act_max / (2^2 - 1) = 2/3: {0, 2/3, 4/3, 2} (formula)
     assert set(torch.round(h * 1.5).unique().tolist()) <= {0.0, 1.0, 2.0, 3.0}
     # wide budgets and a generous clip make the aware model match the folded float model
     wide = M.make_aware(m, 16, 16, False, act_max=[100.0, 100.0]).eval()

@@ -105,7 +105,7 @@ def _conv_layer(rng, C, O, k, wmax, q, stride=1, pad=1, H=7):
 
 @pytest.mark.parametrize("C,O,k,wmax,q,stride,pad", [
     (2, 3, 3, 7, 15, 1, 1), (3, 2, 5, 127, 255, 2, 2), (1, 4, 3, 1, 1, 1, 0),
-    (64, 2, 3, 127, 255, 1, 1),   # bound 576*127*255 > 2^24: float64 kernel
+    (64, 2, 3, 127, 255, 1, 1),   # bound 576*127*255 > 2^24 (IEEE 754 binary32 has a 24-bit significand): float64 kernel
 ])
 @pytest.mark.parametrize("kernel", ["auto", "float64", "int64"])
 def test_integer_convolution_matches_scipy_correlate2d(C, O, k, wmax, q, stride, pad, kernel):
@@ -120,11 +120,13 @@ def test_integer_convolution_matches_scipy_correlate2d(C, O, k, wmax, q, stride,
                       for c in range(C))[::stride, ::stride]
             assert np.array_equal(z[n, o].numpy(), ref)
     if kernel == "auto":
+        # float32 holds every integer up to 2^24 exactly (IEEE 754-2008 binary32); only C = 64 exceeds it
         assert used == ("float64" if C == 64 else "float32")
 
 
 def test_float32_kernel_is_exact_just_below_its_bound():
-    # worst case F * max|W| * Q = 576 * 127 * 229 = 16,751,808 < 2^24 = 16,777,216: the auto kernel is
+    # worst case F * max|W| * Q = 576 * 127 * 229 = 16,751,808 < 2^24 = 16,777,216 (IEEE 754 binary32 exact
+    # integers; F = 64 * 3 * 3 = 576, hand-computed): the auto kernel is
     # float32; all-maximal inputs and weights hit the bound, and the result must equal int64
     rng = np.random.default_rng(1)
     L = _conv_layer(rng, 64, 2, 3, 127, 229)
@@ -134,7 +136,7 @@ def test_float32_kernel_is_exact_just_below_its_bound():
     z32, used = weighted_sum(L, torch.from_numpy(a), "auto")
     z64, _ = weighted_sum(L, torch.from_numpy(a), "int64")
     assert used == "float32" and torch.equal(z32.to(torch.int64), z64)
-    assert int(z32.abs().max()) == 576 * 127 * 229
+    assert int(z32.abs().max()) == 576 * 127 * 229   # all-maximal sample at the centre: F * max|W| * Q (formula)
 
 
 @pytest.mark.parametrize("mode", ["saturate", "wrap"])
@@ -185,8 +187,9 @@ def test_float_requantize_equals_the_integer_shift(mbits, vmax):
     v[0, :, 0] = 0
     m0, n = arith.fixed_point_multiplier(rng.random(4) * 0.01 + 1e-4, bits=mbits)
     v[1] = ((2 * rng.integers(0, 20, size=(4, 3)) + 1) << (n - 1)[:, None]) // np.maximum(m0, 1)[:, None]  # near halves
-    acc = int(np.ceil(np.log2(vmax + 1))) + 1
+    acc = int(np.ceil(np.log2(vmax + 1))) + 1                                    # magnitude bits plus a sign bit
     ok = arith.float_requantize_ok(acc, m0, n)
+    # float64 is exact on integers below 2^53 (IEEE 754-2008 binary64, 53-bit significand)
     assert ok == (vmax * int(m0.max()) + 2 ** (int(n.max()) - 1) < 2**53)
     if ok:
         want = arith.requantize(v, m0, n, 255)

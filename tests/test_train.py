@@ -145,17 +145,36 @@ def test_early_stopping_keeps_the_best_epoch(ds, tmp_path):
 
 
 @pytest.mark.parametrize("schedule,step,epoch,expected", [
-    ("constant", 50, 5, 0.01),
-    ("cosine", 0, 0, 0.01),                 # lr * (1 + cos(0)) / 2
+    ("constant", 50, 5, 0.01),              # the base lr at every step
+    ("cosine", 0, 0, 0.01),                 # cosine annealing lr * (1 + cos(pi * step / total)) / 2 (Loshchilov &
+                                            # Hutter 2017, SGDR, from memory): lr * (1 + cos(0)) / 2
     ("cosine", 50, 5, 0.005),               # half way: lr * (1 + cos(pi/2)) / 2
     ("cosine", 100, 9, 0.0),                # the end: lr * (1 + cos(pi)) / 2
-    ("step", 0, 9, 0.01),
+    ("step", 0, 9, 0.01),                   # step decay lr * gamma^floor(epoch / 10) (common practice)
     ("step", 0, 10, 0.001),                 # lr * 0.1^1
     ("step", 0, 25, 0.0001),                # lr * 0.1^2
 ])
 def test_learning_rate_schedules(schedule, step, epoch, expected):
     cfg = {"schedule": schedule, "step_epochs": 10, "step_gamma": 0.1}
     assert T._lr_at(cfg, 0.01, step, 100, epoch) == pytest.approx(expected, abs=1e-12)
+
+
+def test_cosine_and_step_schedules_equal_torch_schedulers():
+    # torch.optim.lr_scheduler.CosineAnnealingLR (eta_min=0) and StepLR as references, stepped once per step / epoch
+    def lrs(make, n):
+        opt = torch.optim.SGD([torch.zeros(1, requires_grad=True)], lr=0.01)
+        sched, out = make(opt), []
+        for _ in range(n):
+            out.append(opt.param_groups[0]["lr"])
+            opt.step()
+            sched.step()
+        return out
+    cos = lrs(lambda o: torch.optim.lr_scheduler.CosineAnnealingLR(o, T_max=100), 101)
+    cfg = {"schedule": "cosine", "step_epochs": 10, "step_gamma": 0.1}
+    assert [T._lr_at(cfg, 0.01, s, 100, 0) for s in range(101)] == pytest.approx(cos, abs=1e-12)
+    step = lrs(lambda o: torch.optim.lr_scheduler.StepLR(o, step_size=10, gamma=0.1), 30)
+    cfg = {"schedule": "step", "step_epochs": 10, "step_gamma": 0.1}
+    assert [T._lr_at(cfg, 0.01, 0, 100, e) for e in range(30)] == pytest.approx(step, rel=1e-12)
 
 
 def test_augment_shift_moves_events_without_wrapping():
@@ -184,7 +203,7 @@ def test_event_dropout_is_binomial_thinning():
 def test_plot_confusion_writes_png(tmp_path):
     cm = np.array([[5, 1], [0, 4]])
     path = T.plot_confusion(cm, ["a", "b"], tmp_path / "c.png", "title")
-    assert path.read_bytes()[:4] == b"\x89PNG"
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification)
 
 
 def test_training_from_init_checkpoint_and_hand_written_model(trained, ds, tmp_path):
