@@ -12,6 +12,7 @@ import io
 import json
 import os
 import tempfile
+import zipfile
 from pathlib import Path
 from typing import Any
 
@@ -88,11 +89,15 @@ def load_npz(path) -> dict[str, np.ndarray]:
     path = Path(path)
     if not path.is_file():
         raise UsageError(f"file not found: {path}")
+    with open(path, "rb") as fh:
+        magic = fh.read(4)
+    if magic not in (b"PK\x03\x04", b"PK\x05\x06"):   # zip local header / empty archive (ZIP format)
+        raise FormatError(f"{path}: not an NPZ archive (it does not start with a zip header)")
     try:
         with np.load(path, allow_pickle=False) as z:
             return {k: z[k] for k in z.files}
-    except (ValueError, OSError, EOFError) as exc:
-        raise FormatError(f"{path}: not a readable NPZ file ({exc})") from None
+    except (ValueError, OSError, EOFError, KeyError, zipfile.BadZipFile) as exc:
+        raise FormatError(f"{path}: not a readable NPZ file ({type(exc).__name__}: {exc})") from None
 
 
 def load_torch(path):

@@ -105,7 +105,17 @@ class IntNetwork:
 
     @classmethod
     def load(cls, folder) -> "IntNetwork":
-        folder = Path(folder)
+        """Read network.json + network.npz; any missing or malformed field is a FormatError naming it."""
+        try:
+            return cls._load(Path(folder))
+        except (KeyError, TypeError, ValueError, IndexError) as exc:
+            if isinstance(exc, FormatError):
+                raise
+            what = f"missing field {exc}" if isinstance(exc, KeyError) else f"{type(exc).__name__}: {exc}"
+            raise FormatError(f"{Path(folder) / 'network.json'}: malformed integer network ({what})") from None
+
+    @classmethod
+    def _load(cls, folder: Path) -> "IntNetwork":
         meta = load_json(folder / "network.json")
         if meta.get("format") != FORMAT:
             raise FormatError(f"{folder / 'network.json'}: not an snnconvert integer network (format={meta.get('format')!r})")

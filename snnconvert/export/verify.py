@@ -150,6 +150,9 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
                                     name=str(ck.folder / name))
             if vals.size != int(np.prod(shape)):
                 raise FormatError(f"{ck.folder / name}: depth {vals.size} does not match shape {list(shape)}")
+            if kind == "weight" and (d.get("weight_bits") != spec["bits"] or man.get("weight_bits") != spec["bits"]):
+                raise FormatError(f"{ck.folder / MANIFEST}: layer {d['id']}: 'weight_bits' {d.get('weight_bits')!r} "
+                                  f"(network {man.get('weight_bits')!r}) disagrees with its table's word width {spec['bits']}")
             arrays.setdefault(d["id"], {})[kind] = vals.reshape(shape)
             ck.words += vals.size
             copies = [(name, vals, lines)]
