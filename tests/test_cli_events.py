@@ -21,6 +21,9 @@ def rec(tmp_path):
     return tmp_path
 
 
+# hand-computed from the recording above: 102 events over 50 ms = 2040 events/s; the median rate is
+# 0, so the background is floored at 1 event per 1 ms bin = 1000 events/s and the relative thresholds
+# 8x / 2x give 8000 / 2000 events/s; the burst spans its first event to the end of its last 1 ms bin
 EXPECTED = """file      {f}
 events    102 (ON 51 = 50.0%, OFF 51)
 time      0 .. 50000 us (duration 50000 us)
@@ -44,15 +47,15 @@ def test_json(rec, capsys):
     out = json.loads(capsys.readouterr().out)
     assert {k: out[k] for k in ("events", "duration_us", "width", "height", "on", "off", "bursts")} == {
         "events": 102, "duration_us": 50000, "width": 34, "height": 34, "on": 51, "off": 51,
-        "bursts": [[20000, 21000, 100]]}
+        "bursts": [[20000, 21000, 100]]}  # hand-computed, as for EXPECTED
 
 
 def test_absolute_thresholds_and_plot(rec, capsys):
     png = rec / "out" / "r.png"
     assert main(["events", str(rec / "r.npz"), "--absolute", "--upper", "1e9", "--plot", str(png)]) == 0
     out = capsys.readouterr().out
-    assert "bursts    0 (upper 1000000000 events/s" in out and f"plot      {png}" in out
-    assert png.read_bytes()[:4] == b"\x89PNG"
+    assert "bursts    0 (upper 1000000000 events/s" in out and f"plot      {png}" in out  # 1e9 far above any rate here
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
 
 
 def test_empty_recording(tmp_path, capsys):
@@ -68,9 +71,11 @@ def test_empty_recording(tmp_path, capsys):
     (None, ["r.npz", "--bin-us", "0"], "error: --bin-us must be >= 1; got 0\n"),
     (None, ["r.npz", "--upper", "-1"], "error: --upper must be >= 0; got -1.0\n"),
     (None, ["r.txt"], "error: {d}/r.txt: unknown event file type '.txt'; use one of .npz, .csv, .bin\n"),
+    # 4 bytes: one event short of the 5-byte N-MNIST layout (Orchard et al. 2015)
     (b"\x05\x11\x80\x03", ["t.bin"], "error: {d}/t.bin: truncated: 4 bytes is not a multiple of 5; the last event "
                                      "starts at byte offset 0 and is incomplete\n"),
     (b"t,x,y,p\n1,2,3\n", ["c.csv"], "error: {d}/c.csv: line 2: expected 4 integers, got '1,2,3'\n"),
+    # hand-computed: event index 4 has x = 4 and starts at byte 4 * 5 = 20
     (None, ["r.bin", "--sensor", "4x4"], "error: {d}/r.bin: event field 'x' at index 4 is 4, outside the sensor "
                                          "(width 4) (byte offset 20)\n"),
 ])

@@ -19,34 +19,36 @@ def test_digits_facts():
     images, labels = D.digits_images(8)
     assert images.shape == (1797, 8, 8)
     assert np.bincount(labels).tolist() == [178, 182, 177, 183, 181, 182, 181, 179, 174, 180]
-    assert images.min() == 0.0 and images.max() == 1.0  # 0..16 scaled by 1/16
+    assert images.min() == 0.0 and images.max() == 1.0  # load_digits values 0..16 (REFERENCES.md) scaled by 1/16
 
 
 def test_upsampling_is_bilinear_with_corners_aligned():
     from scipy import ndimage
     images, _ = D.digits_images(32)
     small, _ = D.digits_images(8)
-    assert images.shape == (1797, 32, 32)
+    assert images.shape == (1797, 32, 32)  # 1,797 digits (scikit-learn load_digits, REFERENCES.md)
     assert np.allclose(images[:, 0, 0], small[:, 0, 0]) and np.allclose(images[:, -1, -1], small[:, -1, -1])
-    assert np.allclose(images[5], np.clip(ndimage.zoom(small[5], 4, order=1, grid_mode=False), 0, 1))
+    assert np.allclose(images[5], np.clip(ndimage.zoom(small[5], 4, order=1, grid_mode=False), 0, 1))  # scipy as reference
 
 
 def test_digits_dataset_split_cache_and_frames(tmp_path):
     r = recipe(tmp_path, limit=200)
     ds = D.load_dataset(r, progress=False)
     (xtr, ytr), (xva, yva), (xte, yte) = ds.train, ds.val, ds.test
+    # hand-computed: 200 samples with the default fractions val 0.1, test 0.2 -> 140 / 20 / 40
     assert (len(ytr), len(yva), len(yte)) == (140, 20, 40)
+    # the recipe defaults: binary frames (1 channel, input_q 1) of size 16
     assert xtr.dtype == np.float32 and ytr.dtype == np.int64 and xtr.shape[1:] == (1, 16, 16)
     assert ds.input_shape == (1, 16, 16) and ds.input_q == 1 and ds.classes == [str(i) for i in range(10)]
     assert set(np.unique(np.concatenate([xtr, xva, xte]))) <= {0.0, 1.0}
-    assert np.bincount(yte, minlength=10).tolist() == [4] * 10  # stratified
+    assert np.bincount(yte, minlength=10).tolist() == [4] * 10  # stratified: 40 test samples / 10 classes
     assert ds.info["cache_reused"] is False and ds.info["fallback_windows"] == 0
     again = D.load_dataset(r, progress=False)
     assert again.info["cache_reused"] is True and again.fingerprint == ds.fingerprint
     other = D.load_dataset({**r, "seed": 4}, progress=False)
     assert other.fingerprint != ds.fingerprint
     rec, label = ds.recordings[0]
-    assert len(rec) > 0 and rec.width == 32 and label == ds.recordings.labels[0]
+    assert len(rec) > 0 and rec.width == 32 and label == ds.recordings.labels[0]  # default sensor_size 32
 
 
 def test_corrupt_cache_is_replaced(tmp_path, capsys):
@@ -81,8 +83,10 @@ def test_idx_header_is_the_mnist_layout(tmp_path):
 
 @pytest.mark.parametrize("content, match", [
     (b"\x01\x00\x08\x01", r"magic number must start with 00 00"),
+    # IDX element types are 0x08 0x09 0x0B 0x0C 0x0D 0x0E (the MNIST database page, from memory)
     (b"\x00\x00\x07\x01\x00\x00\x00\x01\x00", r"byte offset 2: unknown IDX element type 0x07"),
     (b"\x00\x00\x08\x02\x00\x00", r"byte offset 3: 2 dimensions but the header is cut short"),
+    # hand-computed from the IDX layout: 4-byte magic + one 4-byte dim + 4 uint8 values = 12 bytes
     (b"\x00\x00\x08\x01\x00\x00\x00\x04\x01\x02", r"dims \(4,\) need 12 bytes but the file has 10"),
 ])
 def test_idx_errors(tmp_path, content, match):
@@ -105,14 +109,14 @@ def test_idx_dataset(tmp_path, mode, threshold):
                val_fraction=0.0, test_fraction=0.25)
     r["frames"] = {"threshold": threshold, "size": 8}
     ds = D.load_dataset(r, progress=False)
-    assert len(ds.train[1]) + len(ds.test[1]) == 60 and ds.input_shape == (1, 8, 8)
+    assert len(ds.train[1]) + len(ds.test[1]) == 60 and ds.input_shape == (1, 8, 8)  # the 60 images written, size 8
     if mode == "binarize":
         # one spike per pixel at or above half scale, frame at the image's own size
         images, _ = D.digits_images(8)
         expect = (images[:60] * 255).astype(np.uint8) / 255 >= 0.5  # the stored uint8 values
         rec0 = ds.recordings[0][0]
         assert len(rec0) == expect[0].sum() and np.all(rec0.t == 0)
-        assert ds.info["fallback_windows"] == 60
+        assert ds.info["fallback_windows"] == 60  # all events at t=0: no burst, every recording falls back
 
 
 @pytest.mark.parametrize("key, value, match", [
@@ -130,13 +134,14 @@ def test_idx_missing_files_name_the_key(tmp_path, key, value, match):
 def test_recordings_folder(tmp_path):
     index = D.write_demo_recordings(tmp_path / "recs", per_class=2, seed=1)
     lines = index.read_text().splitlines()
-    assert lines[0] == "file,label" and len(lines) == 21
+    assert lines[0] == "file,label" and len(lines) == 21  # hand-computed: header + 10 classes x 2 per class
     assert {l.split(",")[0].rsplit(".", 1)[1] for l in lines[1:]} == {"npz", "csv", "bin"}
     first = read_events(index.parent / lines[1].split(",")[0])
     assert first.width == 32 and len(first) > 0
     r = recipe(tmp_path, source="recordings", recordings_index="recs/index.csv", val_fraction=0.0,
                test_fraction=0.5)
     ds = D.load_dataset(r, progress=False)
+    # hand-computed: 20 recordings split in half
     assert ds.classes == [str(i) for i in range(10)] and len(ds.train[1]) == 10 and len(ds.test[1]) == 10
     assert ds.info["fallback_windows"] == 0
 

@@ -39,11 +39,12 @@ def test_bin_reader_matches_published_reader_formula():
 
 def test_bin_23_bit_wrap(tmp_path):
     # the timestamp field has 23 bits: it wraps at 2^23 us (REFERENCES.md)
-    assert WRAP_US == 8_388_608
+    assert WRAP_US == 8_388_608  # 2^23 us: the 23-bit timestamp field of the N-MNIST layout (REFERENCES.md)
     t = [WRAP_US - 2, WRAP_US - 1, WRAP_US, WRAP_US + 5, 2 * WRAP_US + 3]
     s = make(t, [1] * 5, [2] * 5, [1, -1, 1, -1, 1])
     raw = encode_bin(s)
-    assert raw[10:15] == bytes([1, 2, 0x80, 0, 0])  # t = 2^23 is stored as 0
+    # hand-computed from the 40-bit layout (Orchard et al. 2015): x=1, y=2, ON bit 23 set, t = 2^23 mod 2^23 = 0
+    assert raw[10:15] == bytes([1, 2, 0x80, 0, 0])
     write_events(s, tmp_path / "w.bin")
     assert read_events(tmp_path / "w.bin", sensor=(34, 34)) == s
 
@@ -95,9 +96,9 @@ def test_constructor_checks_dtype_and_ranges():
 
 def test_sort_and_zero_one_polarity():
     s = make([5, 3, 3], [1, 2, 3], [0, 0, 0], [0, 1, 0], sort=True)
-    assert s.t.tolist() == [3, 3, 5]
+    assert s.t.tolist() == [3, 3, 5]  # hand-computed: the input times sorted
     assert s.x.tolist() == [2, 3, 1]  # stable: equal times keep their order
-    assert s.p.tolist() == [1, -1, -1]
+    assert s.p.tolist() == [1, -1, -1]  # 1/0 polarity as in the N-MNIST layout (1 = ON, 0 = OFF), stored as +1/-1
 
 
 def test_empty_stream_reports_empty(tmp_path):
@@ -111,7 +112,7 @@ def test_empty_stream_reports_empty(tmp_path):
 
 def test_slice_time_half_open():
     s = make([0, 10, 10, 20], [0, 1, 2, 3], [0] * 4, [1] * 4)
-    assert s.slice_time(10, 20).x.tolist() == [1, 2]
+    assert s.slice_time(10, 20).x.tolist() == [1, 2]  # hand-computed: [10, 20) holds the two events at t=10
 
 
 # --- files -----------------------------------------------------------------------------------
@@ -136,19 +137,20 @@ def test_csv_any_column_order(tmp_path):
     f = tmp_path / "c.csv"
     f.write_text("p,y,x,t\n1,2,3,100\n0,1,1,200\n")
     s = read_events(f, sensor=(8, 8))
+    # hand-computed: the columns read by name; p=0 means OFF (-1)
     assert (s.t.tolist(), s.x.tolist(), s.y.tolist(), s.p.tolist()) == ([100, 200], [3, 1], [2, 1], [1, -1])
 
 
 def test_bin_truncated_names_offset(tmp_path):
     f = tmp_path / "t.bin"
-    f.write_bytes(bytes.fromhex("05118003E8") + b"\x00\x01")
+    f.write_bytes(bytes.fromhex("05118003E8") + b"\x00\x01")  # one 5-byte event + 2 stray bytes (N-MNIST layout)
     with pytest.raises(FormatError, match=r"t.bin: truncated: 7 bytes is not a multiple of 5; .*byte offset 5"):
         read_events(f)
 
 
 def test_bin_event_outside_given_sensor_names_offset(tmp_path):
     f = tmp_path / "o.bin"
-    f.write_bytes(bytes.fromhex("05118003E8" "40118003E9"))
+    f.write_bytes(bytes.fromhex("05118003E8" "40118003E9"))  # 2nd event: x = 0x40 = 64, at byte 5 (5 bytes/event)
     with pytest.raises(FormatError, match=r"field 'x' at index 1 is 64.*byte offset 5"):
         read_events(f, sensor=(34, 34))
 
@@ -236,3 +238,8 @@ def test_random_bytes_only_raise_format_error(tmp_path, data, suffix, sensor):
     except FormatError:
         return
     assert isinstance(s, EventStream)
+    # what is accepted must be a valid stream: time-ordered, inside the sensor, polarity +1/-1
+    assert np.all(np.diff(s.t) >= 0) and np.all(s.x < s.width) and np.all(s.y < s.height)
+    assert set(np.unique(s.p).tolist()) <= {1, -1}
+    if suffix == ".bin":
+        assert len(s) == len(data) // 5  # 5 bytes per event (N-MNIST layout, Orchard et al. 2015)

@@ -17,7 +17,7 @@ def test_atomic_write_leaves_no_temp_file_and_is_readable_by_others(tmp_path):
     assert [q.name for q in p.parent.iterdir()] == ["b.txt"]
     umask = os.umask(0)
     os.umask(umask)
-    assert os.stat(p).st_mode & 0o777 == 0o666 & ~umask
+    assert os.stat(p).st_mode & 0o777 == 0o666 & ~umask  # a new file's mode 0666 less the umask (POSIX open(2))
 
 
 @pytest.mark.parametrize("rel,ok", [("x.npz", True), ("sub/x.npz", True), ("../x.npz", False),
@@ -39,6 +39,10 @@ def test_npz_with_pickled_objects_is_refused(tmp_path):
 def test_fingerprint_is_by_value():
     assert fingerprint(np.arange(4), {"a": 1}) == fingerprint(np.arange(4), {"a": 1})
     assert fingerprint(np.arange(4)) != fingerprint(np.arange(4).astype(np.int32))
+    # a changed value changes the hash (sha256-based), equal values in new objects do not
+    assert fingerprint(np.arange(4), {"a": 1}) != fingerprint(np.arange(4), {"a": 2})
+    assert fingerprint(np.arange(4)) != fingerprint(np.arange(1, 5))
+    assert len(fingerprint(np.arange(4))) == 16 and int(fingerprint(np.arange(4)), 16) >= 0  # the toolkit's short form: 16 hex digits of sha256
 
 
 def test_relative_cache_dir_resolves_against_the_recipe_folder(monkeypatch):

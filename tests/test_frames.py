@@ -40,8 +40,18 @@ def test_uneven_subsampling_keeps_every_event():
     s = rand_stream(3000, 34, 34)
     got = F.bin_window(s, 0, 10_000, "count", 16, 1, 255)
     assert got.sum() == len(s)
-    edges = np.arange(34) * 16 // 34
-    assert set(np.bincount(edges).tolist()) == {2, 3}
+    # one event on every sensor column of row 0: a target pixel's count is the number of sensor
+    # columns it gathers, floor(34/16) = 2 or ceil(34/16) = 3 (hand-computed), 34 in all
+    row = EventStream.from_arrays(np.zeros(34, np.int64), np.arange(34), np.zeros(34, np.int64),
+                                  np.ones(34, np.int64), 34, 34)
+    per_target = F.bin_window(row, 0, 1, "count", 16, 1, 255)[0, 0]
+    assert set(per_target.tolist()) == {2.0, 3.0} and per_target.sum() == 34
+    # and against numpy's histogram2d with the same 2-or-3 pixel groups (x*16//34)
+    full, _, _ = np.histogram2d(s.y, s.x, bins=[np.arange(35), np.arange(35)])
+    group = np.arange(34) * 16 // 34
+    ref = np.zeros((16, 16))
+    np.add.at(ref, (group[:, None], group[None, :]), full)
+    assert np.array_equal(got[0], np.minimum(ref, 255))
 
 
 @settings(max_examples=40, deadline=None)
@@ -62,8 +72,9 @@ def test_polarity_channels_and_clip():
     s = EventStream.from_arrays([0, 1, 2, 3, 4, 5], [0, 0, 0, 0, 1, 1], [0] * 6, [1, 1, 1, -1, -1, 1], 2, 1)
     f = F.bin_window(s, 0, 10, "polarity", 2, 1, 2)
     assert f.shape == (2, 2, 2)
-    assert f[0, 0].tolist() == [2, 1] and f[1, 0].tolist() == [1, 1]  # ON clipped at max_count=2
-    assert F.bin_window(s, 0, 3, "count", 2, 1, 9)[0, 0].tolist() == [3, 0]  # window is [t0, t1)
+    # hand-computed from the six events: x=0 has ON 3 (clipped at max_count=2) and OFF 1; x=1 has ON 1, OFF 1
+    assert f[0, 0].tolist() == [2, 1] and f[1, 0].tolist() == [1, 1]
+    assert F.bin_window(s, 0, 3, "count", 2, 1, 9)[0, 0].tolist() == [3, 0]  # hand-computed: [0, 3) holds t=0,1,2 at x=0
 
 
 def test_bin_windows_equals_single_windows():
@@ -77,6 +88,8 @@ def test_bin_windows_equals_single_windows():
 
 
 def test_input_q_and_channels():
+    # the frame definitions (module docstring): binary holds 0/1, count holds 0..max_count;
+    # polarity has ON and OFF channels
     assert F.input_q("binary", 9) == 1 and F.input_q("count", 9) == 9
     assert F.channels("polarity") == 2 and F.channels("binary") == 1
 
@@ -95,7 +108,7 @@ def test_validation(kw, match):
 def test_frame_window_falls_back_to_all_events():
     s = EventStream.from_arrays([0] * 5, [0, 1, 2, 3, 4], [0] * 5, [1] * 5, 8, 8)  # one instant: no burst
     (a, b), ok = F.frame_window(s, {})
-    assert not ok and (a, b) == (0, 1)
+    assert not ok and (a, b) == (0, 1)  # hand-computed: all events, [t_first, t_last + 1) = [0, 1)
 
 
 def test_plots_write_png(tmp_path):
@@ -104,7 +117,7 @@ def test_plots_write_png(tmp_path):
     wins = W.bursts(s, relative=False, upper=10.0, lower=5.0)
     fr = [F.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in wins]
     p = F.plot_recording(s, wins, W.rate_trace(s), fr, tmp_path / "r.png", thresholds=(10.0, 5.0))
-    assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, ISO/IEC 15948 §5.2)
     X = np.random.default_rng(0).integers(0, 2, (20, 1, 8, 8)).astype(np.float32)
     q = F.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))
-    assert q.read_bytes()[:4] == b"\x89PNG"
+    assert q.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)

@@ -72,6 +72,7 @@ def test_toml_syntax_error_names_file_and_line(tmp_path):
     ("seed=3", None, "seed", 3),
     ("name=other", None, "name", "other"),
     ("model.layers=[{type=\"conv\", out=4}, {type=\"dense\"}]", "model", "layers",
+     # the layer schema's defaults fill in: 3x3 kernel, stride 1, padding 1 ("same" size; common practice)
      [{"type": "conv", "out": 4, "kernel": 3, "stride": 1, "padding": 1, "bn": False}, {"type": "dense", "bn": False}]),
 ])
 def test_overrides_apply_with_toml_values(override, section, key, expected):
@@ -102,7 +103,7 @@ def test_dumps_round_trips_through_tomllib(tmp_path):
     back = R.load(path)
     back["_base_dir"] = r["_base_dir"]
     back["name"] = r["name"]  # the saved file's stem is "recipe"; the name travels inside it
-    assert tomllib.loads(text)["name"] == "default"
+    assert tomllib.loads(text)["name"] == "default"  # the stem of recipes/default.toml; tomllib as the reference parser
     assert back == r
 
 
@@ -117,10 +118,11 @@ def test_toml_writer_values_parse_back_identically(value):
 
 
 def test_toml_writer_special_floats_and_refusals():
+    # TOML 1.0 has inf, -inf and nan floats; tomllib as the reference parser
     parsed = tomllib.loads(R.dumps({"s": {"a": math.inf, "b": -math.inf, "c": math.nan}}))["s"]
     assert parsed["a"] == math.inf and parsed["b"] == -math.inf and math.isnan(parsed["c"])
     with pytest.raises(TypeError, match=r"recipe value s\.x = None \(NoneType\) has no TOML form"):
-        R.dumps({"s": {"x": None}})
+        R.dumps({"s": {"x": None}})  # TOML 1.0 has no null value
 
 
 def test_fingerprint_depends_only_on_chosen_sections():

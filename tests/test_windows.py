@@ -27,8 +27,8 @@ def bursty(seed=0):
 def test_rate_trace_matches_direct_count():
     s = stream_from_times(np.random.default_rng(1).integers(0, 20_000, 300))
     tk, rate = W.rate_trace(s, bin_us=1000)
-    assert np.all(np.diff(tk) == 250) and tk[0] == s.t[0]
-    direct = np.array([np.count_nonzero((s.t >= a) & (s.t < a + 1000)) for a in tk])  # plain definition
+    assert np.all(np.diff(tk) == 250) and tk[0] == s.t[0]  # the toolkit's documented slide: bin_us / 4 = 250 us
+    direct = np.array([np.count_nonzero((s.t >= a) & (s.t < a + 1000)) for a in tk])  # plain definition: events in [t, t+bin)
     assert np.array_equal(np.rint(rate * 1000 / 1e6).astype(int), direct)
     assert tk[-1] + 1000 > s.t[-1]
 
@@ -38,18 +38,20 @@ def test_bursts_found_around_the_dense_parts():
     found = W.bursts(s, bin_us=1000, upper=8, lower=2)
     assert len(found) == 2
     (a0, a1), (b0, b1) = found
+    # hand-computed from the construction of bursty(): bursts at 20-23 ms and 60-62 ms, edges within one
+    # 1 ms rate bin (+ half a bin of slack at the end)
     assert 19_000 <= a0 <= 20_100 and 23_000 <= a1 <= 24_500
     assert 59_000 <= b0 <= 60_100 and 62_000 <= b1 <= 63_500
     # every burst event is inside a burst
     inside = sum(np.count_nonzero((s.t >= x) & (s.t < y)) for x, y in found)
-    assert inside >= 1000
+    assert inside >= 1000  # hand-computed: 600 + 400 burst events in bursty()
 
 
 @pytest.mark.parametrize("kw, n", [
-    (dict(merge_gap_us=40_000), 1),            # gap of ~37 ms merged
-    (dict(min_duration_us=2_800), 1),          # the 2 ms burst is too short
-    (dict(relative=False, upper=150_000.0, lower=20_000.0), 2),  # absolute: 200k and 200k events/s peaks
-    (dict(relative=False, upper=1e9, lower=1.0), 0),
+    (dict(merge_gap_us=40_000), 1),            # gap of ~37 ms (23 -> 60 ms) merged: hand-computed from bursty()
+    (dict(min_duration_us=2_800), 1),          # the 2 ms burst is too short (hand-computed from bursty())
+    (dict(relative=False, upper=150_000.0, lower=20_000.0), 2),  # absolute: 600/3 ms and 400/2 ms = 200k events/s peaks
+    (dict(relative=False, upper=1e9, lower=1.0), 0),  # 1e9 events/s: far above the 200k events/s peaks
 ])
 def test_burst_parameters(kw, n):
     assert len(W.bursts(bursty(), **kw)) == n
@@ -63,6 +65,7 @@ def test_hysteresis_keeps_burst_through_dip_above_lower():
                         np.arange(40_000, 42_000, 100)])     # 10k/s: above lower, never above upper
     s = stream_from_times(t)
     found = W.bursts(s, relative=False, upper=100_000.0, lower=5_000.0, merge_gap_us=0)
+    # hand-computed from the times above: starts at the first burst event, ends within one 1 ms bin of 16 ms
     assert len(found) == 1 and found[0][0] == 10_000 and 16_000 <= found[0][1] <= 17_000
 
 
@@ -75,7 +78,7 @@ def test_empty_and_silent():
 def test_fixed_windows_cover_every_event_once():
     s = stream_from_times(np.random.default_rng(2).integers(0, 10_000, 200))
     wins = W.fixed_windows(s, 1000)
-    assert all(b - a == 1000 for a, b in wins)
+    assert all(b - a == 1000 for a, b in wins)  # the requested width
     counts = [np.count_nonzero((s.t >= a) & (s.t < b)) for a, b in wins]
     assert sum(counts) == len(s)
 
@@ -95,7 +98,7 @@ def test_pick_rules():
     s = bursty()
     found = W.bursts(s)
     assert W.pick(s, found, "first") == found[0]
-    assert W.pick(s, [(0, 100), (20_000, 23_000)], "largest") == (20_000, 23_000)
+    assert W.pick(s, [(0, 100), (20_000, 23_000)], "largest") == (20_000, 23_000)  # 600 burst events vs ~0 (bursty())
     assert W.pick(s, [], "first") is None
 
 
