@@ -66,10 +66,10 @@ def test_hex_digits_is_ceil_bits_over_4(bits, digits):
 
 @pytest.mark.parametrize("values,bits,words", [
     ([-1, 0, 1], 4, ["f", "0", "1"]),              # two's complement of -1 in 4 bits is 1111 (common practice)
-    ([-3, 3], 6, ["3d", "03"]),                    # -3 = 2^6 - 3 = 61 = 0x3d
-    ([-8, 7], 4, ["8", "7"]),                      # the full 4-bit signed range
-    ([-128, 127, -1], 8, ["80", "7f", "ff"]),
-    ([-256], 9, ["100"]),                          # 9 bits: 3 digits, top digit holds one bit
+    ([-3, 3], 6, ["3d", "03"]),                    # two's complement: -3 -> 2^6 - 3 = 61 = 0x3d (common practice)
+    ([-8, 7], 4, ["8", "7"]),                      # full 4-bit range [-2^3, 2^3 - 1]: 1000, 0111 (common practice)
+    ([-128, 127, -1], 8, ["80", "7f", "ff"]),      # 8-bit two's complement: 2^8 - 128, 127, 2^8 - 1 (common practice)
+    ([-256], 9, ["100"]),                          # 2^9 - 256 = 0x100; 9 bits: ceil(9/4) = 3 digits (common practice)
 ])
 def test_format_mem_twos_complement(values, bits, words):
     text = MF.format_mem(values, bits, True, ["t"])
@@ -85,16 +85,19 @@ def test_format_mem_refuses_values_wider_than_the_word(values, bits, signed):
 
 
 @pytest.mark.parametrize("text,values", [
-    ("// c\n1\n2\n3\n", [1, 2, 3]),
-    ("1 2\n3 // tail comment\n", [1, 2, 3]),
-    ("/* block\n comment */ 1\n2\n3", [1, 2, 3]),
+    ("// c\n1\n2\n3\n", [1, 2, 3]),                # // comments and whitespace (IEEE 1364-2005 17.2.9)
+    ("1 2\n3 // tail comment\n", [1, 2, 3]),      # any whitespace separates words (same source)
+    ("/* block\n comment */ 1\n2\n3", [1, 2, 3]),  # /* */ comments (same source)
     ("@2 3\n@0 1 2\n", [1, 2, 3]),                 # @hhhh address lines (IEEE 1364-2005 17.2.9)
-    ("F\nE\n0_1\n", [-1, -2, 1]),                  # underscores are allowed in Verilog numbers
+    ("F\nE\n0_1\n", [-1, -2, 1]),                  # 4-bit two's complement F=-1, E=-2 (common practice);
+                                                   # underscores are allowed in Verilog numbers
+                                                   # (IEEE 1364-2005 3.5.1, from memory)
 ])
 def test_parse_mem_accepts_what_readmemh_reads(text, values):
     assert MF.parse_mem(text, 4, True, 3)[0].tolist() == values
 
 
+# the project's own messages; line numbers and addresses hand-counted in each text (depth 3, 4-bit words)
 @pytest.mark.parametrize("text,match", [
     ("1\n2\n", "1 of 3 words missing"),
     ("1\n2\n3\n4\n", "line 4: address 3 is outside"),
@@ -108,6 +111,8 @@ def test_parse_mem_errors_name_the_line(text, match):
         MF.parse_mem(text, 4, True, 3)
 
 
+# formula: smallest b with -2^(b-1) <= v <= 2^(b-1) - 1 (two's complement range, common practice), and at
+# least 2 bits so an all-zero table keeps a sign bit (the project's rule); e.g. -129 < -2^7 needs 9 bits
 @pytest.mark.parametrize("values,bits", [([0, 0], 2), ([1], 2), ([-2], 2), ([2], 3), ([-129], 9), ([127, -128], 8)])
 def test_signed_bits_is_the_smallest_twos_complement_width(values, bits):
     assert MF.signed_bits(values) == bits
@@ -118,6 +123,7 @@ def test_csv_table_round_trip_and_errors():
     text = MF.format_csv(a, ["o", "i", "k"])
     assert text.split("\n")[:3] == ["o,i,k,value", "0,0,0,-6", "0,0,1,-5"]
     back, lines = MF.parse_csv_table(text, ["o", "i", "k"], a.shape)
+    # hand-computed: row-major flat index of [1, 2, 1] in shape (2, 3, 2) is 1*6 + 2*2 + 1 = 11; +1 header, 1-based
     assert np.array_equal(back, a) and lines[1, 2, 1] == 13
     with pytest.raises(FormatError, match="line 3: index \\[0, 0, 0\\] was already given on line 2"):
         MF.parse_csv_table(text.replace("0,0,1,-5", "0,0,0,-5"), ["o", "i", "k"], a.shape)
@@ -138,8 +144,11 @@ def test_intel_hex_round_trip_with_extended_addresses_and_errors():
     text = MF.format_intel_hex(v, 12, True)
     recs = text.split("\n")
     assert recs[0] == MF.hex_record(0, 0, int(v[0] & 0xFFF).to_bytes(2, "big"))
+    # one data record per word with address = word address (README), so record 65536 is the type 04 record for
+    # upper address 0x0001: checksum 0x100 - (02+00+00+04+00+01) = 0xF9 (Intel HEX-86 specification)
     assert recs[65536] == ":020000040001F9" and recs[-2] == ":00000001FF"
     back, lines = MF.parse_intel_hex(text, 12, True, v.size)
+    # hand-computed: word 65536 follows 65536 data records and the type 04 record -> 1-based line 65538
     assert np.array_equal(back, v) and lines[65536] == 65538
     bad = text.replace(recs[3], recs[3][:-2] + format((int(recs[3][-2:], 16) + 1) & 0xFF, "02X"))
     with pytest.raises(FormatError, match="line 4: checksum mismatch"):
@@ -172,10 +181,12 @@ def test_tables_hold_the_network_exactly(exported):
         assert d["bias"] == L.bias.tolist() and d["m0"] == L.m0.tolist() and d["shift"] == L.shift.tolist()
         assert d["threshold"] == pytest.approx((2.0 ** L.shift / L.m0).tolist())
     conv1 = man["layers"][0]["tables"]["weight"]
+    # torch's Conv2d weight order (O, I, kH, kW); depth = 3*1*3*3 = 27 words (hand-computed from small_net)
     assert conv1["layout"] == "[out_channel][in_channel][ky][kx]" and conv1["depth"] == 27
     assert man["layers"][3]["tables"]["weight"]["layout"] == "[out_channel][in_index]"
     head = (out / conv1["file"]).read_text().split("\n")[:4]
     assert head[0] == "// snnconvert export: layer L0_conv1 (conv), table weight"
+    # a 4-bit memory of 27 words in Verilog declaration syntax (IEEE 1364-2005 4.9 and 17.2.9, from memory)
     assert head[3] == '// Verilog: reg [3:0] mem [0:26]; initial $readmemh("L0_conv1_weights.mem", mem);'
 
 
@@ -186,9 +197,10 @@ def test_every_manifest_field_is_documented(exported):
         assert set(d) <= set(LAYER_FIELDS)
         for spec in d.get("tables", {}).values():
             assert set(spec) == set(TABLE_FIELDS)
+    # row-major (C-order, as numpy) address of conv1's output shape (3, 6, 6): strides 36, 6, 1 (hand-computed)
     assert man["layers"][0]["address"] == "addr = c*36 + y*6 + x  (c < 3, y < 6, x < 6)"
     assert man["rounding"]["formula"] == arith.ROUNDING_FORMULA
-    assert man["format"] == "snnconvert-export" and man["version"] == 1
+    assert man["format"] == "snnconvert-export" and man["version"] == 1     # the project's format name, version 1
     from snnconvert.export.manifest import fields_markdown
     md = fields_markdown()
     assert all(f"| `{k}` |" in md for k in [*MANIFEST_FIELDS, *LAYER_FIELDS, *TABLE_FIELDS])
@@ -322,6 +334,7 @@ def test_export_validates_inputs(tmp_path, x, labels, vectors, match):
 
 
 def test_schema_defaults_carry_reasons():
+    # the project's defaults, as the README documents them (`--vectors 16`, CSV on, Intel HEX off)
     assert SCHEMA["vectors"].default == 16 and SCHEMA["csv"].default is True and SCHEMA["intel_hex"].default is False
     assert all(k.reason for k in SCHEMA.values())
 
@@ -352,5 +365,5 @@ def test_cli_export_usage_errors(tmp_path, capsys, args, message):
     small_net().save(tmp_path / "net")
     np.savez(tmp_path / "bad.npz", y=np.zeros(3, np.int64))
     code = main([a.format(t=tmp_path) for a in args])
-    assert code == 2
+    assert code == 2        # usage errors exit 2, as argparse does (common practice; README "exits 0 ... 2")
     assert capsys.readouterr().err == message.format(t=tmp_path) + "\n"

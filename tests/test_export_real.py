@@ -26,7 +26,7 @@ def _net(kind, coding, payload_bits=3, weight_bits=4):
 @pytest.mark.parametrize("kind,coding", [("conv_max", "payload"), ("conv_avg", "ttfs")])
 def test_trained_digit_network_exports_and_verifies(tmp_path, kind, coding):
     net = _net(kind, coding)
-    _, (xte, yte) = split(True)                                     # 597 test digits (1797 - 1200)
+    _, (xte, yte) = split(True)                                     # 597 = 1797 sklearn digits - 1200 train
     x = arith.quantize_input(xte, net.input_q)                      # (N, 1, 16, 16)
     export_network(net, tmp_path / "e", x, yte, vectors=16, progress=False)
     z = np.load(tmp_path / "e" / "vectors.npz", allow_pickle=False)
@@ -45,7 +45,7 @@ def test_trained_digit_network_exports_and_verifies(tmp_path, kind, coding):
             assert np.array_equal(np.sort(e[:, 1]), np.flatnonzero(pay[s])) and np.array_equal(pay[s][e[:, 1]], e[:, 3])
     res = verify(tmp_path / "e", progress=False)
     assert res.passed, res.summary()
-    assert res.samples == 16
+    assert res.samples == 16                                        # every exported vector is re-checked
 
 
 @pytest.mark.slow
@@ -59,6 +59,7 @@ def test_cli_export_reads_the_recipe_data_set(tmp_path, capsys):
     assert main(["export", str(tmp_path / "net"), str(tmp_path / "out"), "--quiet"]) == 0
     man = json.loads((tmp_path / "out" / "manifest.json").read_text())
     assert man["vectors"]["count"] == 5 and "recipe.toml" in man["files"]
+    # conv_max of tests/_convert_helpers.py: conv, max pool, conv, dense -> 4 integer layers (hand-counted)
     assert capsys.readouterr().out.startswith(f"export: 4 layers, {len(man['files'])} files, 5 golden vectors -> ")
     from snnconvert.data import load_dataset
     xte, yte = load_dataset(R.load(tmp_path / "out" / "recipe.toml"), progress=False).test

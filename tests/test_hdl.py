@@ -48,7 +48,7 @@ def test_iverilog_reads_every_table_as_exported(tmp_path, weight_bits, coding):
                    out, x, y, vectors=0, progress=False)
     man = json.loads((out / "manifest.json").read_text())
     tables = [spec for d in man["layers"] for spec in d.get("tables", {}).values()]
-    assert len(tables) == 12
+    assert len(tables) == 12                        # 3 weighted layers x (weight, bias, m0, shift) tables
     log = run_testbench(tmp_path, make_testbench(out, tables))
     assert "warning" not in log.lower(), log        # e.g. "Not enough words in the file"
     npz = np.load(out / "tables.npz", allow_pickle=False)
@@ -76,7 +76,9 @@ def test_iverilog_sees_a_corrupt_word(tmp_path):
     spec = man["layers"][0]["tables"]["weight"]
     path = out / spec["file"]
     lines = path.read_text().split("\n")
-    lines[4] = "8"                                   # word 0 becomes -8 (4-bit two's complement)
+    lines[4] = "8"                                   # word 0 (after the 4 header lines) becomes 4-bit 1000 = -8
+                                                     # (two's complement, common practice)
     path.write_text("\n".join(lines))
     log = run_testbench(tmp_path, make_testbench(out, [spec]))
+    # a signed reg prints -8 with %d and its digit 8 with %h (IEEE 1364-2005 17.1.1.2, from memory)
     assert "T0 0 -8 8" in log.split("\n")

@@ -38,6 +38,7 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
         assert (out / rel).exists(), rel
     net_metrics = json.loads((out / "net" / "metrics.json").read_text())
     assert net_metrics["max_spikes_per_neuron"] <= 1
+    # the [convert] section of recipes/default.toml: weight_bits = 4, payload_bits = 4, coding = "payload"
     assert summary["weight_bits"] == 4 and summary["payload_bits"] == 4 and summary["coding"] == "payload"
     # the conversion costs at most the recipe's tolerance
     tol = summary["tolerance_pp"]
@@ -72,7 +73,7 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
     (["run", str(RECIPES / "default.toml"), "--set", "convert.weight_bit=3"], "Did you mean 'weight_bits'?"),
 ])
 def test_run_usage_errors_exit_2_with_one_line(argv, message, capsys, tmp_path):
-    assert main(argv + ["--out", str(tmp_path / "r")]) == 2
+    assert main(argv + ["--out", str(tmp_path / "r")]) == 2   # usage errors exit 2, as argparse does (common practice)
     err = capsys.readouterr().err
     assert err.startswith("error: ") and message in err and err.count("\n") == 1
 
@@ -149,7 +150,7 @@ def test_interrupt_keeps_finished_stages_and_the_rerun_reuses_them(tmp_path, mon
         raise KeyboardInterrupt
 
     monkeypatch.setattr(export_mod, "export_from_run", ctrl_c_mid_export)
-    assert main(args) == 130
+    assert main(args) == 130            # 128 + SIGINT (2): the shell's exit status for Ctrl-C (common practice)
     assert "interrupted" in capsys.readouterr().err
     log = json.loads((out / "stages.json").read_text())["stages"]
     assert all(log[s]["status"] == "done" for s in ("data", "train", "convert"))

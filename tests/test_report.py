@@ -88,9 +88,10 @@ def test_text_from_the_run_folder_is_escaped(tmp_path):
     atomic_write_json(tmp_path / "verify.json", {"passed": False, "samples": 2,
                                                 "first_mismatch": {"layer": "<img src=x>"}})
     text, p = check_page(report.write_report(tmp_path))
+    # character references &lt; &gt; (HTML Living Standard, named character references; html.escape as reference)
     assert "<script>" not in text and "&lt;script&gt;alert(1)&lt;/script&gt;" in text
     assert "&lt;b&gt;payload&lt;/b&gt;" in section(text, "accuracy")
-    assert "90.00 %" in section(text, "accuracy") and "80.00 %" in section(text, "accuracy")
+    assert "90.00 %" in section(text, "accuracy") and "80.00 %" in section(text, "accuracy")   # 0.9, 0.8 as percent
     assert "verify FAILED" in section(text, "export") and "<img src=x>" not in text
 
 
@@ -107,6 +108,7 @@ def test_corrupt_json_is_reported_in_its_section(tmp_path):
     (["report"], 2, None),
 ])
 def test_cli_errors(tmp_path, capsys, argv, code, err):
+    # usage errors exit 2, as argparse does (common practice); the missing-argument text is argparse's own
     assert main([a.replace("{tmp}", str(tmp_path)) for a in argv]) == code
     got = capsys.readouterr().err
     if err is not None:
@@ -169,7 +171,8 @@ def test_report_of_a_real_run(tmp_path):
     for name, bits in m["accumulator_bits"].items():
         assert f'<td class="l">{name}</td><td>{bits}</td>' in accu
     assert "Estimate, not a measurement." in section(text, "energy")
-    assert "verify passed: 2 golden samples" in section(text, "export")
+    assert "verify passed: 2 golden samples" in section(text, "export")   # [export] vectors = 2 above
+    # two confusion matrices: the frame model's (train/) and the spike model's (net/)
     assert len(re.findall(r"<img ", section(text, "confusion"))) == 2
     stages = re.findall(r'<tr><td class="l">([a-z]+)</td><td>done</td>', section(text, "overview"))
     assert stages == pipeline.STAGES[:-1]  # the report stage itself is still running when the page is made

@@ -18,6 +18,8 @@ from snnconvert.errors import FormatError, UsageError
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
 
 
+# the project's grid syntax: "a-b" is the inclusive range a..b, commas join parts, the result is sorted
+# and without repeats; expected lists hand-expanded from that rule
 @pytest.mark.parametrize("text, expected", [
     ("2-8", [2, 3, 4, 5, 6, 7, 8]),
     ("2,4,8", [2, 4, 8]),
@@ -32,6 +34,7 @@ def test_grid_syntax_accepts(text, expected):
     assert sweep.parse_grid(text, "weight_bits", "sweep", 2, 16) == expected
 
 
+# reversed or open ranges, foreign separators, non-ints and values outside [2, 16] (1-4, 2-17) are refused
 @pytest.mark.parametrize("value", ["8-2", "", "2-", "a", "2;4", "1-4", "2-17", [], [True], True, 2.5, None, "2,,4"])
 def test_grid_syntax_rejects(value):
     with pytest.raises(UsageError, match=r"^The 'weight_bits' parameter of sweep must be a grid of ints in \[2, 16\]"):
@@ -71,6 +74,7 @@ def test_schema_defaults_are_valid_and_explained():
 
 
 def test_points_order_and_binary_collapse():
+    # grid order: coding, then weight bits, then payload bits; a binary spike carries 1 bit, so binary keeps p=1 only
     pts = sweep.make_points("2-3", "1-3", ["payload", "binary"])
     assert [(p["coding"], p["weight_bits"], p["payload_bits"]) for p in pts] == [
         ("payload", 2, 1), ("payload", 2, 2), ("payload", 2, 3), ("payload", 3, 1), ("payload", 3, 2),
@@ -105,12 +109,13 @@ def test_recommendation_cheapest_within_tolerance():
     # 0.946 loses 0.4 pp, within 0.5; equal memory -> fewer SOPs wins (0.948 point)
     assert (r["point"]["weight_bits"], r["point"]["payload_bits"]) == (3, 3)
     assert r["within_tolerance"] == 3 and r["closest"] is None
-    assert r["label"] == "payload w3 p3 (per-tensor)"
+    assert r["label"] == "payload w3 p3 (per-tensor)"           # the project's point label: coding, W, P, scaling
 
 
 def test_recommendation_none_qualifies_is_said():
     recs = [_rec(2, 2, 0.80, 100, 50), _rec(3, 3, 0.90, 150, 60)]
     r = sweep.recommend(recs, 0.95, 0.5)
+    # 0.90 is the most accurate point, 5 pp below 0.95: none within 0.5 pp
     assert r["point"] is None and r["closest"]["weight_bits"] == 3
     assert r["message"].startswith("no point is within 0.5 pp of the frame accuracy 95.00 %")
 
@@ -156,6 +161,7 @@ def test_outputs_and_recommendation(tmp_path):
     assert json.loads((out / "recommendation.json").read_text())["format"] == sweep.RECOMMENDATION_FORMAT
     assert "[sweep]" in (out / "recipe.toml").read_text()
     lines = (out / "results.jsonl").read_text().splitlines()
+    # first grid point w=2, p=1: fake_point's spikes_per_layer is [p, w] = [1, 2]
     assert len(lines) == 6 and json.loads(lines[0])["metrics"]["spikes_per_layer"] == [1, 2]
 
 
@@ -170,7 +176,7 @@ def test_rerun_skips_done_points_and_extends_grid(tmp_path):
     again = _run(tmp_path)
     assert (again.computed, again.reused) == (0, 6)
     wider = _run(tmp_path, weight_bits="2-5")
-    assert (wider.computed, wider.reused) == (2, 6)
+    assert (wider.computed, wider.reused) == (2, 6)     # w=5 adds p=1 and p=2: 2 new points, 6 from the log
     assert len((tmp_path / "sw" / "results.jsonl").read_text().splitlines()) == 8
 
 
@@ -199,7 +205,7 @@ def test_torn_last_line_is_dropped_and_recomputed(tmp_path):
     text = path.read_text()
     path.write_text(text[: len(text) - 40])  # a kill in the middle of the last write
     res = _run(tmp_path)
-    assert (res.computed, res.reused) == (1, 5)
+    assert (res.computed, res.reused) == (1, 5)          # 40 bytes cut only the 6th of 6 lines
     lines = path.read_text().splitlines()
     assert lines[:5] == text.splitlines()[:5]
     assert [json.loads(x)["key"] for x in lines] == [json.loads(x)["key"] for x in text.splitlines()]
@@ -227,7 +233,7 @@ def test_corrupt_middle_line_is_a_format_error(tmp_path):
 def test_cli_usage_errors(tmp_path, capsys, argv, message):
     from snnconvert.cli import main
     argv = [a.replace("{tmp}", str(tmp_path)) for a in argv]
-    assert main(argv) == 2
+    assert main(argv) == 2                           # usage errors exit 2, as argparse does (common practice)
     assert capsys.readouterr().err == message.replace("{tmp}", str(tmp_path))
 
 

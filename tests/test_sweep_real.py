@@ -51,7 +51,7 @@ def test_one_and_two_jobs_give_identical_results(trained, tmp_path):
     kw = dict(weight_bits="2,4", payload_bits="1,3", codings=["payload", "ttfs"], progress=False)
     one = sweep.run_sweep(train_dir, jobs=1, out_dir=tmp_path / "one", **kw)
     two = sweep.run_sweep(train_dir, jobs=2, out_dir=tmp_path / "two", **kw)
-    assert one.computed == two.computed == 8
+    assert one.computed == two.computed == 8            # 2 weight x 2 payload widths x 2 codings
     assert _keyed(one) == _keyed(two)
     assert (tmp_path / "one" / "sweep.csv").read_bytes() == (tmp_path / "two" / "sweep.csv").read_bytes()
     m = _keyed(one)
@@ -125,8 +125,12 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
                                                     ["ttfs", "3", "1"], ["ttfs", "3", "2"]]
     assert lines[-3] == f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} %"
     assert lines[-2] == rec["message"] and lines[-1] == f"outputs in {out}"
-    # with a 100 pp tolerance every point qualifies: the cheapest is the 3-bit point with fewer SOPs
+    # with a 100 pp tolerance every point qualifies: the cheapest is the one with the least weight memory,
+    # then the fewest SOPs per sample (the rule in the recommendation), checked against the logged points
     assert rec["point"]["weight_bits"] == 3 and rec["within_tolerance"] == 4
+    logged = [json.loads(x) for x in (out / "results.jsonl").read_text().splitlines()]
+    cheapest = min((r["metrics"]["weight_memory_bits"], r["metrics"]["sops_per_sample"]) for r in logged)
+    assert (rec["point"]["weight_memory_bits"], rec["point"]["sops_per_sample"]) == cheapest
     # the saved recipe is a valid recipe holding the grid that ran
     r = recipe.load(out / "recipe.toml")
     assert (r["sweep"]["weight_bits"], r["sweep"]["payload_bits"], r["sweep"]["codings"]) == ([3], [1, 2],

@@ -43,8 +43,10 @@ def test_clean_export_passes_and_verify_writes_nothing(pristine, coding, capsys)
     folder = pristine / coding
     before = _snapshot(folder)
     res = verify(folder, progress=False)
+    # small_net has 4 layers (conv1, pool1, conv2, fc); 5 vectors were exported
     assert res.passed and res.samples == 5 and res.layers == 4 and res.first_mismatch is None
-    assert res.words == 3 * 9 + 3 * 3 + 4 * 12 + 4 * 3 + 3 * 16 + 3 * 3   # weights + bias/m0/shift of each layer
+    # hand-computed from small_net's shapes: weights O*I*kH*kW (3*1*3*3, 4*3*2*2, 3*16) + bias/m0/shift O each
+    assert res.words == 3 * 9 + 3 * 3 + 4 * 12 + 4 * 3 + 3 * 16 + 3 * 3
     assert main(["verify", str(folder), "--quiet"]) == 0
     assert capsys.readouterr().out == res.summary() + "\n"
     assert _snapshot(folder) == before
@@ -68,6 +70,7 @@ def test_corrupt_table_word_is_named_by_file_line_and_index(exp, capsys, word):
     m = res.first_mismatch
     assert not res.passed
     assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", "L2_conv2_weights.mem", line, "L2_conv2", word)
+    # row-major index of the word, numpy.unravel_index as reference
     assert m.index == list(np.unravel_index(word, (4, 3, 2, 2))) and (m.expected, m.got) == (orig, new)
     assert res.sha256_failures == ["L2_conv2_weights.mem"]
     assert main(["verify", str(exp), "--quiet"]) == 1
@@ -91,13 +94,16 @@ def test_corrupt_intel_hex_word_is_named(exp):
     path = exp / "L3_fc_m0.hex"
     recs = path.read_text().split("\n")
     b = bytearray(bytes.fromhex(recs[1][1:]))          # word 1 of the fc multipliers
-    b[4] ^= 0x01
+    b[4] ^= 0x01                                       # record bytes LL AAAA(2) TT, so b[4] is the first data byte
     b[-1] = (-sum(b[:-1])) & 0xFF                      # keep the checksum valid: only the value is wrong
+                                                       # (two's complement of the byte sum, Intel HEX-86 specification)
     recs[1] = ":" + b.hex().upper()
     path.write_text("\n".join(recs))
     m = verify(exp, progress=False).first_mismatch
     assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", "L3_fc_m0.hex", 2, "L3_fc", 1)
-    assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))    # the flipped bit of the first data byte
+    # the flipped bit is the lowest bit of the most significant data byte: data bytes are len(b) - 5 (LL, AAAA, TT,
+    # CC), words are written most significant byte first (README), so it has weight 2^(8 * (len(b) - 6))
+    assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))
 
 
 def test_corrupt_vector_line_is_named_by_sample_layer_and_neuron(exp, capsys):
@@ -188,6 +194,7 @@ def test_changed_bytes_with_equal_values_fail_on_sha256(exp, capsys):
 ])
 def test_unreadable_or_missing_files_exit_2(exp, capsys, damage, message):
     damage(exp)
+    # 2 = unreadable input, 1 = a mismatch, 0 = all match (the project's exit codes, README; argparse uses 2 too)
     assert main(["verify", str(exp), "--quiet"]) == 2
     assert capsys.readouterr().err.startswith(message.format(e=exp))
 
