@@ -154,16 +154,60 @@ def _frame_image(frame: np.ndarray) -> np.ndarray:
     return frame[0] - frame[1] if frame.shape[0] == 2 else frame[0]
 
 
-def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresholds=None, title: str = ""):
+def frame_style(mode: str, q: int) -> dict:
+    """Fixed colour scale of a frame kind, the same for every frame of a figure.
+
+        binary:   0 (no spike) .. 1 (spike),            white -> black
+        count:    0 .. q events per pixel (clipped),     white -> dark
+        polarity: -q (OFF) .. 0 .. +q (ON) of ON - OFF,  diverging, white at zero
+
+    The scale never depends on the frame's own values: an all-set frame stays black, an empty
+    polarity background stays white.
+    """
+    check_choice(mode, "mode", "frames", MODES)
+    q = max(1, int(q))
+    if mode == "binary":
+        return {"cmap": "Greys", "vmin": 0.0, "vmax": 1.0, "label": "spike (1) / no spike (0)", "ticks": [0, 1]}
+    if mode == "count":
+        return {"cmap": "Greys", "vmin": 0.0, "vmax": float(q), "label": f"events per pixel (clipped at {q})",
+                "ticks": None}
+    return {"cmap": "RdBu_r", "vmin": -float(q), "vmax": float(q),
+            "label": f"ON - OFF events per pixel (red ON, blue OFF; clipped at {q})", "ticks": None}
+
+
+def mode_of(frame_shape, mode: str | None) -> str:
+    """The frame kind to draw: the given mode, else polarity for 2 channels and count for 1."""
+    if mode is not None:
+        return mode
+    return "polarity" if frame_shape[0] == 2 else "count"
+
+
+def _draw_frame(ax, frame: np.ndarray, style: dict):
+    ax.set_xticks([])
+    ax.set_yticks([])
+    return ax.imshow(_frame_image(np.asarray(frame)), cmap=style["cmap"], vmin=style["vmin"], vmax=style["vmax"],
+                     interpolation="nearest")
+
+
+def _colorbar(fig, im, axes, style: dict, **kw):
+    cb = fig.colorbar(im, ax=axes, label=style["label"], **kw)
+    if style["ticks"] is not None:
+        cb.set_ticks(style["ticks"])
+    return cb
+
+
+def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresholds=None, title: str = "",
+                   mode: str | None = None, q: int | None = None):
     """Rate trace (events/s) with the two thresholds and the bursts shaded; the frame of each
-    burst (up to 6) beside it. rate_trace = (t_k, rate) from windows.rate_trace."""
+    burst (up to 6) beside it on one fixed colour scale (`frame_style(mode, q)`).
+    rate_trace = (t_k, rate) from windows.rate_trace."""
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    frames = list(frames)[:6]
+    frames = [np.asarray(f) for f in list(frames)[:6]]
     ncol = max(len(frames), 1)
-    fig = plt.figure(figsize=(4 + 2.2 * ncol, 3.4))
-    grid = fig.add_gridspec(1, 1 + ncol, width_ratios=[3.5] + [1] * ncol)
+    fig = plt.figure(figsize=(4.6 + 2.2 * ncol, 3.4))
+    grid = fig.add_gridspec(1, 2 + ncol, width_ratios=[3.5] + [1] * ncol + [0.12])
     ax = fig.add_subplot(grid[0, 0])
     tk, rate = rate_trace
     ax.plot(np.asarray(tk) / 1e3, rate, lw=1, color="k", label="rate")
@@ -178,39 +222,74 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
     ax.set_ylabel("events / s (log above the lower threshold)")
     ax.set_title(title or f"{len(stream)} events, {len(bursts)} bursts", fontsize=9)
     ax.legend(fontsize=7, loc="upper right")
+    im = None
+    if frames:
+        m = mode_of(frames[0].shape, mode)
+        style = frame_style(m, q if q is not None else max(1.0, max(float(f.max()) for f in frames)))
     for i, f in enumerate(frames):
         a = fig.add_subplot(grid[0, 1 + i])
-        img = _frame_image(np.asarray(f))
-        a.imshow(img, cmap="gray" if f.shape[0] == 1 else "bwr", interpolation="nearest")
+        im = _draw_frame(a, f, style)
         a.set_title(f"burst {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
-        a.set_xticks([])
-        a.set_yticks([])
-    if not frames:
+    if im is not None:
+        cb = fig.colorbar(im, cax=fig.add_subplot(grid[0, 1 + ncol]))
+        cb.set_label(style["label"], fontsize=7)
+        if style["ticks"] is not None:
+            cb.set_ticks(style["ticks"])
+    else:
         a = fig.add_subplot(grid[0, 1])
         a.text(0.5, 0.5, "no burst", ha="center", va="center")
         a.axis("off")
     return _save_png(fig, path)
 
 
-def plot_frames(X, y, path, classes=None, per_class: int = 8):
-    """A grid of example frames: one row per class, up to per_class examples each."""
+def frames_figure(X, y, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,
+                  caption: str = ""):
+    """The figure of `plot_frames`: one row per class (every class, also one without examples),
+    up to per_class examples each, one fixed colour scale with a colour bar, caption on top."""
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    X = np.asarray(X)
+    X = np.asarray(X)  # (N, C, H, W)
     y = np.asarray(y)
-    labels = np.unique(y)
-    fig, axes = plt.subplots(len(labels), per_class, figsize=(per_class * 0.9, len(labels) * 0.95), squeeze=False)
+    labels = list(range(len(classes))) if classes is not None else [int(v) for v in np.unique(y)]
+    m = mode_of(X.shape[1:], mode)
+    style = frame_style(m, q if q is not None else (1 if m == "binary" else max(1, int(X.max(initial=0)))))
+    rows = max(1, len(labels))
+    per_class = max(1, min(per_class, max((int(np.sum(y == lab)) for lab in labels), default=1)))
+    fig, axes = plt.subplots(rows, per_class, figsize=(1.6 + per_class * 0.9, 0.8 + rows * 0.95), squeeze=False,
+                             layout="constrained")
+    im = None
     for r, lab in enumerate(labels):
-        idx = np.flatnonzero(y == lab)[:per_class]
+        idx = np.flatnonzero(y == lab)
         for c in range(per_class):
             a = axes[r, c]
-            a.set_xticks([])
-            a.set_yticks([])
-            if c < idx.size:
-                f = X[idx[c]]
-                a.imshow(_frame_image(f), cmap="gray" if f.shape[0] == 1 else "bwr", interpolation="nearest")
+            if c < min(idx.size, per_class):
+                im = _draw_frame(a, X[idx[c]], style)
             else:
                 a.axis("off")
-        axes[r, 0].set_ylabel(str(classes[lab]) if classes is not None else str(lab), rotation=0, labelpad=12)
-    return _save_png(fig, path)
+        name = str(classes[lab]) if classes is not None else str(lab)
+        if idx.size:
+            axes[r, 0].set_ylabel(f"{name}\n({idx.size})", rotation=0, labelpad=16, va="center", fontsize=8)
+        else:
+            axes[r, 0].text(0.0, 0.5, f"{name}: no example in this split", transform=axes[r, 0].transAxes,
+                            va="center", fontsize=8).set_in_layout(False)
+    if im is not None:
+        _colorbar(fig, im, axes[:, -1].tolist(), style, shrink=min(1.0, 6 / rows), aspect=30)
+    fig.suptitle(caption or f"{m} frames", fontsize=9)
+    return fig
+
+
+def frames_caption(split: str, mode: str, shape, threshold: int, max_count: int) -> str:
+    """'train split: binary frames 1x16x16, a pixel spikes at >= 16 events' and the like."""
+    dims = "x".join(str(int(d)) for d in shape)
+    if mode == "binary":
+        rule = f"a pixel spikes at >= {threshold} event{'s' if threshold != 1 else ''}"
+    else:
+        rule = f"events per pixel clipped at {max_count}"
+    return f"{split} split: {mode} frames {dims}, {rule}; row label = class (examples in the split)"
+
+
+def plot_frames(X, y, path, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,
+                caption: str = ""):
+    """PNG grid of example frames: one row per class, up to per_class examples each (see frames_figure)."""
+    return _save_png(frames_figure(X, y, classes, per_class, mode, q, caption), path)

@@ -154,7 +154,10 @@ def _data_stage(run_: Run) -> None:
         "samples": {k: int(len(getattr(ds, k)[1])) for k in ("train", "val", "test")},
         "mean_input_events_per_frame": round(events_per_frame, 2),
     }
-    frames_mod.plot_frames(Xtr[:32], ytr[:32], d / "frames.png")
+    fr = run_.recipe["frames"]
+    frames_mod.plot_frames(Xtr, ytr, d / "frames.png", classes=list(ds.classes), mode=fr["mode"], q=ds.input_q,
+                           caption=frames_mod.frames_caption("train", fr["mode"], ds.input_shape, fr["threshold"],
+                                                             fr["max_count"]))
     example = _example_recording(run_)
     if example is not None:
         summary["example_recording"] = example
@@ -179,6 +182,7 @@ def _example_recording(run_: Run) -> dict | None:
     thr = W.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"]) if fr["window"] == "burst" else None
     frames = [F.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
     F.plot_recording(stream, wins, (tk, rate), frames, run_.out / "data" / "events.png", thresholds=thr,
+                     mode=fr["mode"], q=ds.input_q,
                      title=f"recording {i} (label {ds.classes[label]}): {len(stream)} events, {len(wins)} windows")
     return {"index": i, "label": ds.classes[label], "events": len(stream),
             "windows": [[int(a), int(b), int(np.count_nonzero((stream.t >= a) & (stream.t < b)))] for a, b in wins]}

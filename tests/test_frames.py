@@ -121,3 +121,39 @@ def test_plots_write_png(tmp_path):
     X = np.random.default_rng(0).integers(0, 2, (20, 1, 8, 8)).astype(np.float32)
     q = F.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))
     assert q.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
+
+
+@pytest.mark.parametrize("mode, q, vmin, vmax", [
+    ("binary", 1, 0.0, 1.0),        # binary frames hold 0/1 (module docstring)
+    ("count", 15, 0.0, 15.0),       # count frames hold 0..max_count
+    ("polarity", 15, -15.0, 15.0),  # ON - OFF lies in -max_count..max_count
+])
+def test_frame_plot_uses_a_fixed_scale(mode, q, vmin, vmax):
+    import matplotlib.pyplot as plt
+    c = F.channels(mode)
+    X = np.zeros((6, c, 8, 8), np.float32)
+    X[0] = 1 if mode == "binary" else 3   # every pixel set, far below the top of the count scale
+    X[1, 0, :2] = q
+    fig = F.frames_figure(X, np.array([0, 0, 1, 1, 2, 2]), classes=list("abcd"), mode=mode, q=q, caption="cap")
+    try:
+        ims = [a.images[0] for a in fig.axes if a.images]
+        assert len(ims) == 6
+        assert {(im.norm.vmin, im.norm.vmax) for im in ims} == {(vmin, vmax)}   # one scale for every frame
+        assert fig.get_suptitle() == "cap"
+        # every class has a row, also 'd' without examples; a colour bar is drawn
+        assert any(t.get_text() == "d: no example in this split" for a in fig.axes for t in a.texts)
+        assert any(a.get_label() == "<colorbar>" for a in fig.axes)
+        full = ims[0]
+        if mode == "binary":   # an all-set binary frame is drawn at the top of the scale (black), not rescaled
+            assert np.allclose(full.to_rgba(full.get_array())[..., :3], 0.0)
+        if mode == "polarity":  # diverging map: an empty pixel (ON - OFF = 0) sits at the centre of the colours
+            assert full.norm(0.0) == pytest.approx(0.5)
+            assert ims[2].norm(ims[2].get_array()).min() == pytest.approx(0.5)  # an empty frame: all centre
+    finally:
+        plt.close(fig)
+
+
+def test_frames_caption():
+    assert F.frames_caption("train", "binary", (1, 16, 16), 16, 15) == (
+        "train split: binary frames 1x16x16, a pixel spikes at >= 16 events; row label = class (examples in the split)")
+    assert "clipped at 15" in F.frames_caption("test", "polarity", (2, 16, 16), 16, 15)

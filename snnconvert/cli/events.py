@@ -70,7 +70,8 @@ def run(args) -> int:
                   for s, e, _ in info["bursts"]]
         th = (info["thresholds_hz"]["upper"], info["thresholds_hz"]["lower"])
         F.plot_recording(stream, [(s, e) for s, e, _ in info["bursts"]], W.rate_trace(stream, args.bin_us), frames,
-                         args.plot, thresholds=th, title=Path(args.file).name)
+                         args.plot, thresholds=th, title=Path(args.file).name, mode=args.mode,
+                         q=F.input_q(args.mode, _FS["max_count"].default))
         info["plot"] = str(args.plot)
     if args.json:
         print(json.dumps(info, sort_keys=True))
