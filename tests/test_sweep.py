@@ -252,3 +252,144 @@ def test_parallel_run_keeps_finished_points_when_one_fails(tmp_path):
     assert res.computed == 3 - len(logged) and [r["params"]["weight_bits"] for r in res.records] == [2, 3, 4]
     again = _run(tmp_path / "again", jobs=1, weight_bits="2-4", payload_bits="1")
     assert [(r["params"], r["metrics"]) for r in res.records] == [(r["params"], r["metrics"]) for r in again.records]
+
+
+# --- plots ---------------------------------------------------------------------------------
+
+def _records(losses_pp: dict, coding="payload", frame=0.98):
+    """Result records with the given loss (pp) per (w, p); cost grows with both widths."""
+    out = []
+    for (w, p), loss in losses_pp.items():
+        params = {"coding": coding, "weight_bits": w, "payload_bits": p, "per_channel": False, "aware": False,
+                  "aware_epochs": 0}
+        metrics = {"frame_accuracy": frame, "spike_accuracy": frame - loss / 100, "weight_memory_bits": 10000 * w,
+                   "sops_per_sample": 30000 + 10000 * p + 100 * w,
+                   "latency": {"pipeline_stages": 4} if coding != "ttfs" else {"pipeline_stages": 4,
+                                                                              "window_steps": 3 * 2 ** p},
+                   "energy": {"spike_pj_per_sample": 1000.0 * p * (2 if coding == "payload" else 1)}}
+        out.append({"params": params, "metrics": metrics})
+    return out
+
+
+# losses chosen to straddle the 0.5 pp tolerance: 0.3 (within) and 3.0 (beyond) must not share a colour
+LOSSES = {(2, 1): 60.0, (2, 2): 3.0, (3, 1): 0.3, (3, 2): 0.0, (4, 1): -0.2, (4, 2): 0.6}
+
+
+def test_heatmap_colours_by_loss_centred_on_the_tolerance():
+    import matplotlib.pyplot as plt
+    from matplotlib.colors import BoundaryNorm
+    from matplotlib.patches import Rectangle
+    recs = _records(LOSSES)
+    rows = sweep.table_rows(recs, 0.98, 0.5)
+    rec = sweep.recommend(recs, 0.98, 0.5)
+    assert (rec["point"]["weight_bits"], rec["point"]["payload_bits"]) == (3, 1)  # least memory within 0.5 pp
+    fig = sweep.heatmap_figure(rows, 0.98, 0.5, rec)
+    try:
+        ax = fig.axes[0]
+        im = ax.images[0]
+        grid = np.ma.filled(im.get_array(), np.nan)          # (weight bits 2..4, payload bits 1..2)
+        want = np.array([[LOSSES[(w, p)] for p in (1, 2)] for w in (2, 3, 4)])
+        assert np.allclose(grid, want, atol=1e-9)            # the colour value is the loss, not the accuracy
+        assert isinstance(im.norm, BoundaryNorm) and 0.5 in list(im.norm.boundaries)
+        rgba = {k: im.cmap(im.norm(v)) for k, v in LOSSES.items()}
+        for k, v in LOSSES.items():                           # blue within tolerance, red beyond
+            r, _, b, _ = rgba[k]
+            assert (b > r) == (v <= 0.5), k
+        assert rgba[(3, 1)] != rgba[(2, 2)] and rgba[(2, 2)] != rgba[(2, 1)]
+        black = [p for p in ax.patches if isinstance(p, Rectangle) and p.get_edgecolor()[:3] == (0.0, 0.0, 0.0)]
+        assert sorted(p.get_xy() for p in black) == sorted(
+            (p - 1 - 0.5, [2, 3, 4].index(w) - 0.5) for (w, p), v in LOSSES.items() if v <= 0.5)
+        gold = [p for p in ax.patches if isinstance(p, Rectangle) and p not in black]
+        assert len(gold) == 1 and gold[0].get_xy() == pytest.approx((0 - 0.46, 1 - 0.46))   # w=3, p=1
+        texts = [t.get_text() for t in ax.texts]
+        assert "97.7 %\n+0.30 pp" in texts                    # 98 % - 0.3 pp, loss with its sign
+    finally:
+        plt.close(fig)
+
+
+def test_heatmap_merges_codings_with_equal_accuracy():
+    import matplotlib.pyplot as plt
+    recs = _records(LOSSES, "payload") + _records(LOSSES, "ttfs")
+    fig = sweep.heatmap_figure(sweep.table_rows(recs, 0.98, 0.5), 0.98, 0.5, sweep.recommend(recs, 0.98, 0.5))
+    try:
+        panels = [a for a in fig.axes if a.images]
+        assert [a.get_title() for a in panels] == ["payload = ttfs coding (equal accuracy at every point)"]
+    finally:
+        plt.close(fig)
+    other = {**LOSSES, (3, 1): 2.0}
+    recs = _records(LOSSES, "payload") + _records(other, "ttfs")
+    fig = sweep.heatmap_figure(sweep.table_rows(recs, 0.98, 0.5), 0.98, 0.5, {})
+    try:
+        assert [a.get_title() for a in fig.axes if a.images] == ["payload coding", "ttfs coding"]
+    finally:
+        plt.close(fig)
+
+
+def test_pareto_zooms_to_the_tolerance_band_and_labels_points():
+    import matplotlib.pyplot as plt
+    recs = _records(LOSSES)
+    rows = sweep.table_rows(recs, 0.98, 0.5)
+    fig = sweep.pareto_figure(rows, 0.98, 0.5, sweep.recommend(recs, 0.98, 0.5))
+    try:
+        ax_mem, ax_sops = fig.axes[:2]
+        lo, hi = ax_mem.get_ylim()
+        # the band: from frame - max(5 * 0.5, 2) = 95.5 % to just above the best point (98.2 %)
+        assert 95.0 < lo < 95.5 and 98.2 < hi < 98.6
+        labels = {t.get_text() for t in ax_mem.texts}
+        assert labels == {"3/1", "3/2", "4/1", "4/2"}           # 2/1 and 2/2 lie 60 and 3 pp below: left out
+        assert "2 of 6 points lie below 95.5 %" in ax_mem.get_title()
+        fig.canvas.draw()
+        for ax in (ax_mem, ax_sops):                   # tick labels never overlap
+            boxes = [t.get_window_extent() for t in ax.get_xticklabels() if t.get_text() and t.get_visible()]
+            assert len(boxes) >= 2
+            assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
+            text = [t for t in ax.texts]
+            boxes = [t.get_window_extent() for t in text]
+            assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
+    finally:
+        plt.close(fig)
+
+
+@pytest.mark.parametrize("x, text", [(30000, "30k"), (200000, "200k"), (1.5e6, "1.5M"), (500, "500")])
+def test_tick_labels_without_exponents(x, text):
+    assert sweep._si(x) == text
+
+
+def test_several_codings_add_latency_and_energy(tmp_path):
+    recs = _records(LOSSES, "payload") + _records(LOSSES, "ttfs")
+    rows = sweep.table_rows(recs, 0.98, 0.5)
+    table = sweep.format_table(rows, sweep.recommend(recs, 0.98, 0.5)).splitlines()
+    assert table[0].endswith("steps  nJ (est.)")
+    # ttfs w3 p2: window_steps = 3 * 2^2 = 12 steps; energy 1000 pJ * 2 = 2.0 nJ (values of _records)
+    assert [ln for ln in table if ln.startswith("ttfs      3  2")][0].split()[7:9] == ["12", "2.0"]
+    assert [ln for ln in table if ln.startswith("payload   3  2")][0].split()[7:9] == ["4", "4.0"]
+    import matplotlib.pyplot as plt
+    fig = sweep.codings_figure(rows)
+    try:
+        lat = {ln.get_label(): list(ln.get_ydata()) for ln in fig.axes[0].get_lines()}
+        assert lat == {"payload": [4, 4], "ttfs": [6, 12]}    # at the widest weight width, p = 1, 2
+    finally:
+        plt.close(fig)
+    one = sweep.format_table(sweep.table_rows(_records(LOSSES), 0.98, 0.5), {})
+    assert "steps" not in one
+
+
+def test_aware_checkpoint_is_named_in_table_plots_and_recommendation(tmp_path):
+    ctx = _context()
+    ctx[1]["aware"] = {"weight_bits": 3, "payload_bits": 3, "per_channel": False, "learn_act_max": True}
+    res = _run(tmp_path, ctx=ctx)
+    note = ("checkpoint fine-tuned conversion-aware for weight bits 3, payload bits 3 (per-tensor): points at "
+            "other widths convert a model trained for 3/3, and the frame model is that fake-quantized model")
+    saved = json.loads((tmp_path / "sw" / "recommendation.json").read_text())
+    assert saved["checkpoint"] == {"aware": True, "weight_bits": 3, "payload_bits": 3, "per_channel": False,
+                                   "note": note}
+    rows = sweep.table_rows(res.records, res.frame_accuracy, res.tolerance_pp)
+    assert sweep.format_table(rows, res.recommendation).splitlines()[0] == "note: " + note
+    import matplotlib.pyplot as plt
+    fig = sweep.heatmap_figure(rows, res.frame_accuracy, 0.5, res.recommendation, note)
+    try:
+        assert "trained for 3/3" in fig.get_suptitle().replace("\n", " ")
+    finally:
+        plt.close(fig)
+    plain = _run(tmp_path / "plain")
+    assert plain.recommendation["checkpoint"] == {"aware": False, "note": ""}
