@@ -797,14 +797,15 @@ def _point_label(r: dict, multi: bool) -> str:
 def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, recommendation: dict,
                   note: str = ""):
     """Accuracy against weight memory and against SOPs per sample, zoomed to the band near the
-    frame model: from frame - max(5 tol, 2 pp) to just above the best point. Points below are
-    drawn on the bottom edge and counted. Each point is labelled weight bits/payload bits."""
+    frame model: from frame - max(5 tol, 2 pp) (lower when even the best point is further down)
+    to just above the best point. Points below are left out and counted in the panel titles.
+    Each point is labelled weight bits/payload bits."""
     from matplotlib import ticker
     plt = _pyplot()
     frame = 100 * frame_accuracy
     tol = float(tolerance_pp)
     accs = [100 * r["spike_accuracy"] for r in rows]
-    lo = frame - max(5 * tol, 2.0)
+    lo = min(frame - max(5 * tol, 2.0), max(accs) - 1.0)   # the best point is always in view
     hi = max(max(accs), frame) + max(0.4 * tol, 0.3)
     rec = recommendation.get("point") or {}
     multi = len({r["coding"] for r in rows}) > 1

@@ -393,3 +393,16 @@ def test_aware_checkpoint_is_named_in_table_plots_and_recommendation(tmp_path):
         plt.close(fig)
     plain = _run(tmp_path / "plain")
     assert plain.recommendation["checkpoint"] == {"aware": False, "note": ""}
+
+
+def test_pareto_keeps_the_best_point_in_view_when_all_lose_much():
+    import matplotlib.pyplot as plt
+    far = {(2, 1): 40.0, (3, 1): 12.0, (4, 1): 10.0}   # every point beyond frame - 2.5 pp
+    recs = _records(far)
+    fig = sweep.pareto_figure(sweep.table_rows(recs, 0.98, 0.5), 0.98, 0.5, sweep.recommend(recs, 0.98, 0.5))
+    try:
+        lo, _ = fig.axes[0].get_ylim()
+        assert lo < 88.0 - 1.0 + 0.1                  # best point 98 - 10 = 88 %, one point of margin below it
+        assert {t.get_text() for t in fig.axes[0].texts} == {"4/1"}
+    finally:
+        plt.close(fig)
