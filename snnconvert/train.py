@@ -167,7 +167,9 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
     recipe_mod.save(recipe, out_dir)
     files.atomic_write_json(out_dir / "metrics.json", metrics)
     _write_history(history, out_dir / "history.csv")
-    plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training")
+    plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training" + (
+        f" (conversion-aware fine-tuning for k={aware_info['weight_bits']} p={aware_info['payload_bits']})"
+        if aware_info else ""))
     plot_confusion(cm, dataset.classes, out_dir / "confusion.png",
                    f"{'conversion-aware ' if aware_info else ''}frame model, test accuracy "
                    f"{100 * ev['accuracy']:.2f}% ({ev['correct']}/{ev['count']})")
@@ -278,6 +280,7 @@ def plot_curves(history: list[dict], path, title: str = "training") -> Path:
         if aware:
             ax.axvspan(aware[0] - 0.5, aware[-1] + 0.5, color="orange", alpha=0.15, label="conversion-aware")
         ax.set_xlabel("epoch")
+        ax.xaxis.get_major_locator().set_params(integer=True)  # epochs are whole numbers
         ax.grid(alpha=0.3)
         ax.legend(fontsize=8)
     a1.set_ylabel("cross-entropy loss")
