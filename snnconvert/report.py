@@ -315,11 +315,10 @@ def _data(run: Path) -> str:
         out = [_table(["quantity", "value"], rows)]
     else:
         out = [_missing("No data summary (data/summary.json).")]
-    out.append('<div class="pair">' +
-               _figure(run / "data" / "events.png", "event rate, detected bursts and their frames",
-                       "No event plot (data/events.png).") +
-               _figure(run / "data" / "frames.png", "example frames of every class, on one fixed colour scale",
-                       "No frame plot (data/frames.png).") + "</div>")
+    out.append(_figure(run / "data" / "events.png", "event rate, detected bursts and their frames",
+                       "No event plot (data/events.png)."))
+    out.append(_figure(run / "data" / "frames.png", "example frames of every class, on one fixed colour scale",
+                       "No frame plot (data/frames.png)."))
     return "\n".join(out)
 
 
