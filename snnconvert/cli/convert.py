@@ -20,7 +20,6 @@ def add_arguments(p) -> None:
     p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")
     p.add_argument("--overflow", metavar="MODE", help="saturate | wrap, with a declared accumulator width")
     p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding": "coding", "per_channel": "per_channel",
@@ -28,6 +27,7 @@ FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding":
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert.convert import convert_checkpoint, settings_from
     from snnconvert.errors import UsageError
     from snnconvert.sim.metrics import format_table
@@ -46,9 +46,9 @@ def run(args) -> int:
     out = Path(args.out) if args.out else train_dir.resolve().parent / "net"
     net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
     if args.quiet:   # otherwise measure() has printed it already
-        print(format_table(metrics))
+        console.echo(format_table(metrics))
     write_outputs(net, metrics, {**ckpt_recipe, "convert": settings}, out)
-    print(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
+    console.echo(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
     return 0
 
 

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
+from snnconvert import console
 from snnconvert import frames as F
 from snnconvert import windows as W
 from snnconvert.errors import UsageError
@@ -73,9 +74,9 @@ def run(args) -> int:
                          args.plot, thresholds=th, title=Path(args.file).name)
         info["plot"] = str(args.plot)
     if args.json:
-        print(json.dumps(info, sort_keys=True))
+        console.echo(json.dumps(info, sort_keys=True))
     else:
-        print(format_text(info))
+        console.echo(format_text(info))
     return 0
 
 

@@ -17,10 +17,10 @@ def add_arguments(p) -> None:
                    help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
     p.add_argument("--intel-hex", action=argparse.BooleanOptionalAction, default=None,
                    help="also write each table as Intel HEX (default: recipe [export] intel_hex, off)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from pathlib import Path
 
     from snnconvert.errors import check_int
@@ -33,6 +33,6 @@ def run(args) -> int:
                                inputs=args.inputs, progress=not args.quiet)
     man = load_json(man_path)
     out = Path(args.out_dir)
-    print(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
-          f"{man['vectors']['count']} golden vectors -> {out}")
+    console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
+                 f"{man['vectors']['count']} golden vectors -> {out}")
     return 0

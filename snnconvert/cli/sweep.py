@@ -21,10 +21,10 @@ def add_arguments(p) -> None:
     p.add_argument("--out", metavar="DIR", help="output folder (default: 'sweep' beside TRAIN_DIR)")
     p.add_argument("--tolerance-pp", type=float, metavar="PP",
                    help="accuracy loss allowed for the recommendation, in percentage points (default 0.5)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert import sweep
     from snnconvert.errors import UsageError
 
@@ -56,9 +56,9 @@ def run(args) -> int:
         aware_epochs=pick(args.aware_epochs, "aware_epochs"), jobs=pick(args.jobs, "jobs"), out_dir=args.out,
         tolerance_pp=pick(args.tolerance_pp, "tolerance_pp"), progress=not args.quiet, context=context)
     rows = sweep.table_rows(result.records, result.frame_accuracy, result.tolerance_pp)
-    print(sweep.format_table(rows, result.recommendation))
-    print(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
-          f"frame accuracy {100 * result.frame_accuracy:.2f} %")
-    print(result.recommendation["message"])
-    print(f"outputs in {result.out_dir}")
+    console.echo(sweep.format_table(rows, result.recommendation))
+    console.echo(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
+                 f"frame accuracy {100 * result.frame_accuracy:.2f} %")
+    console.echo(result.recommendation["message"])
+    console.echo(f"outputs in {result.out_dir}")
     return 0

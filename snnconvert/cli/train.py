@@ -14,10 +14,10 @@ def add_arguments(p) -> None:
     p.add_argument("--out", metavar="DIR", help="output folder (default: runs/<recipe name>/train)")
     p.add_argument("--init", metavar="CHECKPOINT",
                    help="start from this float checkpoint (model.pt or its folder) instead of random weights")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert import recipe as recipe_mod
     from snnconvert.errors import UsageError
 
@@ -33,8 +33,8 @@ def run(args) -> int:
         a = m["aware"]
         aware = (f" (conversion-aware: {a['weight_bits']}-bit weights, {a['payload_bits']}-bit payloads; "
                  f"float model {100 * m['float_frame_accuracy']:.2f}%)")
-    print(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
-          f"{aware}; {m['epochs']} epochs in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
-          f"{m['macs']:,} MACs per sample")
-    print(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png")
+    console.echo(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
+                 f"{aware}; {console.plural(m['epochs'], 'epoch')} in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
+                 f"{m['macs']:,} MACs per sample")
+    console.echo(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png")
     return 0

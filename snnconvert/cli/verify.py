@@ -8,10 +8,10 @@ HELP = "check an export folder bit-exactly: tables agree and golden vectors re-s
 def add_arguments(p) -> None:
     p.add_argument("out_dir", metavar="OUT_DIR", help="export folder holding manifest.json")
     p.add_argument("--json", metavar="FILE", help="also write the result as JSON to FILE (outside the export folder)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from pathlib import Path
 
     from snnconvert.errors import UsageError
@@ -25,5 +25,5 @@ def run(args) -> int:
     res = verify(args.out_dir, progress=not args.quiet)
     if args.json:
         atomic_write_json(args.json, res.to_dict())
-    print(res.summary())
+    console.echo(res.summary())
     return 0 if res.passed else 1
