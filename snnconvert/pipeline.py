@@ -20,7 +20,7 @@ import numpy as np
 from snnconvert import console
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
-from snnconvert.files import atomic_write_json, fingerprint, load_json
+from snnconvert.files import atomic_write_json, check_output_path, fingerprint, load_json
 
 STAGES = ["data", "train", "convert", "sweep", "export", "verify", "report"]
 STAGE_LOG_VERSION = 1
@@ -114,7 +114,7 @@ def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
     if force is not None and force not in STAGES:
         raise UsageError(f"The 'force' parameter of run must be one of {', '.join(map(repr, STAGES))}. Got {force!r} instead.")
     r = recipe_mod.load(recipe_path, overrides)
-    out = Path(out) if out else default_out(r)
+    out = check_output_path(out or default_out(r), "--out" if out else "", "folder")
     out.mkdir(parents=True, exist_ok=True)
     recipe_mod.save(r, out)
     run_ = Run(r, out, force)

@@ -30,8 +30,11 @@ def run(args) -> int:
     from snnconvert import console
     from snnconvert.convert import convert_checkpoint, settings_from
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
     from snnconvert.sim.metrics import format_table
 
+    if args.out:
+        check_output_path(args.out, "--out", "folder")
     train_dir = Path(args.train_dir)
     if not (train_dir / "model.pt").is_file():
         raise UsageError(f"{train_dir / 'model.pt'}: file not found (TRAIN_DIR must be a folder written by "
@@ -43,7 +46,7 @@ def run(args) -> int:
         if v is not None:
             settings[key] = v
     settings = settings_from(settings)
-    out = Path(args.out) if args.out else train_dir.resolve().parent / "net"
+    out = Path(args.out) if args.out else check_output_path(train_dir.resolve().parent / "net", "", "folder")
     net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
     if args.quiet:   # otherwise measure() has printed it already
         console.echo(format_table(metrics))

@@ -12,6 +12,7 @@ from snnconvert import frames as F
 from snnconvert import windows as W
 from snnconvert.errors import UsageError
 from snnconvert.events import parse_sensor, read_events
+from snnconvert.files import check_output_path
 
 HELP = "summarize an event recording: events, duration, rate, ON/OFF balance and bursts"
 
@@ -62,6 +63,8 @@ def run(args) -> int:
     for name in ("upper", "lower"):
         if not getattr(args, name) >= 0:
             raise UsageError(f"--{name} must be >= 0; got {getattr(args, name)}")
+    if args.plot:
+        check_output_path(args.plot, "--plot")
     stream = read_events(args.file, sensor=sensor)
     info = summarize(stream, args.bin_us, args.upper, args.lower, not args.absolute, args.min_duration_us,
                      args.merge_gap_us)

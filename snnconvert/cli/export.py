@@ -20,13 +20,14 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
-    from snnconvert import console
     from pathlib import Path
 
+    from snnconvert import console
     from snnconvert.errors import check_int
     from snnconvert.export import export_from_run
-    from snnconvert.files import load_json
+    from snnconvert.files import check_output_path, load_json
 
+    check_output_path(args.out_dir, "OUT_DIR", "folder")
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
     man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,

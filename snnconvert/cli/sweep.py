@@ -27,6 +27,7 @@ def run(args) -> int:
     from snnconvert import console
     from snnconvert import sweep
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
 
     # Grid typos are reported before the checkpoint and the data set are loaded.
     for value, name, rng in ((args.weight_bits, "weight_bits", sweep.WEIGHT_BITS_RANGE),
@@ -35,6 +36,8 @@ def run(args) -> int:
             sweep.parse_grid(value, name, "sweep", *rng)
     if args.coding:
         sweep.parse_codings(",".join(args.coding))
+    if args.out:
+        check_output_path(args.out, "--out", "folder")
     path = Path(args.train_dir)
     if not path.exists():
         raise UsageError(f"training folder not found: {path}")

@@ -20,11 +20,13 @@ def run(args) -> int:
     from snnconvert import console
     from snnconvert import recipe as recipe_mod
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
 
     r = recipe_mod.load(args.recipe, args.overrides)
     if args.init is not None and not Path(args.init).exists():
         raise UsageError(f"init checkpoint not found: {args.init}")
-    out = Path(args.out) if args.out else Path("runs") / r["name"] / "train"
+    out = check_output_path(Path(args.out) if args.out else Path("runs") / r["name"] / "train",
+                            "--out" if args.out else "", "folder")
     from snnconvert import data, train
     dataset = data.load_dataset(r)
     _, m = train.train(r, dataset, out, init=args.init, quiet=args.quiet)

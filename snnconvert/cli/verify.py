@@ -11,14 +11,15 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
-    from snnconvert import console
     from pathlib import Path
 
+    from snnconvert import console
     from snnconvert.errors import UsageError
     from snnconvert.export import verify
-    from snnconvert.files import atomic_write_json
+    from snnconvert.files import atomic_write_json, check_output_path
 
     if args.json:
+        check_output_path(args.json, "--json")
         folder, target = Path(args.out_dir).resolve(), Path(args.json).resolve()
         if folder in target.parents:
             raise UsageError(f"--json {args.json}: verify writes nothing inside the export folder {args.out_dir}")
