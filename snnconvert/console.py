@@ -54,7 +54,11 @@ class _Stderr:
     the start of a line. A carriage return starts a line only on a terminal."""
 
     def __init__(self):
-        self.at_line_start = True
+        self._dirty = None   # the stream whose cursor is not at a line start, if any
+
+    @property
+    def at_line_start(self) -> bool:
+        return self._dirty is not sys.stderr
 
     def write(self, s: str) -> int:
         if not s:
@@ -63,7 +67,8 @@ class _Stderr:
             sys.stderr.write(s)
         except BrokenPipeError:
             _drop("stderr")
-        self.at_line_start = s.endswith("\n") or (s.endswith("\r") and self.isatty())
+        fresh = s.endswith("\n") or (s.endswith("\r") and self.isatty())
+        self._dirty = None if fresh else sys.stderr
         return len(s)
 
     def flush(self) -> None:
@@ -119,6 +124,12 @@ def echo(text: str = "", end: str = "\n") -> None:
             sys.stdout.flush()
         except BrokenPipeError:
             _drop("stdout")
+
+
+def show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """`warnings.showwarning` for the program: the warning as a message line."""
+    import warnings
+    say(warnings.formatwarning(message, category, filename, lineno, line).rstrip("\n"))
 
 
 def error(msg: str) -> None:

@@ -67,6 +67,17 @@ def test_error_closes_open_bars_and_starts_a_line(capsys):
     assert err.endswith("\nerror: data.limit is wrong\n")
 
 
+def test_library_warning_starts_its_own_line(capsys):
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("always")
+        warnings.showwarning = console.show_warning   # as the program sets it
+        with console.bar(range(3), desc="train") as b:
+            for _ in b:
+                warnings.warn_explicit("lr is large", UserWarning, "train.py", 7)
+    assert clean_lines(capsys.readouterr().err) == ["train.py:7: UserWarning: lr is large"] * 3
+
+
 def test_quiet_draws_no_bar(capsys):
     console.set_quiet(True)
     for _ in console.bar(range(5), desc="reading"):

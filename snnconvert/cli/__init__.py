@@ -14,6 +14,7 @@ import importlib
 import os
 import sys
 import traceback
+import warnings
 
 from snnconvert import console
 from snnconvert.errors import UsageError
@@ -86,7 +87,9 @@ def _one_line(msg: str) -> str:
 
 
 def entry() -> None:
-    """The `snnconvert` program: main(), then a final flush that tolerates a reader gone early."""
+    """The `snnconvert` program: main(), then a final flush that tolerates a reader gone early.
+    Python warnings (from the libraries) are message lines too: they go through the console."""
+    warnings.showwarning = console.show_warning
     code = main()
     console.finish()
     sys.exit(code)
