@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert import files
+from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events import sensor as _sensor
 from snnconvert.events.formats import SUFFIXES, read_events, write_events
@@ -293,7 +293,6 @@ def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_size
 # --- frames of many recordings ---------------------------------------------------------------
 def recording_frames(recs: RecordingSet, frames_section: dict, progress: bool = True):
     """(X (N, C, S, S) float32, windows (N, 2), used_rule (N,) bool) for a RecordingSet."""
-    from snnconvert import console
     from snnconvert import frames as F
     sec = {k: frames_section.get(k, key.default) for k, key in F.SCHEMA.items()}
     n = len(recs)
@@ -381,7 +380,6 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         paths, names = read_index(index)
         classes = class_names(names)
         keep = _subset(np.array([classes.index(v) for v in names]), sec["limit"], seed)
-        from snnconvert import console
         s_side = (sec["sensor_size"], sec["sensor_size"])
         streams = [read_events(paths[i], sensor=s_side if paths[i].suffix.lower() == ".bin" else None)
                    for i in console.bar(keep, desc="reading", unit="file", enabled=progress)]
