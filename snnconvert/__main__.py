@@ -1,5 +1,3 @@
-import sys
+from snnconvert.cli import entry
 
-from snnconvert.cli import main
-
-sys.exit(main())
+entry()

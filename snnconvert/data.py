@@ -21,13 +21,12 @@ import csv
 import gzip
 import io
 import os
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from snnconvert import files
+from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events import sensor as _sensor
 from snnconvert.events.formats import SUFFIXES, read_events, write_events
@@ -200,7 +199,7 @@ def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, confi
                 ev["t"], ev["x"], ev["y"], ev["p"] = z["t"], z["x"], z["y"], z["p"]
                 return RecordingSet(ev, z["offsets"].astype(np.int64), labels, w, h), path, True
         except (FormatError, KeyError, ValueError) as exc:
-            print(f"warning: ignoring unreadable cache {path} ({exc}); simulating again", file=sys.stderr)
+            console.say(f"warning: ignoring unreadable cache {path} ({exc}); simulating again")
     rng = np.random.default_rng([int(seed), 1])
     ev, offsets = _sensor.simulate_batch(images, stimulus, config, rng, progress=True)
     # uncompressed but compact (7 bytes per event on sensors up to 256 pixels): deflating millions of
@@ -212,7 +211,7 @@ def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, confi
     try:
         files.atomic_write_bytes(path, buf.getvalue())
     except OSError as exc:  # a read-only cache must not stop the run
-        print(f"warning: cannot write cache {path} ({exc})", file=sys.stderr)
+        console.say(f"warning: cannot write cache {path} ({exc})")
     return RecordingSet(ev, offsets, labels, w, h), path, False
 
 
@@ -294,14 +293,13 @@ def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_size
 # --- frames of many recordings ---------------------------------------------------------------
 def recording_frames(recs: RecordingSet, frames_section: dict, progress: bool = True):
     """(X (N, C, S, S) float32, windows (N, 2), used_rule (N,) bool) for a RecordingSet."""
-    from tqdm import tqdm
     from snnconvert import frames as F
     sec = {k: frames_section.get(k, key.default) for k, key in F.SCHEMA.items()}
     n = len(recs)
     wins = np.zeros((n, 2), np.int64)
     ok = np.zeros(n, bool)
     sel = []
-    for i in tqdm(range(n), desc="windows", unit="rec", disable=not progress, leave=False, file=sys.stderr):
+    for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
         s, _ = recs[i]
         (t0, t1), ok[i] = F.frame_window(s, sec)
         wins[i] = t0, t1
@@ -382,11 +380,9 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         paths, names = read_index(index)
         classes = class_names(names)
         keep = _subset(np.array([classes.index(v) for v in names]), sec["limit"], seed)
-        from tqdm import tqdm
         s_side = (sec["sensor_size"], sec["sensor_size"])
         streams = [read_events(paths[i], sensor=s_side if paths[i].suffix.lower() == ".bin" else None)
-                   for i in tqdm(keep, desc="reading", unit="file", disable=not progress, leave=False,
-                                 file=sys.stderr)]
+                   for i in console.bar(keep, desc="reading", unit="file", enabled=progress)]
         recs = RecordingSet.from_streams(streams, [classes.index(names[i]) for i in keep])
         info.update(index=str(index))
     return recs, classes, info
@@ -440,9 +436,9 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
     )
     if len(X) and info["empty_frames"] > len(X) // 10:
-        print(f"warning: {info['empty_frames']} of {len(X)} frames are empty; lower frames.threshold "
+        console.say(f"warning: {info['empty_frames']} of {len(X)} frames are empty; lower frames.threshold "
               f"(now {fsec['threshold']}) or change frames.window/pick (sparse recordings such as saccades "
-              "need a threshold of 1-2)", file=sys.stderr)
+              "need a threshold of 1-2)")
     fp = _digest(X, y, tr, va, te, classes)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
                    input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,

@@ -124,6 +124,33 @@ def resolve_inside(folder, relative: str, what: str = "path") -> Path:
     return target
 
 
+def check_output_path(path, option: str, kind: str = "file") -> Path:
+    """Refuse an output path that cannot be written, before any work and without touching it.
+
+    `kind` is "file" (the path is written as a file; its folders may be created) or "folder"
+    (the path is a folder that may be created). The nearest existing ancestor must be a folder
+    the user can write into; an existing target must be of the right kind.
+    """
+    path = Path(path)
+    label = f"{option} {path}" if option else str(path)
+    if path.exists() and path.is_dir() != (kind == "folder"):
+        what = "a folder, not a file" if path.is_dir() else "a file, not a folder"
+        raise UsageError(f"{label}: cannot write there: {path} is {what}")
+    if path.exists():
+        ancestor, target = path, path
+    else:
+        ancestor = path.parent
+        while not ancestor.exists() and ancestor != ancestor.parent:
+            ancestor = ancestor.parent
+        target = ancestor
+        if not ancestor.is_dir():
+            raise UsageError(f"{label}: cannot write there: {ancestor} is a file, not a folder")
+    folder = target if target.is_dir() else target.parent
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise UsageError(f"{label}: cannot write there: no permission to write in {folder}")
+    return path
+
+
 def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 

@@ -19,13 +19,12 @@ Sequential of the same pattern is accepted wherever a recipe model is (see `spec
 from __future__ import annotations
 
 import copy
-import sys
 
 import numpy as np
 import torch
 from torch import nn
 
-from snnconvert import arith
+from snnconvert import arith, console
 from snnconvert.errors import (UsageError, check_bool, check_choice, check_float, check_int,
                                unknown_key_message)
 from snnconvert.schema import Key
@@ -170,7 +169,7 @@ def build_model(model_section, input_shape, n_classes: int, quiet: bool = False)
     model = nn.Sequential(*mods)
     if not quiet:
         d = describe(model, input_shape)
-        print(f"model: {d['params']:,} parameters, {d['macs']:,} multiply-accumulates per sample", file=sys.stderr)
+        console.say(f"model: {d['params']:,} parameters, {d['macs']:,} multiply-accumulates per sample")
     return model
 
 

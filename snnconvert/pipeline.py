@@ -12,15 +12,15 @@ finished stages intact and the next run picks up where this one stopped.
 from __future__ import annotations
 
 import shutil
-import sys
 import time
 from pathlib import Path
 
 import numpy as np
 
+from snnconvert import console
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
-from snnconvert.files import atomic_write_json, fingerprint, load_json
+from snnconvert.files import atomic_write_json, check_output_path, fingerprint, load_json
 
 STAGES = ["data", "train", "convert", "sweep", "export", "verify", "report"]
 STAGE_LOG_VERSION = 1
@@ -44,10 +44,6 @@ _OUTPUTS = {
     "verify": ["verify.json"],
     "report": ["report.html"],
 }
-
-
-def _say(msg: str) -> None:
-    print(msg, file=sys.stderr, flush=True)
 
 
 class Run:
@@ -94,9 +90,9 @@ class Run:
             self.actions[name] = "reused"
             rec["last_action"] = "reused"
             self._write_log()
-            _say(f"[{name}] reused (inputs unchanged, fingerprint {fp})")
+            console.say(f"[{name}] reused (inputs unchanged, fingerprint {fp})")
             return
-        _say(f"[{name}] running ...")
+        console.say(f"[{name}] running ...")
         t0 = time.perf_counter()
         self.log["stages"][name] = {"fingerprint": fp, "status": "running"}
         self._write_log()
@@ -106,7 +102,7 @@ class Run:
                                     "last_action": "ran"}
         self.actions[name] = "ran"
         self._write_log()
-        _say(f"[{name}] done in {secs:.1f} s")
+        console.say(f"[{name}] done in {secs:.1f} s")
 
 
 def default_out(recipe: dict) -> Path:
@@ -118,7 +114,7 @@ def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
     if force is not None and force not in STAGES:
         raise UsageError(f"The 'force' parameter of run must be one of {', '.join(map(repr, STAGES))}. Got {force!r} instead.")
     r = recipe_mod.load(recipe_path, overrides)
-    out = Path(out) if out else default_out(r)
+    out = check_output_path(out or default_out(r), "--out" if out else "", "folder")
     out.mkdir(parents=True, exist_ok=True)
     recipe_mod.save(r, out)
     run_ = Run(r, out, force)
@@ -163,8 +159,17 @@ def _data_stage(run_: Run) -> None:
         summary["example_recording"] = example
     atomic_write_json(d / "summary.json", summary)
     recipe_mod.save(run_.recipe, d)
-    _say(f"[data] {summary['samples']} samples, frames {tuple(ds.input_shape)}, "
-         f"{events_per_frame:.1f} input events per frame (mean, train split)")
+    console.say(f"[data] {data_line(summary['samples'], ds.input_shape, run_.recipe['frames']['mode'], len(ds.classes))}, "
+                f"{events_per_frame:.1f} input events per frame (mean, train split)")
+
+
+def data_line(samples: dict, input_shape, mode: str, n_classes: int) -> str:
+    """`1257 train, 180 validation, 360 test samples, 16x16 binary frames, 10 classes` (2 channels noted)."""
+    c, h, w = input_shape
+    channels = f" of {console.plural(c, 'channel')}" if c != 1 else ""
+    return (f"{samples['train']} train, {samples['val']} validation, "
+            f"{console.plural(samples['test'], 'test sample')}, {w}x{h} {mode} frames{channels}, "
+            f"{console.plural(n_classes, 'class', 'classes')}")
 
 
 def _example_recording(run_: Run) -> dict | None:
@@ -222,7 +227,7 @@ def _verify_stage(run_: Run) -> None:
     res = verify(run_.out / "export")
     atomic_write_json(run_.out / "verify.json", res.to_dict())
     if not res.passed:
-        _say(f"[verify] {res.first_mismatch.message()}")
+        console.say(f"[verify] {res.first_mismatch.message()}")
 
 
 def _report_stage(run_: Run) -> None:
@@ -258,17 +263,23 @@ def _summary(run_: Run) -> dict:
 
 
 def _print_summary(s: dict) -> None:
-    def fmt(v):
+    def fmt(k, v):
+        if k == "recommended" and v is None:
+            return "none (sweep off)"
+        if v is None:
+            return "-"
+        if isinstance(v, bool):
+            return "yes" if v else "no"
         if isinstance(v, float):
             return f"{v:.4g}"
         if isinstance(v, dict):
-            return v.get("label") or ", ".join(f"{k}={v[k]}" for k in list(v)[:4])
+            return v.get("label") or ", ".join(f"{k} {v[k]}" for k in list(v)[:4])
         return str(v)
     rows = [(k, s[k]) for k in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
                                  "weight_bits", "payload_bits", "coding", "spikes_per_sample",
                                  "sops_per_sample", "macs_per_sample", "verify_passed", "recommended")]
     w = max(len(k) for k, _ in rows)
-    print(f"summary of run '{s['name']}'")
+    console.echo(f"summary of run '{s['name']}'")
     for k, v in rows:
-        print(f"  {k:<{w}}  {fmt(v)}")
-    print(f"  {'report':<{w}}  {s['paths']['report']}")
+        console.echo(f"  {k:<{w}}  {fmt(k, v)}")
+    console.echo(f"  {'report':<{w}}  {s['paths']['report']}")

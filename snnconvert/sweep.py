@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
 
-from snnconvert import files
+from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError, check_bool, check_float, check_int
 from snnconvert.intnet import CODINGS
 from snnconvert.schema import Key
@@ -386,7 +386,6 @@ def run_points(points: list[dict], fn: Callable, model, dataset, recipe: dict, a
     Each point is logged as soon as this process has it, in the order points finish; a point's
     metrics do not depend on the process that computed it.
     """
-    from tqdm import tqdm
     done = log.load()
     pending = [p for p in points if p["key"] not in done]
     n_jobs = resolve_jobs(jobs)
@@ -395,7 +394,7 @@ def run_points(points: list[dict], fn: Callable, model, dataset, recipe: dict, a
         results = (_call(*args, p) for p in pending)
     else:
         results = _in_parallel(pending, n_jobs, args)
-    bar = tqdm(results, total=len(pending), desc="sweep", unit="point", disable=not progress or not pending)
+    bar = console.bar(results, total=len(pending), desc="sweep", unit="point", enabled=progress and bool(pending))
     for point, metrics, timing in bar:
         rec = {"format": RESULTS_FORMAT, "version": VERSION, "key": point["key"],
                "params": {k: point[k] for k in PARAM_COLUMNS}, "metrics": metrics,

@@ -20,16 +20,14 @@ import csv
 import io
 import math
 import os
-import sys
 import time
 from pathlib import Path
 
 import numpy as np
 import torch
 from torch import nn
-from tqdm import tqdm
 
-from snnconvert import files, models
+from snnconvert import console, files, models
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int
 from snnconvert.schema import Key
@@ -320,8 +318,7 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
         t_ep = time.perf_counter()
         perm = torch.randperm(n, generator=gen)
         loss_sum, correct = 0.0, 0
-        bar = tqdm(range(steps), desc=f"{phase} epoch {epoch + 1}/{epochs}", file=sys.stderr, disable=quiet,
-                   leave=False, dynamic_ncols=True)
+        bar = console.bar(range(steps), desc=f"{phase} epoch {epoch + 1}/{epochs}", enabled=not quiet)
         for b in bar:
             for g in opt.param_groups:
                 g["lr"] = _lr_at(cfg, lr, step, total, epoch)
@@ -361,8 +358,8 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
         history.append(row)
         if not quiet:
             va = "-" if row["val_accuracy"] is None else f"{100 * row['val_accuracy']:.2f}%"
-            print(f"{phase} epoch {epoch + 1}/{epochs}: loss {row['train_loss']:.4f}, "
-                  f"train {100 * row['train_accuracy']:.2f}%, val {va}", file=sys.stderr)
+            console.say(f"{phase} epoch {epoch + 1}/{epochs}: loss {row['train_loss']:.4f}, "
+                  f"train {100 * row['train_accuracy']:.2f}%, val {va}")
         if score > best_acc:
             best_acc, bad = score, 0
             best_state = copy.deepcopy(model.state_dict())

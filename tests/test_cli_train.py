@@ -34,7 +34,7 @@ def test_train_command_writes_outputs_and_summary(small_data, tmp_path, capsys):
     assert {"frame_accuracy", "per_class_accuracy", "epochs", "train_seconds"} <= set(m)
     lines = captured.out.splitlines()
     assert lines[0].startswith(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/100 test frames); "
-                               f"1 epochs in ")
+                               f"1 epoch in ")
     assert lines[1] == f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png"
     assert "seed = 2" in (out / "recipe.toml").read_text()
 

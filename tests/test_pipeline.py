@@ -1,6 +1,7 @@
 """`snnconvert run`: the whole job end to end, stage reuse, and every shipped recipe (scaled down)."""
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -9,6 +10,7 @@ import numpy as np
 import pytest
 
 from snnconvert.cli import main
+from test_cli_console import BAR, clean_lines
 
 ROOT = Path(__file__).resolve().parent.parent
 RECIPES = ROOT / "recipes"
@@ -46,16 +48,30 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
     assert set(_stage_actions(out).values()) == {"ran"}
     html = (out / "report.html").read_text()
     assert "data:image/png;base64," in html
-    out_text = capsys.readouterr().out
+    captured = capsys.readouterr()
+    out_text = captured.out
     assert "summary of run 'default'" in out_text and "verify_passed" in out_text
+    # bars are drawn, and every message starts its own line
+    assert BAR.search(captured.err)
+    lines = clean_lines(captured.err)
+    assert all(re.match(r"\[\w+\] |model: |float epoch \d+/12: ", m) for m in lines), lines
+    # scikit-learn's train_test_split rounds the test size up: ceil(0.2 * 1797) = 360, then
+    # ceil(0.1 / 0.8 * 1437) = 180 for validation; the rest, 1257, trains (the 1797 scikit-learn digits)
+    assert any(re.fullmatch(r"\[data\] 1257 train, 180 validation, 360 test samples, 16x16 binary frames, "
+                            r"10 classes, \d+\.\d input events per frame \(mean, train split\)", m) for m in lines)
+    assert re.search(r"^\[export\] done in \d+\.\d s$", captured.err, re.M)
 
     # a second run with the same resolved recipe reuses every stage
     assert main(args) == 0
     assert set(_stage_actions(out).values()) == {"reused"}
     assert json.loads((out / "summary.json").read_text())["stages"]["train"] == "reused"
 
-    # --force redoes that stage and every later one, and nothing before it
-    assert main(args + ["--force", "export"]) == 0
+    # --force redoes that stage and every later one, and nothing before it; --quiet draws no bar
+    capsys.readouterr()
+    assert main(args + ["--force", "export", "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert "\r" not in err and not BAR.search(err)
+    assert all(re.fullmatch(r"\[\w+\] (reused .*|running \.\.\.|done in \d+\.\d s)", m) for m in err.splitlines())
     actions = _stage_actions(out)
     assert actions["train"] == "reused" and actions["convert"] == "reused"
     assert actions["export"] == actions["verify"] == actions["report"] == "ran"

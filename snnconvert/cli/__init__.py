@@ -14,7 +14,9 @@ import importlib
 import os
 import sys
 import traceback
+import warnings
 
+from snnconvert import console
 from snnconvert.errors import UsageError
 
 # Order is the order of the job; `run` chains them all.
@@ -26,6 +28,10 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message):  # noqa: D401 - argparse API
         raise UsageError(f"{self.prog}: {message}")
+
+    def _print_message(self, message, file=None):  # help and version text go through the console
+        if message:
+            (console.echo if file in (None, sys.stdout) else console.say)(message.rstrip("\n"))
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -42,6 +48,7 @@ def build_parser() -> argparse.ArgumentParser:
             raise
         p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
         mod.add_arguments(p)
+        p.add_argument("--quiet", action="store_true", help="no progress bars (messages and results still print)")
         p.set_defaults(_run=mod.run)
     return parser
 
@@ -54,22 +61,25 @@ def main(argv: list[str] | None = None) -> int:
         if not getattr(args, "_run", None):
             parser.print_help()
             return 2
+        console.set_quiet(args.quiet)
         return int(args._run(args) or 0)
     except UsageError as exc:
-        print(f"error: {_one_line(str(exc))}", file=sys.stderr)
+        console.error(_one_line(str(exc)))
         return 2
     except KeyboardInterrupt:
-        print("error: interrupted; finished stages and files are intact", file=sys.stderr)
+        console.error("interrupted; finished stages and files are intact")
         return 130
     except SystemExit as exc:  # --help / --version
         return int(exc.code or 0) if isinstance(exc.code, int) else 0
     except Exception as exc:  # a bug, not a user error
-        print(f"error: unexpected failure: {type(exc).__name__}: {_one_line(str(exc))}", file=sys.stderr)
+        console.error(f"unexpected failure: {type(exc).__name__}: {_one_line(str(exc))}")
         if os.environ.get("SNNCONVERT_DEBUG"):
-            traceback.print_exc()
+            console.say(traceback.format_exc().rstrip("\n"))
         else:
-            print("(set SNNCONVERT_DEBUG=1 for the traceback)", file=sys.stderr)
+            console.say("(set SNNCONVERT_DEBUG=1 for the traceback)")
         return 1
+    finally:
+        console.set_quiet(False)
 
 
 def _one_line(msg: str) -> str:
@@ -77,4 +87,9 @@ def _one_line(msg: str) -> str:
 
 
 def entry() -> None:
-    sys.exit(main())
+    """The `snnconvert` program: main(), then a final flush that tolerates a reader gone early.
+    Python warnings (from the libraries) are message lines too: they go through the console."""
+    warnings.showwarning = console.show_warning
+    code = main()
+    console.finish()
+    sys.exit(code)

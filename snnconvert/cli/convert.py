@@ -20,7 +20,6 @@ def add_arguments(p) -> None:
     p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")
     p.add_argument("--overflow", metavar="MODE", help="saturate | wrap, with a declared accumulator width")
     p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding": "coding", "per_channel": "per_channel",
@@ -28,10 +27,14 @@ FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding":
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert.convert import convert_checkpoint, settings_from
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
     from snnconvert.sim.metrics import format_table
 
+    if args.out:
+        check_output_path(args.out, "--out", "folder")
     train_dir = Path(args.train_dir)
     if not (train_dir / "model.pt").is_file():
         raise UsageError(f"{train_dir / 'model.pt'}: file not found (TRAIN_DIR must be a folder written by "
@@ -43,12 +46,12 @@ def run(args) -> int:
         if v is not None:
             settings[key] = v
     settings = settings_from(settings)
-    out = Path(args.out) if args.out else train_dir.resolve().parent / "net"
+    out = Path(args.out) if args.out else check_output_path(train_dir.resolve().parent / "net", "", "folder")
     net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
     if args.quiet:   # otherwise measure() has printed it already
-        print(format_table(metrics))
+        console.echo(format_table(metrics))
     write_outputs(net, metrics, {**ckpt_recipe, "convert": settings}, out)
-    print(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
+    console.echo(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
     return 0
 
 

@@ -7,10 +7,12 @@ from pathlib import Path
 
 import numpy as np
 
+from snnconvert import console
 from snnconvert import frames as F
 from snnconvert import windows as W
 from snnconvert.errors import UsageError
 from snnconvert.events import parse_sensor, read_events
+from snnconvert.files import check_output_path
 
 HELP = "summarize an event recording: events, duration, rate, ON/OFF balance and bursts"
 
@@ -61,6 +63,8 @@ def run(args) -> int:
     for name in ("upper", "lower"):
         if not getattr(args, name) >= 0:
             raise UsageError(f"--{name} must be >= 0; got {getattr(args, name)}")
+    if args.plot:
+        check_output_path(args.plot, "--plot")
     stream = read_events(args.file, sensor=sensor)
     info = summarize(stream, args.bin_us, args.upper, args.lower, not args.absolute, args.min_duration_us,
                      args.merge_gap_us)
@@ -74,9 +78,9 @@ def run(args) -> int:
                          q=F.input_q(args.mode, _FS["max_count"].default))
         info["plot"] = str(args.plot)
     if args.json:
-        print(json.dumps(info, sort_keys=True))
+        console.echo(json.dumps(info, sort_keys=True))
     else:
-        print(format_text(info))
+        console.echo(format_text(info))
     return 0
 
 

@@ -17,22 +17,23 @@ def add_arguments(p) -> None:
                    help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
     p.add_argument("--intel-hex", action=argparse.BooleanOptionalAction, default=None,
                    help="also write each table as Intel HEX (default: recipe [export] intel_hex, off)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
     from pathlib import Path
 
+    from snnconvert import console
     from snnconvert.errors import check_int
     from snnconvert.export import export_from_run
-    from snnconvert.files import load_json
+    from snnconvert.files import check_output_path, load_json
 
+    check_output_path(args.out_dir, "OUT_DIR", "folder")
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
     man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,
                                inputs=args.inputs, progress=not args.quiet)
     man = load_json(man_path)
     out = Path(args.out_dir)
-    print(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
-          f"{man['vectors']['count']} golden vectors -> {out}")
+    console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
+                 f"{man['vectors']['count']} golden vectors -> {out}")
     return 0

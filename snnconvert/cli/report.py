@@ -10,7 +10,8 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert.report import write_report
     path = write_report(args.run_dir)
-    print(f"report written to {path}")
+    console.echo(f"report written to {path}")
     return 0

@@ -17,7 +17,6 @@ def add_arguments(p) -> None:
     p.add_argument("--reference", action="store_true",
                    help="also run the event-by-event reference simulator and check it agrees exactly")
     p.add_argument("--limit", type=int, metavar="N", help="use only the first N samples")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 def _load_data(net, source, progress: bool):
@@ -48,6 +47,7 @@ def _load_data(net, source, progress: bool):
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert import arith
     from snnconvert.errors import UsageError, check_int
     from snnconvert.intnet import IntNetwork
@@ -63,15 +63,15 @@ def run(args) -> int:
     model, X, y = _load_data(net, args.data, not args.quiet)
     X, y = X[:n], y[:n]
     m = measure(model, net, X, y, quiet=True)
-    print(format_table(m))
+    console.echo(format_table(m))
     if args.reference:
         x_int = arith.quantize_input(X, net.input_q)
         vec = simulate(net, x_int, record=False)
         traces = R.run_batch(net, x_int, progress=not args.quiet)
         for i, tr in enumerate(traces):
             if not np.array_equal(tr.potentials, vec.potentials[i]) or tr.decision != vec.decisions[i]:
-                print(f"reference and vectorized simulators differ on sample {i}")
+                console.echo(f"reference and vectorized simulators differ on sample {i}")
                 return 1
-        print(f"reference simulator agrees with the vectorized one on {len(traces)} samples "
-              f"({sum(t.sops for t in traces) / len(traces):.0f} SOPs per sample)")
+        console.echo(f"reference simulator agrees with the vectorized one on {len(traces)} samples "
+                     f"({sum(t.sops for t in traces) / len(traces):.0f} SOPs per sample)")
     return 0

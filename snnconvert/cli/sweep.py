@@ -21,12 +21,13 @@ def add_arguments(p) -> None:
     p.add_argument("--out", metavar="DIR", help="output folder (default: 'sweep' beside TRAIN_DIR)")
     p.add_argument("--tolerance-pp", type=float, metavar="PP",
                    help="accuracy loss allowed for the recommendation, in percentage points (default 0.5)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert import sweep
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
 
     # Grid typos are reported before the checkpoint and the data set are loaded.
     for value, name, rng in ((args.weight_bits, "weight_bits", sweep.WEIGHT_BITS_RANGE),
@@ -35,6 +36,8 @@ def run(args) -> int:
             sweep.parse_grid(value, name, "sweep", *rng)
     if args.coding:
         sweep.parse_codings(",".join(args.coding))
+    if args.out:
+        check_output_path(args.out, "--out", "folder")
     path = Path(args.train_dir)
     if not path.exists():
         raise UsageError(f"training folder not found: {path}")
@@ -56,9 +59,9 @@ def run(args) -> int:
         aware_epochs=pick(args.aware_epochs, "aware_epochs"), jobs=pick(args.jobs, "jobs"), out_dir=args.out,
         tolerance_pp=pick(args.tolerance_pp, "tolerance_pp"), progress=not args.quiet, context=context)
     rows = sweep.table_rows(result.records, result.frame_accuracy, result.tolerance_pp)
-    print(sweep.format_table(rows, result.recommendation))
-    print(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
-          f"frame accuracy {100 * result.frame_accuracy:.2f} %")
-    print(result.recommendation["message"])
-    print(f"outputs in {result.out_dir}")
+    console.echo(sweep.format_table(rows, result.recommendation))
+    console.echo(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
+                 f"frame accuracy {100 * result.frame_accuracy:.2f} %")
+    console.echo(result.recommendation["message"])
+    console.echo(f"outputs in {result.out_dir}")
     return 0

@@ -14,17 +14,19 @@ def add_arguments(p) -> None:
     p.add_argument("--out", metavar="DIR", help="output folder (default: runs/<recipe name>/train)")
     p.add_argument("--init", metavar="CHECKPOINT",
                    help="start from this float checkpoint (model.pt or its folder) instead of random weights")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 def run(args) -> int:
+    from snnconvert import console
     from snnconvert import recipe as recipe_mod
     from snnconvert.errors import UsageError
+    from snnconvert.files import check_output_path
 
     r = recipe_mod.load(args.recipe, args.overrides)
     if args.init is not None and not Path(args.init).exists():
         raise UsageError(f"init checkpoint not found: {args.init}")
-    out = Path(args.out) if args.out else Path("runs") / r["name"] / "train"
+    out = check_output_path(Path(args.out) if args.out else Path("runs") / r["name"] / "train",
+                            "--out" if args.out else "", "folder")
     from snnconvert import data, train
     dataset = data.load_dataset(r)
     _, m = train.train(r, dataset, out, init=args.init, quiet=args.quiet)
@@ -33,8 +35,8 @@ def run(args) -> int:
         a = m["aware"]
         aware = (f" (conversion-aware: {a['weight_bits']}-bit weights, {a['payload_bits']}-bit payloads; "
                  f"float model {100 * m['float_frame_accuracy']:.2f}%)")
-    print(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
-          f"{aware}; {m['epochs']} epochs in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
-          f"{m['macs']:,} MACs per sample")
-    print(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png")
+    console.echo(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
+                 f"{aware}; {console.plural(m['epochs'], 'epoch')} in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
+                 f"{m['macs']:,} MACs per sample")
+    console.echo(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png")
     return 0

@@ -8,22 +8,23 @@ HELP = "check an export folder bit-exactly: tables agree and golden vectors re-s
 def add_arguments(p) -> None:
     p.add_argument("out_dir", metavar="OUT_DIR", help="export folder holding manifest.json")
     p.add_argument("--json", metavar="FILE", help="also write the result as JSON to FILE (outside the export folder)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args) -> int:
     from pathlib import Path
 
+    from snnconvert import console
     from snnconvert.errors import UsageError
     from snnconvert.export import verify
-    from snnconvert.files import atomic_write_json
+    from snnconvert.files import atomic_write_json, check_output_path
 
     if args.json:
+        check_output_path(args.json, "--json")
         folder, target = Path(args.out_dir).resolve(), Path(args.json).resolve()
         if folder in target.parents:
             raise UsageError(f"--json {args.json}: verify writes nothing inside the export folder {args.out_dir}")
     res = verify(args.out_dir, progress=not args.quiet)
     if args.json:
         atomic_write_json(args.json, res.to_dict())
-    print(res.summary())
+    console.echo(res.summary())
     return 0 if res.passed else 1

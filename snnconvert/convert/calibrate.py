@@ -14,8 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 import torch
-from tqdm import tqdm
 
+from snnconvert import console
 from snnconvert.convert.fold import FoldedOp, apply_op
 from snnconvert.errors import UsageError
 
@@ -51,7 +51,7 @@ def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max
     x = torch.as_tensor(np.asarray(calib_x), dtype=torch.float64)                  # (N, C, H, W)
     collected: dict[int, list[np.ndarray]] = {i: [] for i, op in enumerate(ops) if op.kind in ("conv", "dense")}
     starts = range(0, x.shape[0], batch)
-    for s in tqdm(starts, desc="calibrate", disable=quiet, file=None):
+    for s in console.bar(starts, desc="calibrate", enabled=not quiet):
         h = x[s:s + batch]
         for i, op in enumerate(ops):
             h = apply_op(op, h)

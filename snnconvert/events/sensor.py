@@ -28,7 +28,6 @@ Stimuli:
 
 from __future__ import annotations
 
-import sys
 from dataclasses import dataclass, fields
 
 import numpy as np
@@ -133,9 +132,8 @@ def simulate_batch(images, stimulus: str = "flash", config: SensorConfig | None 
     c_on = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,) fixed pattern
     c_off = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,)
     evs, counts = [], []
-    from tqdm import tqdm
-    with tqdm(total=n, desc=f"sensor ({stimulus})", unit="image", disable=not progress, leave=False,
-              file=sys.stderr) as bar:
+    from snnconvert import console
+    with console.bar(total=n, desc=f"sensor ({stimulus})", unit="image", enabled=progress) as bar:
         for i0 in range(0, n, _CHUNK):
             ev, cnt = _simulate_chunk(images[i0:i0 + _CHUNK], stimulus, config, rng, c_on, c_off)
             evs.append(ev)

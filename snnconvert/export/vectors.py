@@ -20,8 +20,8 @@ from __future__ import annotations
 import io
 
 import numpy as np
-from tqdm import tqdm
 
+from snnconvert import console
 from snnconvert.export.manifest import layer_id
 from snnconvert.intnet import IntNetwork
 
@@ -77,7 +77,7 @@ def simulate(net: IntNetwork, x_int: np.ndarray, progress: bool = True, desc: st
     """Run the event-by-event reference simulator on each sample: one RefTrace per sample."""
     from snnconvert.sim.reference import Tables, run_sample
     tables = Tables(net)  # fan-out index tables, built once for all samples
-    return [run_sample(net, x, tables) for x in tqdm(x_int, desc=desc, disable=not progress, leave=False)]
+    return [run_sample(net, x, tables) for x in console.bar(x_int, desc=desc, enabled=progress)]
 
 
 def golden_vectors(net: IntNetwork, x_int: np.ndarray, sample_index: np.ndarray, labels=None,

@@ -20,7 +20,7 @@ from __future__ import annotations
 import numpy as np
 import torch
 
-from snnconvert import arith
+from snnconvert import arith, console
 from snnconvert.intnet import IntNetwork
 from snnconvert.sim.reference import Tables
 from snnconvert.sim.vectorized import simulate
@@ -136,7 +136,7 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     out["coding"], out["weight_bits"], out["payload_bits"] = net.coding, net.weight_bits, net.payload_bits
     out["per_channel"] = bool(net.per_channel)
     if not quiet:
-        print(format_table(out))
+        console.echo(format_table(out))
     return out
 
 
@@ -162,6 +162,19 @@ def energy(net: IntNetwork, sops: float, n_macs: int) -> dict:
             "notes": notes, "is_estimate": True}
 
 
+def latency_text(lat: dict) -> str:
+    """`6 pipeline stages`; ttfs adds the window, the mean first output spike and the silent samples."""
+    parts = [console.plural(lat["pipeline_stages"], "pipeline stage")]
+    if "window_steps" in lat:
+        parts.append(f"windows of {console.plural(lat['window_steps'], 'step')} to the output")
+        mean = lat.get("first_output_spike_steps_mean")
+        parts.append("no output spike" if mean is None else f"first output spike after {mean:.1f} steps (mean)")
+        silent = lat.get("samples_without_output_spike", 0)
+        if silent:
+            parts.append(f"{console.plural(silent, 'sample')} without an output spike")
+    return ", ".join(parts)
+
+
 def format_table(m: dict) -> str:
     """The metrics as an aligned two-column text table."""
     def f(v):
@@ -177,7 +190,7 @@ def format_table(m: dict) -> str:
     rows.append(("max_abs_potential", ", ".join(f"{k}:{v}" for k, v in m["max_abs_potential"].items())))
     if any(m["overflows"].values()):
         rows.append(("overflows", ", ".join(f"{k}:{v}" for k, v in m["overflows"].items() if v)))
-    rows.append(("latency", ", ".join(f"{k}={f(v)}" for k, v in m["latency"].items())))
+    rows.append(("latency", latency_text(m["latency"])))
     e = m["energy"]
     rows.append(("energy (estimate)", f"{e['spike_pj_per_sample'] / 1e3:.2f} nJ spike vs "
                                       f"{e['frame_pj_per_sample'] / 1e3:.2f} nJ frame per sample (Horowitz 2014)"))

@@ -30,9 +30,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from tqdm import tqdm
 
-from snnconvert import arith
+from snnconvert import arith, console
 from snnconvert.intnet import IntLayer, IntNetwork
 
 EVENT_FIELDS = [("addr", "<i8"), ("t", "<i8"), ("payload", "<i8")]
@@ -263,4 +262,4 @@ def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> R
 def run_batch(net: IntNetwork, x_int, progress: bool = True) -> list[RefTrace]:
     """run_sample over the first axis of `x_int` (N, C, H, W), sharing one set of fan-out tables."""
     T = Tables(net)
-    return [run_sample(net, xs, T) for xs in tqdm(np.asarray(x_int), desc="reference", disable=not progress)]
+    return [run_sample(net, xs, T) for xs in console.bar(np.asarray(x_int), desc="reference", enabled=progress)]
