@@ -153,6 +153,9 @@ class IntNetwork:
             raise FormatError(f"{folder / 'network.npz'}: array {unknown[0]!r} belongs to no layer of {path}")
         if not isinstance(net.meta, dict):
             fail("meta", str(path), "an object", repr(net.meta), "field", FormatError)
+        if "recipe" in net.meta:       # checked like a user's recipe; it never chooses where files go
+            from snnconvert.recipe import from_embedded
+            net.meta["recipe"] = from_embedded(net.meta["recipe"], path)
         check_network(net, str(path), str(folder / "network.npz"))
         return net
 

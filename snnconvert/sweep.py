@@ -703,6 +703,7 @@ def run_sweep(train_dir, weight_bits="2-8", payload_bits="1-6", codings=None, pe
         model, ckpt = train.load_checkpoint(train_dir)
         recipe = copy.deepcopy(recipe if recipe is not None else ckpt["recipe"])
         dataset = data.load_dataset(recipe, progress=progress)
+        train.check_checkpoint_fits(model, ckpt, dataset, train_dir)
     else:
         model, ckpt, dataset = context
         recipe = copy.deepcopy(recipe if recipe is not None else ckpt["recipe"])

@@ -50,6 +50,7 @@ def run(args) -> int:
     codings = ",".join(args.coding) if args.coding else section["codings"]
     sweep.start_workers(pick(args.jobs, "jobs"))  # workers start while the data set loads
     context = (model, ckpt, data.load_dataset(recipe, progress=not args.quiet))
+    train.check_checkpoint_fits(model, ckpt, context[2], path)
     result = sweep.run_sweep(
         path, pick(args.weight_bits, "weight_bits"), pick(args.payload_bits, "payload_bits"), codings,
         per_channel=pick(args.per_channel, "per_channel"), aware=pick(args.aware, "aware"),

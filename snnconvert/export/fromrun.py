@@ -57,6 +57,7 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     net = IntNetwork.load(net_dir)
     if recipe is None and (net_dir / "recipe.toml").is_file():
         recipe = recipe_mod.load(net_dir / "recipe.toml")
+        recipe[recipe_mod.EMBEDDED] = str(net_dir / "recipe.toml")   # a file of the folder: it never chooses where files go
     section = (recipe or {}).get("export", {})
     vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
     csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
