@@ -252,6 +252,9 @@ def _sweep(run: Path) -> str:
                         f"`snnconvert sweep {run / 'train'} --out {d}` and then `snnconvert report {run}`.")
     rec = _json(d / "recommendation.json")
     out = []
+    if (d / "results.jsonl").is_file():
+        from snnconvert.sweep import read_results   # every line checked; a damaged one is named and refused
+        out.append(f"<p>{len(read_results(d / 'results.jsonl'))} grid points measured (sweep/results.jsonl).</p>")
     if rec:
         cls = "ok" if rec.get("point") else "bad"
         out.append(f'<p class="{cls}">{_e(rec.get("message", ""))}</p>')
