@@ -245,8 +245,8 @@ def _check_cache_arrays(z: dict, n: int, w: int, h: int) -> None:
         raise ValueError("event arrays t, x, y, p must be integers of one length")
     if off.shape != (n + 1,) or off.dtype.kind not in "iu" or off[0] != 0 or off[-1] != size or np.any(np.diff(off) < 0):
         raise ValueError(f"offsets must rise from 0 to {size} over {n} recordings")
-    if size and (z["x"].max() >= w or z["y"].max() >= h or z["p"].min() < 0 or z["p"].max() > 1):
-        raise ValueError(f"events must lie on the {w}x{h} sensor with polarity 0 or 1")
+    if size and (z["x"].max() >= w or z["y"].max() >= h or z["p"].min() < -1 or z["p"].max() > 1):
+        raise ValueError(f"events must lie on the {w}x{h} sensor with polarity -1, 0 or 1")
 
 
 def _digest(*items) -> str:

@@ -148,15 +148,15 @@ class IntNetwork:
                   weight_bits=meta["weight_bits"], per_channel=meta["per_channel"],
                   n_classes=meta["n_classes"], multiplier_bits=meta["multiplier_bits"],
                   acc_limit_bits=meta["acc_limit_bits"], overflow=meta["overflow"], meta=meta.get("meta", {}))
+        if not isinstance(net.meta, dict):
+            fail("meta", str(path), "an object", repr(net.meta), "field", FormatError)
+        check_network(net, str(path), str(folder / "network.npz"))
         unknown = sorted(set(arrays) - {f"L{i}.{k}" for i in range(len(layers)) for k in ARRAYS})
         if unknown:
             raise FormatError(f"{folder / 'network.npz'}: array {unknown[0]!r} belongs to no layer of {path}")
-        if not isinstance(net.meta, dict):
-            fail("meta", str(path), "an object", repr(net.meta), "field", FormatError)
         if "recipe" in net.meta:       # checked like a user's recipe; it never chooses where files go
             from snnconvert.recipe import from_embedded
             net.meta["recipe"] = from_embedded(net.meta["recipe"], path)
-        check_network(net, str(path), str(folder / "network.npz"))
         return net
 
 

@@ -38,6 +38,10 @@ def run(args) -> int:
     path = Path(args.train_dir)
     if not path.exists():
         raise UsageError(f"training folder not found: {path}")
+    base = path if path.is_dir() else path.parent
+    log = (Path(args.out) if args.out else base.parent / "sweep") / "results.jsonl"
+    if log.is_file():
+        sweep.read_results(log)   # a damaged result line is named before the model and data are loaded
     from snnconvert import data, train
     model, ckpt = train.load_checkpoint(path)
     recipe = ckpt["recipe"]

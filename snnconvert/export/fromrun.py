@@ -51,6 +51,8 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     from snnconvert.export import SCHEMA
     from snnconvert.export.writer import export_network
 
+    from snnconvert.export.writer import previous_export_files
+    previous_export_files(Path(out_dir))       # refuse a bad target before any work
     net_dir = Path(net_dir)
     if not (net_dir / "network.json").is_file():
         raise UsageError(f"network folder {net_dir} holds no network.json (run `snnconvert convert` first)")

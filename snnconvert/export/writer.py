@@ -82,7 +82,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     csv = check_bool(csv, "csv", "export")
     intel_hex = check_bool(intel_hex, "intel_hex", "export")
     out = Path(out_dir)
-    old_files = _previous_export_files(out)
+    old_files = previous_export_files(out)
 
     files: dict[str, bytes] = {}
     npz_tables, specs = {}, {}
@@ -134,7 +134,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     return atomic_write_json(out / MANIFEST, man)
 
 
-def _previous_export_files(out: Path) -> dict[str, Path]:
+def previous_export_files(out: Path) -> dict[str, Path]:
     """Files listed by an export already in `out` ({path in the manifest: resolved path}), each checked to
     lie inside `out` and to be a file; refuses a non-empty folder that is not an export. Nothing is
     changed here, so a refusal leaves the folder as it was."""
