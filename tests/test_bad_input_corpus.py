@@ -417,3 +417,32 @@ def test_bad_input_is_refused_with_one_exact_line(base, tmp_path, monkeypatch, c
     assert "Traceback" not in cap.err + cap.out
     assert cap.err == f"error: {message.format(d=d)}\n"
     assert _snapshot(tmp_path, base) == before
+
+
+def test_a_stored_cache_dir_never_chooses_where_files_are_written(base, tmp_path, monkeypatch, capsys):
+    """A checkpoint whose stored recipe names a cache folder elsewhere: the conversion runs, nothing is
+    written there, and a recording simulated anew goes to the user's cache."""
+    d = tmp_path / "case"
+    shutil.copytree(base / "train", d / "train")
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+
+    def point_elsewhere(ck):
+        _recipe(ck, "data", "cache_dir", str(elsewhere))
+        _recipe(ck, "data", "limit", 150)            # a subset the cache does not hold yet
+    _ckpt_edit(point_elsewhere)(d)
+    monkeypatch.setenv("SNNCONVERT_CACHE", str(tmp_path / "user-cache"))
+    assert main(["convert", str(d / "train"), "--out", str(d / "net"), "--quiet"]) == 0
+    assert list(elsewhere.iterdir()) == []
+    assert [p.name.startswith("recordings-") for p in (tmp_path / "user-cache").iterdir()] == [True]
+    assert "_embedded" not in json.loads((d / "net" / "network.json").read_text())["meta"]["recipe"]
+
+
+def test_report_names_a_damaged_result_line_in_its_sweep_section(base, tmp_path):
+    from snnconvert.report import write_report
+    run = tmp_path / "run"
+    shutil.copytree(base / "sweep", run / "sweep")
+    _results_line(lambda r: r["metrics"].update(spike_accuracy="high"))(run)
+    page = write_report(run).read_text()
+    assert (f"This section cannot be shown: The &#x27;metrics.spike_accuracy&#x27; field of "
+            f"{run}/sweep/results.jsonl line 1 must be a float in [0.0, 1.0]. Got &#x27;high&#x27; instead.") in page
