@@ -181,25 +181,47 @@ def cache_dir(section: dict, base: Path | None = None) -> Path:
     if section.get("cache_dir"):
         d = Path(section["cache_dir"]).expanduser()
         return d if d.is_absolute() or base is None else Path(base) / d
+    return user_cache_dir()
+
+
+def user_cache_dir() -> Path:
+    """The user's own cache: $SNNCONVERT_CACHE, else ~/.cache/snnconvert."""
     return Path(os.environ.get("SNNCONVERT_CACHE") or "~/.cache/snnconvert").expanduser()
 
 
+def _cache_folders(recipe: dict, sec: dict, base: Path) -> tuple[Path, Path | None]:
+    """(folder written to, folder also read from). A recipe read from inside a file (recipe.EMBEDDED)
+    never chooses where files are written: its cache_dir is only read, new recordings go to the
+    user's cache."""
+    named = cache_dir(sec, base)
+    if recipe.get("_embedded"):
+        return user_cache_dir(), named
+    return named, None
+
+
 def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, config: _sensor.SensorConfig,
-                    seed: int, folder: Path) -> tuple[RecordingSet, Path, bool]:
-    """Simulate (or reuse) the recordings of `images`. Returns (recordings, cache file, reused?)."""
+                    seed: int, folder: Path, read_also: Path | None = None) -> tuple[RecordingSet, Path, bool]:
+    """Simulate (or reuse) the recordings of `images`. Returns (recordings, cache file, reused?).
+
+    The cache file is looked for in `folder`, then in `read_also`; a new one is written to `folder` only.
+    """
     key = _digest(CACHE_VERSION, images.astype(np.float32), labels, stimulus, sorted(config.as_dict().items()),
                   int(seed))
     path = Path(folder) / f"recordings-{key}.npz"
     h, w = images.shape[1:]
+    if not path.is_file() and read_also is not None and (Path(read_also) / path.name).is_file():
+        path = Path(read_also) / path.name
     if path.is_file():
         try:
             z = files.load_npz(path)
             if str(z["format"]) == CACHE_FORMAT and int(z["version"]) == CACHE_VERSION and z["key"] == key:
+                _check_cache_arrays(z, len(labels), w, h)
                 ev = np.empty(z["t"].size, EVENT_DTYPE)
                 ev["t"], ev["x"], ev["y"], ev["p"] = z["t"], z["x"], z["y"], z["p"]
                 return RecordingSet(ev, z["offsets"].astype(np.int64), labels, w, h), path, True
         except (FormatError, KeyError, ValueError) as exc:
             console.say(f"warning: ignoring unreadable cache {path} ({exc}); simulating again")
+    path = Path(folder) / path.name
     rng = np.random.default_rng([int(seed), 1])
     ev, offsets = _sensor.simulate_batch(images, stimulus, config, rng, progress=True)
     # uncompressed but compact (7 bytes per event on sensors up to 256 pixels): deflating millions of
@@ -213,6 +235,17 @@ def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, confi
     except OSError as exc:  # a read-only cache must not stop the run
         console.say(f"warning: cannot write cache {path} ({exc})")
     return RecordingSet(ev, offsets, labels, w, h), path, False
+
+
+def _check_cache_arrays(z: dict, n: int, w: int, h: int) -> None:
+    """A cache file's arrays must describe n recordings on a w x h sensor (ValueError otherwise)."""
+    off, size = z["offsets"], z["t"].size
+    if any(z[k].shape != (size,) or z[k].dtype.kind not in "iu" for k in ("t", "x", "y", "p")):
+        raise ValueError("event arrays t, x, y, p must be integers of one length")
+    if off.shape != (n + 1,) or off.dtype.kind not in "iu" or off[0] != 0 or off[-1] != size or np.any(np.diff(off) < 0):
+        raise ValueError(f"offsets must rise from 0 to {size} over {n} recordings")
+    if size and (z["x"].max() >= w or z["y"].max() >= h or z["p"].min() < -1 or z["p"].max() > 1):
+        raise ValueError(f"events must lie on the {w}x{h} sensor with polarity -1, 0 or 1")
 
 
 def _digest(*items) -> str:
@@ -350,7 +383,8 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
     if src == "digits":
         images, labels = digits_images(sec["sensor_size"])
         keep = _subset(labels, sec["limit"], seed)
-        recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed, cache_dir(sec, base))
+        recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed,
+                                          *_cache_folders(recipe, sec, base))
         classes = [str(c) for c in range(10)]
         info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
     elif src == "idx":
@@ -370,7 +404,7 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         images = np.clip(images.astype(np.float64) / full, 0, 1)
         if sec["idx_mode"] == "sensor":
             recs, path, hit = simulate_cached(_resize(images, sec["sensor_size"]), labels, sec["stimulus"], config,
-                                              seed, cache_dir(sec, base))
+                                              seed, *_cache_folders(recipe, sec, base))
             info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
         else:
             recs = _binarized_recordings(images, labels, sec["binarize_level"])

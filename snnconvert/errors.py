@@ -27,23 +27,34 @@ def _fmt(value) -> str:
     return repr(value)
 
 
-def check_int(value, name: str, owner: str, lo: int | None = None, hi: int | None = None) -> int:
+def fail(name: str, owner: str, must: str, got, what: str = "parameter", error: type = UsageError):
+    """Raise `error` with the one template: The '<name>' <what> of <owner> must be <must>. Got <got> instead.
+
+    `what` is "parameter" for arguments and recipe keys, "field" or "array" for values read from a
+    file (then `owner` names the file and `error` is FormatError).
+    """
+    raise error(f"The '{name}' {what} of {owner} must be {must}. Got {got} instead.")
+
+
+def check_int(value, name: str, owner: str, lo: int | None = None, hi: int | None = None,
+              what: str = "parameter", error: type = UsageError) -> int:
     """Return `value` as int if it is an int (not bool) within [lo, hi]; else raise UsageError/TypeError."""
     rng = _range_text(lo, hi)
     if isinstance(value, bool) or not isinstance(value, (int,)) and not _is_np_int(value):
-        raise UsageError(f"The '{name}' parameter of {owner} must be an int{rng}. Got {_fmt(value)} instead.")
+        fail(name, owner, f"an int{rng}", _fmt(value), what, error)
     value = int(value)
     if (lo is not None and value < lo) or (hi is not None and value > hi):
-        raise UsageError(f"The '{name}' parameter of {owner} must be an int{rng}. Got {_fmt(value)} instead.")
+        fail(name, owner, f"an int{rng}", _fmt(value), what, error)
     return value
 
 
 def check_float(value, name: str, owner: str, lo: float | None = None, hi: float | None = None,
-                lo_open: bool = False, hi_open: bool = False) -> float:
+                lo_open: bool = False, hi_open: bool = False, what: str = "parameter",
+                error: type = UsageError) -> float:
     """Return `value` as float if it is a real number within the interval; ints are accepted."""
     rng = _range_text(lo, hi, lo_open, hi_open)
     if isinstance(value, bool) or not isinstance(value, (int, float)) and not _is_np_number(value):
-        raise UsageError(f"The '{name}' parameter of {owner} must be a float{rng}. Got {_fmt(value)} instead.")
+        fail(name, owner, f"a float{rng}", _fmt(value), what, error)
     v = float(value)
     bad = math.isnan(v)
     if lo is not None:
@@ -51,29 +62,69 @@ def check_float(value, name: str, owner: str, lo: float | None = None, hi: float
     if hi is not None:
         bad |= v >= hi if hi_open else v > hi
     if bad:
-        raise UsageError(f"The '{name}' parameter of {owner} must be a float{rng}. Got {_fmt(value)} instead.")
+        fail(name, owner, f"a float{rng}", _fmt(value), what, error)
     return v
 
 
-def check_bool(value, name: str, owner: str) -> bool:
+def check_bool(value, name: str, owner: str, what: str = "parameter", error: type = UsageError) -> bool:
     if not isinstance(value, bool):
-        raise UsageError(f"The '{name}' parameter of {owner} must be a bool. Got {_fmt(value)} instead.")
+        fail(name, owner, "a bool", _fmt(value), what, error)
     return value
 
 
-def check_str(value, name: str, owner: str) -> str:
+def check_str(value, name: str, owner: str, what: str = "parameter", error: type = UsageError) -> str:
     if not isinstance(value, str):
-        raise UsageError(f"The '{name}' parameter of {owner} must be a str. Got {_fmt(value)} instead.")
+        fail(name, owner, "a str", _fmt(value), what, error)
     return value
 
 
-def check_choice(value, name: str, owner: str, choices: Sequence[str]) -> str:
+def check_choice(value, name: str, owner: str, choices: Sequence[str], what: str = "parameter",
+                 error: type = UsageError) -> str:
     """Return `value` if it is one of `choices`; the error lists the valid choices."""
     if not isinstance(value, str) or value not in choices:
         opts = ", ".join(repr(c) for c in choices)
-        raise UsageError(
-            f"The '{name}' parameter of {owner} must be one of {opts}. Got {_fmt(value)} instead.")
+        fail(name, owner, f"one of {opts}", _fmt(value), what, error)
     return value
+
+
+def check_shape(value, name: str, owner: str, length: int | None = None, lo: int = 1, what: str = "field",
+                error: type = UsageError) -> tuple:
+    """Return `value` as a tuple of ints if it is a list of `length` ints, each >= lo (lengths 1..4 if None)."""
+    n = f"{length} ints" if length is not None else "1 to 4 ints"
+    must = f"a list of {n} >= {lo}"
+    ok = isinstance(value, (list, tuple)) and (len(value) == length if length is not None else 1 <= len(value) <= 4)
+    if not ok or any(isinstance(v, bool) or not (isinstance(v, int) or _is_np_int(v)) or v < lo for v in value):
+        fail(name, owner, must, _fmt(value), what, error)
+    return tuple(int(v) for v in value)
+
+
+def check_array(a, name: str, owner: str, shape: tuple | None = None, lo: int | None = None, hi: int | None = None,
+                error: type = UsageError):
+    """Return `a` as int64 if it is an integer array of `shape` with every value in [lo, hi].
+
+    The message names the array, the owner (a file) and what was found (dtype, shape or the
+    first value out of range), in the one template.
+    """
+    import numpy as np
+    want = "an int array" + (f" of shape {tuple(shape)}" if shape is not None else "") + _range_text(lo, hi, words=True)
+    if not isinstance(a, np.ndarray) or a.dtype.kind not in "iu":
+        got = f"{a.dtype} values" if isinstance(a, np.ndarray) else _fmt(a)
+        fail(name, owner, want, got, "array", error)
+    if shape is not None and tuple(a.shape) != tuple(shape):
+        fail(name, owner, want, f"shape {tuple(a.shape)}", "array", error)
+    if a.dtype.kind == "u" and a.size and int(a.max()) > np.iinfo(np.int64).max:
+        fail(name, owner, want, f"the value {int(a.max())}", "array", error)
+    a = a.astype(np.int64)
+    if a.size:
+        bad = np.zeros(a.shape, bool)
+        if lo is not None:
+            bad |= a < lo
+        if hi is not None:
+            bad |= a > hi
+        if bad.any():
+            fail(name, owner, want, f"the value {int(a.reshape(-1)[np.flatnonzero(bad.reshape(-1))[0]])}", "array",
+                 error)
+    return a
 
 
 def closest(word: str, candidates: Iterable[str]) -> str | None:
@@ -89,9 +140,11 @@ def unknown_key_message(key: str, section: str, valid: Iterable[str]) -> str:
     return f"Unknown key '{key}' in section [{section}].{tail}"
 
 
-def _range_text(lo, hi, lo_open=False, hi_open=False) -> str:
+def _range_text(lo, hi, lo_open=False, hi_open=False, words=False) -> str:
     if lo is None and hi is None:
         return ""
+    if words:
+        return " with values" + _range_text(lo, hi, lo_open, hi_open)
     if hi is None:
         return f" {'>' if lo_open else '>='} {lo}"
     if lo is None:

@@ -11,7 +11,10 @@ import hashlib
 import io
 import json
 import os
+import pickle
+import re
 import tempfile
+import warnings
 import zipfile
 from pathlib import Path
 from typing import Any
@@ -94,10 +97,40 @@ def load_npz(path) -> dict[str, np.ndarray]:
     if magic not in (b"PK\x03\x04", b"PK\x05\x06"):   # zip local header / empty archive (ZIP format)
         raise FormatError(f"{path}: not an NPZ archive (it does not start with a zip header)")
     try:
+        _check_npz_sizes(path)
         with np.load(path, allow_pickle=False) as z:
             return {k: z[k] for k in z.files}
     except (ValueError, OSError, EOFError, KeyError, zipfile.BadZipFile) as exc:
+        if isinstance(exc, FormatError):
+            raise
         raise FormatError(f"{path}: not a readable NPZ file ({type(exc).__name__}: {exc})") from None
+
+
+# Deflate cannot expand data by more than about 1032:1 (RFC 1951: a 258-byte match per 2 bits at best).
+_DEFLATE_MAX_RATIO = 1032
+
+
+def _check_npz_sizes(path: Path) -> None:
+    """Every array's declared size (its .npy header shape x item size) must fit in the bytes the archive
+    really holds for it, so a header can never make the reader allocate more than the file can fill."""
+    real = path.stat().st_size
+    with zipfile.ZipFile(path) as zf:
+        for info in zf.infolist():
+            stored = info.compress_size if info.compress_type == zipfile.ZIP_STORED else \
+                info.compress_size * _DEFLATE_MAX_RATIO
+            limit = min(info.file_size, stored, real * _DEFLATE_MAX_RATIO)
+            with zf.open(info) as fh:
+                version = np.lib.format.read_magic(fh)
+                read = np.lib.format.read_array_header_1_0 if version == (1, 0) else \
+                    np.lib.format.read_array_header_2_0
+                shape, _, dtype = read(fh)
+            if dtype.hasobject:
+                raise FormatError(f"{path}: array {info.filename!r} holds Python objects; NPZ files here hold plain "
+                                  f"numbers only (refused, nothing in it was run)")
+            need = int(np.prod(shape, dtype=object)) * dtype.itemsize
+            if need > limit:
+                raise FormatError(f"{path}: array {info.filename!r} declares shape {tuple(shape)} ({need} bytes) but the "
+                                  f"file holds at most {limit} bytes for it")
 
 
 def load_torch(path):
@@ -106,10 +139,20 @@ def load_torch(path):
     path = Path(path)
     if not path.is_file():
         raise UsageError(f"file not found: {path}")
+    with open(path, "rb") as fh:
+        head = fh.read(4)
+    if head[:2] not in (b"PK", b"\x80\x02") and head[:1] != b"\x80":   # a zip archive (torch) or a pickle
+        raise FormatError(f"{path}: not a readable checkpoint (neither a torch archive nor a pickle)")
     try:
-        return torch.load(path, map_location="cpu", weights_only=True)
+        with warnings.catch_warnings():      # torch warns about pickle protocols on stderr
+            warnings.simplefilter("ignore")
+            return torch.load(path, map_location="cpu", weights_only=True)
+    except pickle.UnpicklingError:
+        raise FormatError(f"{path}: not a snnconvert checkpoint: it holds Python objects or code, which a "
+                          f"checkpoint never contains; refused without running any of it") from None
     except Exception as exc:  # torch raises many types for corrupt files
-        raise FormatError(f"{path}: not a readable checkpoint ({type(exc).__name__}: {exc})") from None
+        first = re.sub(r"\x1b\[[0-9;]*m", "", str(exc)).strip().splitlines()[:1] or [""]
+        raise FormatError(f"{path}: not a readable checkpoint ({type(exc).__name__}: {first[0][:200]})") from None
 
 
 def resolve_inside(folder, relative: str, what: str = "path") -> Path:

@@ -22,7 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert.errors import FormatError
+from snnconvert.errors import (FormatError, check_array, check_bool, check_choice, check_int, check_shape,
+                               check_str, fail)
 from snnconvert.files import atomic_save_npz, atomic_write_json, load_json, load_npz
 
 FORMAT = "snnconvert-intnet"
@@ -105,7 +106,12 @@ class IntNetwork:
 
     @classmethod
     def load(cls, folder) -> "IntNetwork":
-        """Read network.json + network.npz; any missing or malformed field is a FormatError naming it."""
+        """Read network.json + network.npz; every field and array is checked (`check_network`) before use.
+
+        A missing field, a wrong type or range, or fields that disagree (a declared shape against
+        the weights, a layer's input against the previous layer's output) is a FormatError naming
+        the file and the field.
+        """
         try:
             return cls._load(Path(folder))
         except (KeyError, TypeError, ValueError, IndexError) as exc:
@@ -116,24 +122,140 @@ class IntNetwork:
 
     @classmethod
     def _load(cls, folder: Path) -> "IntNetwork":
-        meta = load_json(folder / "network.json")
+        path = folder / "network.json"
+        meta = load_json(path)
+        if not isinstance(meta, dict):
+            raise FormatError(f"{path}: not an snnconvert integer network (a JSON {type(meta).__name__}, not an object)")
         if meta.get("format") != FORMAT:
-            raise FormatError(f"{folder / 'network.json'}: not an snnconvert integer network (format={meta.get('format')!r})")
+            raise FormatError(f"{path}: not an snnconvert integer network (format={meta.get('format')!r})")
         if meta.get("version") != VERSION:
-            raise FormatError(f"{folder / 'network.json'}: format version {meta.get('version')!r} is not supported (this build reads {VERSION})")
+            raise FormatError(f"{path}: format version {meta.get('version')!r} is not supported (this build reads {VERSION})")
         arrays = load_npz(folder / "network.npz")
+        if not isinstance(meta["layers"], list):
+            fail("layers", str(path), "a list of layer objects", repr(type(meta["layers"]).__name__), "field", FormatError)
         layers = []
         for i, d in enumerate(meta["layers"]):
-            if d["kind"] not in LAYER_KINDS:
-                raise FormatError(f"{folder / 'network.json'}: layer {i} has unknown kind {d['kind']!r}")
+            if not isinstance(d, dict):
+                fail(f"layers[{i}]", str(path), "a layer object", repr(d), "field", FormatError)
             kw = {k: arrays.get(f"L{i}.{k}") for k in ("weight", "bias", "m0", "shift")}
             layers.append(IntLayer(
-                name=d["name"], kind=d["kind"], in_shape=tuple(d["in_shape"]), out_shape=tuple(d["out_shape"]),
-                kernel=tuple(d["kernel"]), stride=tuple(d["stride"]), padding=tuple(d["padding"]),
-                q_in=int(d["q_in"]), q_out=int(d["q_out"]), is_output=bool(d["is_output"]),
-                acc_bits=int(d["acc_bits"]), info=d.get("info", {}), **kw))
-        return cls(layers=layers, input_shape=tuple(meta["input_shape"]), input_q=int(meta["input_q"]),
-                   coding=meta["coding"], payload_bits=int(meta["payload_bits"]),
-                   weight_bits=int(meta["weight_bits"]), per_channel=bool(meta["per_channel"]),
-                   n_classes=int(meta["n_classes"]), multiplier_bits=int(meta["multiplier_bits"]),
-                   acc_limit_bits=int(meta["acc_limit_bits"]), overflow=meta["overflow"], meta=meta.get("meta", {}))
+                name=d["name"], kind=d["kind"], in_shape=d["in_shape"], out_shape=d["out_shape"],
+                kernel=d["kernel"], stride=d["stride"], padding=d["padding"],
+                q_in=d["q_in"], q_out=d["q_out"], is_output=d["is_output"],
+                acc_bits=d["acc_bits"], info=d.get("info", {}), **kw))
+        net = cls(layers=layers, input_shape=meta["input_shape"], input_q=meta["input_q"],
+                  coding=meta["coding"], payload_bits=meta["payload_bits"],
+                  weight_bits=meta["weight_bits"], per_channel=meta["per_channel"],
+                  n_classes=meta["n_classes"], multiplier_bits=meta["multiplier_bits"],
+                  acc_limit_bits=meta["acc_limit_bits"], overflow=meta["overflow"], meta=meta.get("meta", {}))
+        if not isinstance(net.meta, dict):
+            fail("meta", str(path), "an object", repr(net.meta), "field", FormatError)
+        check_network(net, str(path), str(folder / "network.npz"))
+        unknown = sorted(set(arrays) - {f"L{i}.{k}" for i in range(len(layers)) for k in ARRAYS})
+        if unknown:
+            raise FormatError(f"{folder / 'network.npz'}: array {unknown[0]!r} belongs to no layer of {path}")
+        if "recipe" in net.meta:       # checked like a user's recipe; it never chooses where files go
+            from snnconvert.recipe import from_embedded
+            net.meta["recipe"] = from_embedded(net.meta["recipe"], path)
+        return net
+
+
+ARRAYS = ("weight", "bias", "m0", "shift")
+# Widths the converter can produce: convert checks the same ranges on its parameters.
+WEIGHT_BITS = (2, 16)
+PAYLOAD_BITS = (1, 8)
+MULTIPLIER_BITS = (2, 31)
+ACC_LIMIT_BITS = (0, 62)
+MAX_SHIFT = 62          # V * M0 + 2^(n-1) stays an int64 shift
+MAX_Q = 1 << 24         # largest payload or pooled sum a layer may declare
+
+
+def _json_name(field: str, layer: int | None) -> str:
+    return field if layer is None else f"layers[{layer}].{field}"
+
+
+def _npz_name(layer: int, kind: str) -> str:
+    return f"L{layer}.{kind}"
+
+
+def check_network(net: IntNetwork, owner: str, arrays_owner: str, name=_json_name, array_name=_npz_name) -> IntNetwork:
+    """Check every field of `net` as read from a file, then normalise it in place (ints, tuples, int64 arrays).
+
+    Each scalar: its type and range; each layer: kind, shapes, kernel/stride/padding, and that its
+    input is the previous layer's output (a dense layer may read the flattened map); conv and dense
+    layers: weight (O, I, kh, kw) / (O, I) agreeing with the declared shapes and within
+    +-(2^(k-1)-1), bias/m0/shift (O,), 0 <= m0 < 2^31, 1 <= shift <= 62; pools: no arrays;
+    the last layer (and only it) is the dense output layer with n_classes outputs; binary coding
+    has p = 1. `name(field, layer)` and `array_name(layer, kind)` give the names the file uses,
+    so the message names the field as the file spells it.
+    """
+    E = FormatError
+    net.coding = check_choice(net.coding, name("coding", None), owner, CODINGS, "field", E)
+    net.payload_bits = check_int(net.payload_bits, name("payload_bits", None), owner, *PAYLOAD_BITS, "field", E)
+    if net.coding == "binary" and net.payload_bits != 1:
+        fail(name("payload_bits", None), owner, "1 with coding 'binary'", repr(net.payload_bits), "field", E)
+    net.weight_bits = check_int(net.weight_bits, name("weight_bits", None), owner, *WEIGHT_BITS, "field", E)
+    net.per_channel = check_bool(net.per_channel, name("per_channel", None), owner, "field", E)
+    net.n_classes = check_int(net.n_classes, name("n_classes", None), owner, 1, 1 << 16, "field", E)
+    net.multiplier_bits = check_int(net.multiplier_bits, name("multiplier_bits", None), owner, *MULTIPLIER_BITS,
+                                    "field", E)
+    net.acc_limit_bits = check_int(net.acc_limit_bits, name("acc_limit_bits", None), owner, *ACC_LIMIT_BITS, "field", E)
+    if net.acc_limit_bits == 1:
+        fail(name("acc_limit_bits", None), owner, "0 (unlimited) or an int in [2, 62]", "1", "field", E)
+    net.overflow = check_choice(net.overflow, name("overflow", None), owner, ("saturate", "wrap"), "field", E)
+    net.input_shape = check_shape(net.input_shape, name("input_shape", None), owner, 3, 1, "field", E)
+    net.input_q = check_int(net.input_q, name("input_q", None), owner, 1, MAX_Q, "field", E)
+    if not net.layers:
+        fail(name("layers", None), owner, "a non-empty list of layers", "[]", "field", E)
+    prev = net.input_shape
+    wmax = (1 << (net.weight_bits - 1)) - 1
+    for i, L in enumerate(net.layers):
+        n = lambda f: name(f, i)  # noqa: E731
+        L.name = check_str(L.name, n("name"), owner, "field", E)
+        L.kind = check_choice(L.kind, n("kind"), owner, LAYER_KINDS, "field", E)
+        L.in_shape = check_shape(L.in_shape, n("in_shape"), owner, None if L.kind == "dense" else 3, 1, "field", E)
+        L.out_shape = check_shape(L.out_shape, n("out_shape"), owner, 1 if L.kind == "dense" else 3, 1, "field", E)
+        L.kernel = check_shape(L.kernel, n("kernel"), owner, 2, 1, "field", E)
+        L.stride = check_shape(L.stride, n("stride"), owner, 2, 1, "field", E)
+        L.padding = check_shape(L.padding, n("padding"), owner, 2, 0, "field", E)
+        L.q_in = check_int(L.q_in, n("q_in"), owner, 1, MAX_Q, "field", E)
+        L.q_out = check_int(L.q_out, n("q_out"), owner, 0, MAX_Q, "field", E)
+        L.is_output = check_bool(L.is_output, n("is_output"), owner, "field", E)
+        L.acc_bits = check_int(L.acc_bits, n("acc_bits"), owner, 0, 64, "field", E)
+        if L.kind == "dense" and int(np.prod(L.in_shape)) == int(np.prod(prev)):
+            pass                                   # reads the flattened map (or the previous dense layer)
+        elif tuple(L.in_shape) != tuple(prev):
+            fail(n("in_shape"), owner, f"the previous layer's output {list(prev)}", repr(list(L.in_shape)), "field", E)
+        if L.kind != "dense":
+            (c, h, w), (kh, kw), (sy, sx), (py, px) = L.in_shape, L.kernel, L.stride, L.padding
+            oc = L.out_shape[0] if L.kind == "conv" else c
+            want = [oc, (h + 2 * py - kh) // sy + 1, (w + 2 * px - kw) // sx + 1]
+            if want[1] < 1 or want[2] < 1 or list(L.out_shape) != want:
+                fail(n("out_shape"), owner, f"{want} (from in_shape, kernel, stride and padding)",
+                     repr(list(L.out_shape)), "field", E)
+        if L.is_output != (i == len(net.layers) - 1):
+            fail(n("is_output"), owner, "true for the last layer only", repr(L.is_output), "field", E)
+        if L.kind in ("conv", "dense"):
+            o = L.out_shape[0]
+            wshape = (o, L.in_shape[0], *L.kernel) if L.kind == "conv" else (o, int(np.prod(L.in_shape)))
+            L.weight = _array(L.weight, array_name(i, "weight"), arrays_owner, wshape, -wmax, wmax)
+            L.bias = _array(L.bias, array_name(i, "bias"), arrays_owner, (o,), -(1 << 62), 1 << 62)
+            L.m0 = _array(L.m0, array_name(i, "m0"), arrays_owner, (o,), 0, (1 << 31) - 1)
+            L.shift = _array(L.shift, array_name(i, "shift"), arrays_owner, (o,), 1, MAX_SHIFT)
+        else:
+            for k in ARRAYS:
+                if getattr(L, k) is not None:
+                    raise FormatError(f"{arrays_owner}: array {array_name(i, k)!r} given for layer {i}, "
+                                      f"a {L.kind} layer, which has no {k}")
+        prev = L.out_shape
+    last = net.layers[-1]
+    if last.kind != "dense" or list(last.out_shape) != [net.n_classes]:
+        fail(name("out_shape", len(net.layers) - 1), owner, f"[{net.n_classes}] of a dense output layer (n_classes)",
+             repr(list(last.out_shape)) + f" of a {last.kind} layer", "field", E)
+    return net
+
+
+def _array(a, name: str, owner: str, shape, lo, hi) -> np.ndarray:
+    if a is None:
+        raise FormatError(f"{owner}: array {name!r} is missing")
+    return check_array(np.asarray(a), name, owner, shape, lo, hi, FormatError)

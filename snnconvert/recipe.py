@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from snnconvert import files
-from snnconvert.errors import UsageError, closest, unknown_key_message
+from snnconvert.errors import FormatError, UsageError, closest, unknown_key_message
 from snnconvert.schema import Key
 
 # Section -> module declaring its SCHEMA. Order is the order of the job (and of the TOML file).
@@ -111,6 +111,32 @@ def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str 
         r[section] = {k: key.check(copy.deepcopy(given[k]) if k in given else copy.deepcopy(key.default), k, section)
                       for k, key in keys.items()}
     r["_base_dir"] = str(Path(base_dir).resolve())
+    return r
+
+
+EMBEDDED = "_embedded"   # marks a recipe read from inside a file; its value names the file
+
+
+def from_embedded(raw, owner) -> dict:
+    """A recipe stored inside a file (model.pt, network.json, a network's recipe.toml), checked
+    exactly like a user's recipe file (`from_dict`: sections, keys, types, ranges).
+
+    The result is marked with EMBEDDED so that it never decides where files are written: the data
+    cache of such a recipe is the user's ($SNNCONVERT_CACHE or ~/.cache/snnconvert); the cache_dir
+    it names is only read from. Its `_base_dir` (for relative data paths) must be an absolute path.
+    """
+    if not isinstance(raw, dict):
+        raise FormatError(f"The 'recipe' field of {owner} must be a recipe object. Got {type(raw).__name__} instead.")
+    base = raw.get("_base_dir", None)
+    if base is not None and (not isinstance(base, str) or not Path(base).is_absolute()):
+        raise FormatError(f"The 'recipe._base_dir' field of {owner} must be an absolute folder path. "
+                          f"Got {base!r} instead.")
+    raw = {k: v for k, v in raw.items() if not k.startswith("_")}
+    try:
+        r = from_dict(raw, base_dir=base or ".", name=raw.get("name") if isinstance(raw.get("name"), str) else "recipe")
+    except UsageError as exc:
+        raise FormatError(f"{owner}: its stored recipe is invalid: {exc}") from None
+    r[EMBEDDED] = str(owner)
     return r
 
 

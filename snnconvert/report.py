@@ -447,6 +447,9 @@ def _sweep(run: Path) -> str:
                         f"`snnconvert sweep {run / 'train'} --out {d}` and then `snnconvert report {run}`.")
     rec = _json(d / "recommendation.json")
     out = []
+    if (d / "results.jsonl").is_file():
+        from snnconvert.sweep import read_results   # every line checked; a damaged one is named and refused
+        out.append(f"<p>{len(read_results(d / 'results.jsonl'))} grid points measured (sweep/results.jsonl).</p>")
     if rec:
         note = (rec.get("checkpoint") or {}).get("note") if isinstance(rec.get("checkpoint"), dict) else None
         if note is None:  # a sweep written before it recorded the checkpoint: the run's training says it

@@ -29,7 +29,8 @@ from torch import nn
 
 from snnconvert import console, files, models
 from snnconvert import recipe as recipe_mod
-from snnconvert.errors import FormatError, UsageError, check_bool, check_int
+from snnconvert.errors import (FormatError, UsageError, check_bool, check_float, check_int, check_shape,
+                               fail)
 from snnconvert.schema import Key
 
 CHECKPOINT_FORMAT = "snnconvert-checkpoint"
@@ -207,6 +208,8 @@ def load_checkpoint(path) -> tuple[nn.Sequential, dict]:
     for k in ("state_dict", "model_spec", "recipe", "data_fingerprint", "metrics", "act_max", "aware"):
         if k not in ckpt:
             raise FormatError(f"{path}: checkpoint has no field '{k}'")
+    ckpt["recipe"] = recipe_mod.from_embedded(ckpt["recipe"], path)
+    _check_checkpoint_fields(ckpt, str(path))
     spec = ckpt["model_spec"]
     try:
         model = models.build_model({"layers": spec["layers"]}, spec["input_shape"], spec["n_classes"], quiet=True)
@@ -220,6 +223,75 @@ def load_checkpoint(path) -> tuple[nn.Sequential, dict]:
                           f"{' '.join(str(exc).split())[:300]})") from None
     model.eval()
     return model, ckpt
+
+
+def _check_checkpoint_fields(ckpt: dict, owner: str) -> None:
+    """model_spec, act_max, aware and every tensor of the state_dict, before a model is built from them.
+
+    Weights must be finite: a NaN or infinite parameter would only surface later as a conversion failure.
+    """
+    E = FormatError
+    spec = ckpt["model_spec"]
+    if not isinstance(spec, dict):
+        fail("model_spec", owner, "an object", repr(spec), "field", E)
+    spec["input_shape"] = list(check_shape(spec.get("input_shape"), "model_spec.input_shape", owner, 3, 1, "field", E))
+    check_int(spec.get("n_classes"), "model_spec.n_classes", owner, 1, 1 << 16, "field", E)
+    sd = ckpt["state_dict"]
+    if not isinstance(sd, dict):
+        fail("state_dict", owner, "a map of parameter names to tensors", repr(type(sd).__name__), "field", E)
+    for k, v in sd.items():
+        if not isinstance(v, torch.Tensor):
+            fail(f"state_dict.{k}", owner, "a tensor", repr(type(v).__name__), "field", E)
+        if v.is_floating_point() and not bool(torch.isfinite(v).all()):
+            bad = v.reshape(-1)[~torch.isfinite(v.reshape(-1))][0].item()
+            fail(f"state_dict.{k}", owner, "a tensor of finite numbers", f"{bad} among its {v.numel()} values",
+                 "field", E)
+    aware = ckpt["aware"]
+    if aware is not None:
+        if not isinstance(aware, dict):
+            fail("aware", owner, "null or an object", repr(aware), "field", E)
+        check_int(aware.get("weight_bits"), "aware.weight_bits", owner, 2, 16, "field", E)
+        check_int(aware.get("payload_bits"), "aware.payload_bits", owner, 1, 8, "field", E)
+        check_bool(aware.get("per_channel"), "aware.per_channel", owner, "field", E)
+    act = ckpt["act_max"]
+    if act is not None:
+        if not isinstance(act, (list, tuple)):
+            fail("act_max", owner, "null or a list of floats > 0", repr(act), "field", E)
+        for i, a in enumerate(act):
+            v = check_float(a, f"act_max[{i}]", owner, 0.0, None, lo_open=True, what="field", error=E)
+            if not math.isfinite(v):
+                fail(f"act_max[{i}]", owner, "a finite float > 0", repr(a), "field", E)
+
+
+def check_model_fits(model: nn.Module, input_shape, n_classes: int, name: str, trained_shape=None) -> None:
+    """The one check that a model and the data it is about to see agree: frame shape and class count.
+
+    `trained_shape` (a checkpoint's model_spec.input_shape) is compared first; the model is then run
+    on one zero frame, so a model without a spec is checked too. UsageError naming `name` otherwise.
+    """
+    shape = tuple(int(s) for s in input_shape)
+    if trained_shape is not None and tuple(trained_shape) != shape:
+        raise UsageError(f"{name} was trained on frames of shape {tuple(trained_shape)}, but its data now gives "
+                         f"frames of shape {shape}; use the recipe it was trained with (frames.size, frames.mode)")
+    was = model.training
+    model.eval()
+    try:
+        with torch.no_grad():
+            out = model(torch.zeros((1, *shape)))  # (1, classes)
+    except RuntimeError as exc:
+        raise UsageError(f"{name} does not accept frames of shape {shape}: "
+                         f"{' '.join(str(exc).split())[:200]}") from None
+    finally:
+        model.train(was)
+    if out.shape[1] != n_classes:
+        raise UsageError(f"{name} gives {out.shape[1]} class scores but the data has {n_classes} classes")
+
+
+def check_checkpoint_fits(model: nn.Module, ckpt: dict, dataset, path) -> None:
+    """`check_model_fits` for a loaded checkpoint and the data set about to be used with it."""
+    path = Path(path)
+    name = str(path / "model.pt" if path.is_dir() else path)
+    check_model_fits(model, dataset.input_shape, len(dataset.classes), name, ckpt["model_spec"]["input_shape"])
 
 
 def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int = 1024) -> dict:
@@ -465,14 +537,7 @@ def _init_model(init, input_shape, n_classes):
         if ckpt["aware"]:
             raise UsageError(f"init checkpoint {init} is already conversion-aware; start from a float checkpoint")
     model.eval()
-    try:
-        with torch.no_grad():
-            out = model(torch.zeros((1, *input_shape)))  # (1, classes)
-    except RuntimeError as exc:
-        raise UsageError(f"init model does not accept input shape {tuple(input_shape)}: "
-                         f"{' '.join(str(exc).split())[:200]}") from None
-    if out.shape[1] != n_classes:
-        raise UsageError(f"init model gives {out.shape[1]} class scores but the data has {n_classes} classes")
+    check_model_fits(model, input_shape, n_classes, "init model")
     return model
 
 

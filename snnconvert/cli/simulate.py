@@ -27,12 +27,17 @@ def _load_data(net, source, progress: bool):
     if source is None:
         if "recipe" not in net.meta:
             raise UsageError("the network stores no recipe; give --data TRAIN_DIR or --data FRAMES.npz")
-        return None, *load_dataset(net.meta["recipe"], progress=progress).test
+        ds = load_dataset(net.meta["recipe"], progress=progress)
+        _check_net_fits(net, ds, "the recipe stored in the network")
+        return None, *ds.test
     path = Path(source)
     if path.is_dir():
-        from snnconvert.train import load_checkpoint
+        from snnconvert.train import check_checkpoint_fits, load_checkpoint
         model, ckpt = load_checkpoint(path / "model.pt")
-        return model, *load_dataset(ckpt["recipe"], progress=progress).test
+        ds = load_dataset(ckpt["recipe"], progress=progress)
+        check_checkpoint_fits(model, ckpt, ds, path / "model.pt")
+        _check_net_fits(net, ds, f"--data {source}")
+        return model, *ds.test
     if path.suffix != ".npz":
         raise UsageError(f"--data {source}: expected a TRAIN_DIR folder or a .npz frames file")
     z = files.load_npz(path)
@@ -44,6 +49,15 @@ def _load_data(net, source, progress: bool):
         raise FormatError(f"{path}: X has shape {X.shape} and y {y.shape}; the network needs "
                           f"X (N, {', '.join(map(str, net.input_shape))}) and one label per frame")
     return None, X.astype(np.float32), y.astype(np.int64)
+
+
+def _check_net_fits(net, ds, source: str) -> None:
+    """The network and the data set must agree on the frame shape and the number of classes."""
+    from snnconvert.errors import UsageError
+    if tuple(ds.input_shape) != tuple(net.input_shape) or len(ds.classes) != net.n_classes:
+        raise UsageError(f"the network takes frames of shape {tuple(net.input_shape)} and has {net.n_classes} "
+                         f"classes, but the data of {source} gives frames of shape {tuple(ds.input_shape)} and "
+                         f"{len(ds.classes)} classes")
 
 
 def run(args) -> int:

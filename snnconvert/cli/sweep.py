@@ -41,6 +41,10 @@ def run(args) -> int:
     path = Path(args.train_dir)
     if not path.exists():
         raise UsageError(f"training folder not found: {path}")
+    base = path if path.is_dir() else path.parent
+    log = (Path(args.out) if args.out else base.parent / "sweep") / "results.jsonl"
+    if log.is_file():
+        sweep.read_results(log)   # a damaged result line is named before the model and data are loaded
     from snnconvert import data, train
     model, ckpt = train.load_checkpoint(path)
     recipe = ckpt["recipe"]
@@ -53,6 +57,7 @@ def run(args) -> int:
     codings = ",".join(args.coding) if args.coding else section["codings"]
     sweep.start_workers(pick(args.jobs, "jobs"))  # workers start while the data set loads
     context = (model, ckpt, data.load_dataset(recipe, progress=not args.quiet))
+    train.check_checkpoint_fits(model, ckpt, context[2], path)
     result = sweep.run_sweep(
         path, pick(args.weight_bits, "weight_bits"), pick(args.payload_bits, "payload_bits"), codings,
         per_channel=pick(args.per_channel, "per_channel"), aware=pick(args.aware, "aware"),

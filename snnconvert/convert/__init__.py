@@ -152,11 +152,13 @@ def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: boo
 def convert_checkpoint(train_dir, settings: dict, quiet: bool = False):
     """Load `train_dir/model.pt` and its dataset, then `convert_and_measure`. Returns (net, metrics)."""
     from snnconvert.data import load_dataset
-    from snnconvert.train import load_checkpoint
+    from snnconvert.train import check_checkpoint_fits, load_checkpoint
     model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
     dataset = load_dataset(ckpt["recipe"], progress=not quiet)
+    check_checkpoint_fits(model, ckpt, dataset, Path(train_dir) / "model.pt")
     net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet)
-    net.meta.update(recipe=ckpt["recipe"], train_fingerprint=ckpt.get("data_fingerprint"))
+    net.meta.update(recipe={k: v for k, v in ckpt["recipe"].items() if k != "_embedded"},
+                    train_fingerprint=ckpt.get("data_fingerprint"))
     return net, metrics
 
 

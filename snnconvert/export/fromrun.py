@@ -51,12 +51,15 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     from snnconvert.export import SCHEMA
     from snnconvert.export.writer import export_network
 
+    from snnconvert.export.writer import previous_export_files
+    previous_export_files(Path(out_dir))       # refuse a bad target before any work
     net_dir = Path(net_dir)
     if not (net_dir / "network.json").is_file():
         raise UsageError(f"network folder {net_dir} holds no network.json (run `snnconvert convert` first)")
     net = IntNetwork.load(net_dir)
     if recipe is None and (net_dir / "recipe.toml").is_file():
         recipe = recipe_mod.load(net_dir / "recipe.toml")
+        recipe[recipe_mod.EMBEDDED] = str(net_dir / "recipe.toml")   # a file of the folder: it never chooses where files go
     section = (recipe or {}).get("export", {})
     vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
     csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv

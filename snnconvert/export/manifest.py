@@ -12,9 +12,9 @@ import re
 import numpy as np
 
 from snnconvert import arith
-from snnconvert.errors import FormatError
+from snnconvert.errors import FormatError, fail
 from snnconvert.export.memfile import hex_digits, signed_bits, unsigned_bits
-from snnconvert.intnet import CODINGS, LAYER_KINDS, IntLayer, IntNetwork
+from snnconvert.intnet import IntLayer, IntNetwork, check_network
 
 FORMAT = "snnconvert-export"
 VERSION = 1
@@ -228,33 +228,58 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
     }
 
 
-def network_from_manifest(man: dict, arrays: dict, name: str = "manifest.json") -> IntNetwork:
-    """Rebuild the IntNetwork from the manifest and {layer id: {kind: int64 array}} read from the tables."""
+# network.json field -> the manifest's spelling of it (check_network names fields as the file does)
+_TOP_NAMES = {"input_shape": "input.shape", "input_q": "input.q", "acc_limit_bits": "accumulator_limit.bits",
+              "overflow": "accumulator_limit.overflow"}
+_LAYER_NAMES = {"kind": "type", "in_shape": "input_shape", "out_shape": "output_shape", "acc_bits": "accumulator_bits"}
+
+
+def _field_name(field: str, layer: int | None) -> str:
+    if layer is None:
+        return _TOP_NAMES.get(field, field)
+    return f"layers[{layer}].{_LAYER_NAMES.get(field, field)}"
+
+
+def _dict(value, field: str, name: str) -> dict:
+    if not isinstance(value, dict):
+        fail(field, name, "an object", repr(value), "field", FormatError)
+    return value
+
+
+def network_from_manifest(man: dict, arrays: dict, name: str = "manifest.json", tables_name: str = "the tables"
+                          ) -> IntNetwork:
+    """Rebuild the IntNetwork from the manifest and {layer id: {kind: int64 array}} read from the tables.
+
+    Every field goes through intnet.check_network (types, ranges, shapes against the tables, layer
+    chaining), so a manifest that disagrees with itself or its tables is a FormatError naming the field.
+    """
     try:
         if man.get("format") != FORMAT:
             raise FormatError(f"{name}: not an snnconvert export (format={man.get('format')!r})")
         if man.get("version") != VERSION:
             raise FormatError(f"{name}: format version {man.get('version')!r} is not supported (this build reads {VERSION})")
-        if man["coding"] not in CODINGS:
-            raise FormatError(f"{name}: unknown coding {man['coding']!r}")
-        layers = []
-        for d in man["layers"]:
-            if d["type"] not in LAYER_KINDS:
-                raise FormatError(f"{name}: layer {d.get('index')} has unknown type {d['type']!r}")
+        if not isinstance(man["layers"], list):
+            fail("layers", name, "a list of layer objects", repr(man["layers"]), "field", FormatError)
+        layers, ids = [], []
+        for i, d in enumerate(man["layers"]):
+            _dict(d, f"layers[{i}]", name)
             t = arrays.get(d["id"], {})
+            ids.append(d["id"])
             layers.append(IntLayer(
-                name=d["name"], kind=d["type"], in_shape=tuple(d["input_shape"]), out_shape=tuple(d["output_shape"]),
-                kernel=tuple(d["kernel"]), stride=tuple(d["stride"]), padding=tuple(d["padding"]),
+                name=d["name"], kind=d["type"], in_shape=d["input_shape"], out_shape=d["output_shape"],
+                kernel=d["kernel"], stride=d["stride"], padding=d["padding"],
                 weight=t.get("weight"), bias=t.get("bias"), m0=t.get("m0"), shift=t.get("shift"),
-                q_in=int(d["q_in"]), q_out=int(d["q_out"]), is_output=bool(d["is_output"]),
-                acc_bits=int(d.get("accumulator_bits", 0))))
-        lim = man["accumulator_limit"]
-        return IntNetwork(layers=layers, input_shape=tuple(man["input"]["shape"]), input_q=int(man["input"]["q"]),
-                          coding=man["coding"], payload_bits=int(man["payload_bits"]), weight_bits=int(man["weight_bits"]),
-                          per_channel=bool(man["per_channel"]), n_classes=int(man["n_classes"]),
-                          multiplier_bits=int(man["multiplier_bits"]), acc_limit_bits=int(lim["bits"]),
-                          overflow=lim["overflow"])
+                q_in=d["q_in"], q_out=d["q_out"], is_output=d["is_output"],
+                acc_bits=d.get("accumulator_bits", 0)))
+        lim = _dict(man["accumulator_limit"], "accumulator_limit", name)
+        inp = _dict(man["input"], "input", name)
+        net = IntNetwork(layers=layers, input_shape=inp["shape"], input_q=inp["q"],
+                         coding=man["coding"], payload_bits=man["payload_bits"], weight_bits=man["weight_bits"],
+                         per_channel=man["per_channel"], n_classes=man["n_classes"],
+                         multiplier_bits=man["multiplier_bits"], acc_limit_bits=lim["bits"],
+                         overflow=lim["overflow"])
     except (KeyError, TypeError, ValueError) as exc:
         if isinstance(exc, FormatError):
             raise
         raise FormatError(f"{name}: missing or invalid field ({type(exc).__name__}: {exc})") from None
+    return check_network(net, name, tables_name, _field_name, lambda i, kind: f"{ids[i]}.{kind}")

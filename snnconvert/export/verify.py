@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert.errors import FormatError, UsageError
+from snnconvert.errors import FormatError, UsageError, check_bool, check_int, check_shape, check_str, fail
 from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
 from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_intel_hex, parse_mem
@@ -142,11 +142,17 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
     read from the memory files, which are what the network is rebuilt from."""
     npz = load_npz(resolve_inside(ck.folder, man["tables_npz"], "file"))
     arrays = {}
-    for d in man["layers"]:
-        for kind, spec in (d.get("tables") or {}).items():
+    if not isinstance(man["layers"], list):
+        fail("layers", str(ck.folder / MANIFEST), "a list of layer objects", repr(man["layers"]), "field", FormatError)
+    for i, d in enumerate(man["layers"]):
+        tables = (d.get("tables") or {}) if isinstance(d, dict) else {}
+        if not isinstance(tables, dict):
+            fail(f"layers[{i}].tables", str(ck.folder / MANIFEST), "an object", repr(tables), "field", FormatError)
+        for kind, spec in tables.items():
+            spec = _table_spec(ck, spec, f"layers[{i}].tables.{kind}")
             name = spec["file"]
             shape = tuple(spec["shape"])
-            vals, lines = parse_mem(ck.text(name), int(spec["bits"]), bool(spec["signed"]), int(spec["depth"]),
+            vals, lines = parse_mem(ck.text(name), spec["bits"], spec["signed"], spec["depth"],
                                     name=str(ck.folder / name))
             if vals.size != int(np.prod(shape)):
                 raise FormatError(f"{ck.folder / name}: depth {vals.size} does not match shape {list(shape)}")
@@ -163,13 +169,41 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
                 cv, cl = parse_csv_table(ck.text(spec["csv"]), spec["index_names"], shape, name=str(ck.folder / spec["csv"]))
                 copies.append((spec["csv"], cv.reshape(-1), cl.reshape(-1)))
             if spec.get("intel_hex"):
-                hv, hl = parse_intel_hex(ck.text(spec["intel_hex"]), int(spec["bits"]), bool(spec["signed"]),
-                                         int(spec["depth"]), name=str(ck.folder / spec["intel_hex"]))
+                _bounded_depth(ck, spec, spec["intel_hex"], f"layers[{i}].tables.{kind}.depth")
+                hv, hl = parse_intel_hex(ck.text(spec["intel_hex"]), spec["bits"], spec["signed"],
+                                         spec["depth"], name=str(ck.folder / spec["intel_hex"]))
                 copies.append((spec["intel_hex"], hv, hl))
             if kind in ("bias", "m0", "shift"):
                 copies.append((MANIFEST, np.asarray(d[kind], dtype=np.int64).reshape(-1), None))
             _compare_copies(ck, d["id"], spec, copies)
     return arrays
+
+
+def _table_spec(ck: _Checker, spec, field: str) -> dict:
+    """A table entry of the manifest, checked before anything is allocated from it: the word count
+    (`depth`) is bounded by the size of the memory file that must hold one line per word, and the
+    shape must hold exactly `depth` words."""
+    owner, E = str(ck.folder / MANIFEST), FormatError
+    if not isinstance(spec, dict):
+        fail(field, owner, "an object", repr(spec), "field", E)
+    spec = dict(spec)
+    for key in ("file", "npz_key"):
+        check_str(spec[key], f"{field}.{key}", owner, "field", E)
+    spec["bits"] = check_int(spec["bits"], f"{field}.bits", owner, 1, 62, "field", E)
+    spec["signed"] = check_bool(spec["signed"], f"{field}.signed", owner, "field", E)
+    spec["shape"] = list(check_shape(spec["shape"], f"{field}.shape", owner, None, 1, "field", E))
+    _bounded_depth(ck, spec, spec["file"], f"{field}.depth")
+    if int(np.prod(spec["shape"])) != spec["depth"]:
+        fail(f"{field}.shape", owner, f"a shape of {spec['depth']} words (its depth)", repr(spec["shape"]), "field", E)
+    return spec
+
+
+def _bounded_depth(ck: _Checker, spec: dict, rel, field: str) -> None:
+    """depth: an int no larger than the byte size of the file `rel` (every word takes a line)."""
+    path = resolve_inside(ck.folder, check_str(rel, field.rsplit(".", 1)[0] + ".file", str(ck.folder / MANIFEST),
+                                               "field", FormatError), "file")
+    size = path.stat().st_size if path.is_file() else 0
+    spec["depth"] = check_int(spec["depth"], field, str(ck.folder / MANIFEST), 0, size, "field", FormatError)
 
 
 def _neuron_index(shape, addr):
@@ -198,10 +232,14 @@ def _compare_stream(ck, s, sid, shape, expected, got, file, lines):
 
 
 def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
+    owner = str(ck.folder / MANIFEST)
     vec = man["vectors"]
+    if not isinstance(vec, dict):
+        fail("vectors", owner, "an object", repr(vec), "field", FormatError)
     if not vec.get("count"):
         return 0
-    z = load_npz(resolve_inside(ck.folder, vec["npz"], "file"))
+    check_int(vec["count"], "vectors.count", owner, 0, None, "field", FormatError)
+    z = load_npz(resolve_inside(ck.folder, check_str(vec["npz"], "vectors.npz", owner, "field", FormatError), "file"))
     for key in ("x", "potentials", "decision", "early_decision", "sample_index", "label"):
         if key not in z:
             raise FormatError(f"{ck.folder / vec['npz']}: array {key!r} is missing")
@@ -273,7 +311,8 @@ def verify(out_dir, progress: bool = True) -> VerifyResult:
     data = {rel: ck.read(rel) for rel in sorted(files)}  # every listed file must exist before anything else
     try:
         arrays = _check_tables(ck, man)
-        net = M.network_from_manifest(man, arrays, name=str(folder / MANIFEST))
+        net = M.network_from_manifest(man, arrays, name=str(folder / MANIFEST),
+                                      tables_name=f"the memory files of {folder}")
         n = _check_vectors(ck, man, net, progress)
     except (KeyError, TypeError, IndexError) as exc:
         raise FormatError(f"{folder / MANIFEST}: missing or invalid field ({type(exc).__name__}: {exc})") from None

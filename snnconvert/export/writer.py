@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert.errors import UsageError, check_bool, check_int
+from snnconvert.errors import FormatError, UsageError, check_bool, check_int, fail
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
@@ -82,7 +82,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     csv = check_bool(csv, "csv", "export")
     intel_hex = check_bool(intel_hex, "intel_hex", "export")
     out = Path(out_dir)
-    old_files = _previous_export_files(out)
+    old_files = previous_export_files(out)
 
     files: dict[str, bytes] = {}
     npz_tables, specs = {}, {}
@@ -121,24 +121,29 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
 
     man = M.build_manifest(net, specs, {k: sha256_bytes(v) for k, v in sorted(files.items())}, vec_info, TABLES_NPZ,
                            created=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    # Every path is checked before anything changes: a refusal leaves the folder as it was.
+    targets = {rel: resolve_inside(out, rel, "file") for rel in files}
+    stale = [old_files[rel] for rel in sorted(set(old_files) - set(files))]
     # The old manifest goes first and the new one comes last: a crash in between leaves no manifest
     # that vouches for a half-written folder.
     (out / MANIFEST).unlink(missing_ok=True)
-    for rel in sorted(old_files - set(files)):
-        resolve_inside(out, rel, "file").unlink(missing_ok=True)
+    for path in stale:
+        path.unlink(missing_ok=True)
     for rel, data in files.items():
-        atomic_write_bytes(resolve_inside(out, rel, "file"), data)
+        atomic_write_bytes(targets[rel], data)
     return atomic_write_json(out / MANIFEST, man)
 
 
-def _previous_export_files(out: Path) -> set[str]:
-    """Files listed by an export already in `out`; refuses a non-empty folder that is not an export."""
+def previous_export_files(out: Path) -> dict[str, Path]:
+    """Files listed by an export already in `out` ({path in the manifest: resolved path}), each checked to
+    lie inside `out` and to be a file; refuses a non-empty folder that is not an export. Nothing is
+    changed here, so a refusal leaves the folder as it was."""
     if not out.exists():
-        return set()
+        return {}
     if not out.is_dir():
         raise UsageError(f"export folder {out} exists and is not a folder")
     if not any(out.iterdir()):
-        return set()
+        return {}
     man_path = out / MANIFEST
     if not man_path.is_file():
         raise UsageError(f"export folder {out} is not empty and holds no {MANIFEST}; choose an empty or new folder")
@@ -146,4 +151,16 @@ def _previous_export_files(out: Path) -> set[str]:
     if not isinstance(man, dict) or man.get("format") != M.FORMAT:
         raise UsageError(f"{man_path} is not an snnconvert export manifest; refusing to overwrite {out}")
     files = man.get("files", {})
-    return set(files) if isinstance(files, dict) else set()
+    if not isinstance(files, dict):
+        fail("files", str(man_path), "an object mapping file paths to sha256 digests", repr(files), "field", FormatError)
+    listed = {}
+    for rel in sorted(files):
+        try:
+            path = resolve_inside(out, rel, "file")
+        except UsageError:
+            fail("files", str(man_path), f"a map of paths inside {out}", repr(rel), "field", FormatError)
+        if path == out.resolve() or path.is_dir() or rel == MANIFEST:
+            fail("files", str(man_path), "a map of the export's files (not folders, not the manifest)", repr(rel),
+                 "field", FormatError)
+        listed[rel] = path
+    return listed
