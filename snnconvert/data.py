@@ -14,8 +14,9 @@ Sources ([data] source):
                 sensor_side x sensor_side; CSV and plain NPZ times are read in time_unit.
 
 Degenerate data is an error: when more than MAX_EMPTY_FRACTION of the frames hold no spike,
-load_dataset raises a UsageError naming the key to change (frames.threshold in binary mode when
-the windows hold events, frames.window/pick otherwise). Above WARN_EMPTY_FRACTION it warns.
+load_dataset raises a UsageError naming the key to change (the [data] key that left the recordings
+without events, frames.threshold in binary mode when the windows hold events, frames.window/pick
+otherwise). Above WARN_EMPTY_FRACTION it warns.
 
 Simulated recordings are cached as NPZ in cache_dir, keyed by a hash of the images,
 the stimulus, every sensor parameter and the seed; a second run with the same keys reuses them.
@@ -157,7 +158,7 @@ def read_idx(path) -> np.ndarray:
         try:
             data = gzip.decompress(data)
         except (OSError, EOFError, zlib.error) as exc:  # bad header / cut short / damaged deflate stream
-            raise FormatError(f"{path}: not a readable gzip file ({exc})") from None
+            raise FormatError(f"{path}: not a readable gzip file (damaged or cut short)") from None
     if len(data) < 4 or data[0] != 0 or data[1] != 0:
         raise FormatError(f"{path}: not an IDX file (byte offset 0: magic number must start with 00 00)")
     if data[2] not in _IDX_TYPES:
@@ -472,7 +473,7 @@ def _binarized_recordings(images: np.ndarray, labels: np.ndarray, level: float) 
     return RecordingSet(ev, offsets, labels, w, h)
 
 
-def check_frames(X: np.ndarray, recs: RecordingSet, lens: np.ndarray, fsec: dict) -> None:
+def check_frames(X: np.ndarray, recs: RecordingSet, lens: np.ndarray, fsec: dict, dsec: dict) -> None:
     """Refuse degenerate data: more than MAX_EMPTY_FRACTION of the frames without a spike.
 
     empty = #{i : sum(X[i]) == 0}; refused when empty > MAX_EMPTY_FRACTION * N. The UsageError is
@@ -482,16 +483,28 @@ def check_frames(X: np.ndarray, recs: RecordingSet, lens: np.ndarray, fsec: dict
     empty = int(np.count_nonzero(X.reshape(n, -1).sum(1) == 0)) if n else 0
     if n and empty > MAX_EMPTY_FRACTION * n:
         raise UsageError(f"{empty} of {n} frames are empty (at most {MAX_EMPTY_FRACTION:.0%} may be); "
-                         f"{_empty_frames_advice(recs, lens, fsec)}")
+                         f"{_empty_frames_advice(recs, lens, fsec, dsec)}")
 
 
-def _empty_frames_advice(recs: RecordingSet, lens: np.ndarray, fsec: dict) -> str:
-    """Which key to change. Binary frames whose windows hold events: frames.threshold, with the
-    pooled count of the busiest pixel of the median frame as the largest threshold that keeps it;
-    frames whose windows hold no events: frames.window / frames.pick. lens: events per frame window."""
+def _empty_frames_advice(recs: RecordingSet, lens: np.ndarray, fsec: dict, dsec: dict) -> str:
+    """Which key to change, by the first cause that holds:
+    recordings without events: the [data] key that made them (binarize_level, contrast) or the files;
+    binary frames whose windows hold events: frames.threshold, with the pooled count of the busiest
+    pixel of the median frame as the largest threshold that keeps it; else frames.window / frames.pick.
+    lens: events per frame window."""
+    per_rec = np.diff(recs.offsets)
+    if np.median(per_rec) == 0:
+        if dsec["source"] == "idx" and dsec["idx_mode"] == "binarize":
+            key = f"lower data.binarize_level (now {dsec['binarize_level']})"
+        elif dsec["source"] == "recordings":
+            key = f"check the recordings listed in {dsec['recordings_index']}"
+        else:
+            key = f"lower data.contrast (now {dsec['contrast']})"
+        return f"the median recording holds no events: {key}"
     if fsec["mode"] == "binary" and np.median(lens) > 0:
         counts = recording_frames(recs, {**fsec, "mode": "count", "max_count": 255}, progress=False)[0]
-        busiest = int(np.median(counts.reshape(len(counts), -1).max(1)))
+        # the lower median: a threshold at most this keeps at least half of the frames non-empty
+        busiest = int(np.percentile(counts.reshape(len(counts), -1).max(1), 50, method="lower"))
         return (f"lower frames.threshold (now {fsec['threshold']}) to at most {busiest}, the event count of "
                 f"the busiest pixel in the median frame")
     return (f"change frames.window (now {fsec['window']!r}) or frames.pick (now {fsec['pick']!r}): "
@@ -511,7 +524,7 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     fsec = {k: recipe.get("frames", {}).get(k, key.default) for k, key in F.SCHEMA.items()}
     recs, classes, info = load_recordings(recipe, progress)
     X, wins, ok, lens = recording_frames(recs, fsec, progress)  # (N, C, S, S)
-    check_frames(X, recs, lens, fsec)
+    check_frames(X, recs, lens, fsec, dsec)
     y = recs.labels
     idx = np.arange(len(y))
     tf, vf = dsec["test_fraction"], dsec["val_fraction"]
@@ -537,7 +550,7 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
     )
     if len(X) and info["empty_frames"] > WARN_EMPTY_FRACTION * len(X):
-        print(f"warning: {info['empty_frames']} of {len(X)} frames are empty; {_empty_frames_advice(recs, lens, fsec)}",
+        print(f"warning: {info['empty_frames']} of {len(X)} frames are empty; {_empty_frames_advice(recs, lens, fsec, dsec)}",
               file=sys.stderr)
     fp = _digest(X, y, tr, va, te, classes)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),

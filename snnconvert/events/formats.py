@@ -108,8 +108,8 @@ def _times_us(path: Path, t: np.ndarray, time_unit: str, where=None) -> np.ndarr
     us = t.astype(np.float64) * _US_PER_UNIT[time_unit]
     if us.size and not np.all(np.isfinite(us)) or us.size and np.abs(us).max() >= 2.0 ** 62:
         i = int(np.flatnonzero(~np.isfinite(us) | (np.abs(np.nan_to_num(us, nan=np.inf)) >= 2.0 ** 62))[0])
-        loc = f" ({where(i)})" if where else ""
-        raise FormatError(f"{path}: time 't' at index {i} is {t[i]!r}, not a finite time in {time_unit}{loc}")
+        loc = where(i) if where else f"index {i}"
+        raise FormatError(f"{path}: {loc}: time {t[i]} is not a finite time in {time_unit}")
     return np.rint(us).astype(np.int64)
 
 
