@@ -2,13 +2,21 @@
 
 Sources ([data] source):
     digits      scikit-learn's bundled 8x8 digits (values 0..16), upsampled bilinearly
-                (scipy.ndimage.zoom, order 1, corners aligned) to sensor_size x sensor_size and shown to
+                (scipy.ndimage.zoom, order 1, corners aligned) to sensor_side x sensor_side and shown to
                 the simulated sensor. The embedded default; nothing is downloaded.
     idx         IDX image/label files on disk (the MNIST layout). idx_mode "sensor" shows them to the
-                simulated sensor (resized to sensor_size); "binarize" turns every pixel at or above
+                simulated sensor (resized to sensor_side); "binarize" turns every pixel at or above
                 binarize_level of full scale into one ON event at t = 0 (no burst is found in such a
-                recording, so the frame takes all its events; set frames.threshold to 1 or 2 there).
+                recording, so the frame takes all its events; with frames.size equal to the image
+                side, frames.threshold = 1 gives one spike per set pixel).
     recordings  a folder of event files with a CSV index `file,label` (paths inside the folder).
+                Files that store no sensor size (.bin, plain NPZ, CSV without `# sensor WxH`) take
+                sensor_side x sensor_side; CSV and plain NPZ times are read in time_unit.
+
+Degenerate data is an error: when more than MAX_EMPTY_FRACTION of the frames hold no spike,
+load_dataset raises a UsageError naming the key to change (the [data] key that left the recordings
+without events, frames.threshold in binary mode when the windows hold events, frames.window/pick
+otherwise). Above WARN_EMPTY_FRACTION it warns.
 
 Simulated recordings are cached as NPZ in cache_dir, keyed by a hash of the images,
 the stimulus, every sensor parameter and the seed; a second run with the same keys reuses them.
@@ -29,21 +37,27 @@ import numpy as np
 from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events import sensor as _sensor
-from snnconvert.events.formats import SUFFIXES, read_events, write_events
+from snnconvert.events.formats import SUFFIXES, TIME_UNITS, read_events, write_events
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
 from snnconvert.schema import Key
 
 SOURCES = ("digits", "idx", "recordings")
 CACHE_FORMAT = "snnconvert-recordings"
 CACHE_VERSION = 1
+# more than half of the frames empty: a classifier cannot learn from them, so the run stops
+# (a threshold or window set for other data); above a tenth it only warns
+MAX_EMPTY_FRACTION = 0.5
+WARN_EMPTY_FRACTION = 0.1
+# keys that were renamed: old name -> new name (recipe.from_dict reads the old name with a note)
+RENAMED = {"sensor_size": "sensor_side"}
 
 SCHEMA: dict[str, Key] = {
     "source": Key("digits", "choice", "bundled with scikit-learn: runs offline with nothing to download",
                   choices=SOURCES),
     "stimulus": Key("flash", "choice", "a flash gives one clean ON burst per image, the simplest frame",
                     choices=_sensor.STIMULI),
-    "sensor_size": Key(32, "int", "4x the 8x8 digits: enough pixels for smooth edges, small enough to simulate fast; "
-                       "also the assumed side of .bin recordings", lo=8, hi=1024),
+    "sensor_side": Key(32, "int", "4x the 8x8 digits: enough pixels for smooth edges, small enough to simulate fast; "
+                       "also the side of recordings that store no sensor size (.bin)", lo=8, hi=1024),
     "limit": Key(0, "int", "0 keeps every sample; tests set a small number to run in seconds", lo=0),
     "val_fraction": Key(0.1, "float", "a small validation split for early stopping and calibration", lo=0.0, hi=0.5),
     "test_fraction": Key(0.2, "float", "about 360 digits: one test error moves accuracy by under 0.3 points",
@@ -55,6 +69,8 @@ SCHEMA: dict[str, Key] = {
     "binarize_level": Key(0.5, "float", "half of full scale: the usual cut for dark-on-light digit images",
                           lo=0.0, hi=1.0),
     "recordings_index": Key("", "path", "no default: a CSV `file,label` inside the user's recordings folder"),
+    "time_unit": Key("us", "choice", "recordings store integer microseconds; s or ms read float times in CSV and plain "
+                     "NPZ files", choices=TIME_UNITS),
     "cache_dir": Key("", "path", "empty: $SNNCONVERT_CACHE or ~/.cache/snnconvert, shared between runs"),
     **_sensor.SCHEMA,
 }
@@ -109,11 +125,11 @@ class Dataset:
 
 
 # --- images ----------------------------------------------------------------------------------
-def digits_images(sensor_size: int) -> tuple[np.ndarray, np.ndarray]:
+def digits_images(sensor_side: int) -> tuple[np.ndarray, np.ndarray]:
     """scikit-learn's digits as (1797, S, S) float64 in [0, 1] and labels (1797,) int64."""
     from sklearn.datasets import load_digits
     d = load_digits()
-    return _resize(d.images / 16.0, sensor_size), d.target.astype(np.int64)
+    return _resize(d.images / 16.0, sensor_side), d.target.astype(np.int64)
 
 
 def _resize(images: np.ndarray, size: int) -> np.ndarray:
@@ -137,10 +153,11 @@ def read_idx(path) -> np.ndarray:
         raise UsageError(f"file not found: {path}")
     data = path.read_bytes()
     if path.suffix == ".gz":
+        import zlib
         try:
             data = gzip.decompress(data)
-        except (OSError, EOFError) as exc:
-            raise FormatError(f"{path}: not a readable gzip file ({exc})") from None
+        except (OSError, EOFError, zlib.error) as exc:  # bad header / cut short / damaged deflate stream
+            raise FormatError(f"{path}: not a readable gzip file (damaged or cut short)") from None
     if len(data) < 4 or data[0] != 0 or data[1] != 0:
         raise FormatError(f"{path}: not an IDX file (byte offset 0: magic number must start with 00 00)")
     if data[2] not in _IDX_TYPES:
@@ -302,13 +319,13 @@ def class_names(labels: list[str]) -> list[str]:
         return sorted(uniq)
 
 
-def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_size: int = 32,
+def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_side: int = 32,
                           stimulus: str = "flash", config: _sensor.SensorConfig | None = None) -> Path:
     """A small recordings folder made by the simulated sensor from the digits, for demos.
 
     Files rotate through every format (.npz, .csv, .bin); returns the path of index.csv.
     """
-    images, labels = digits_images(sensor_size)
+    images, labels = digits_images(sensor_side)
     rng = np.random.default_rng([int(seed), 3])
     pick = np.concatenate([rng.permutation(np.flatnonzero(labels == c))[:per_class] for c in range(10)])
     ev, offsets = _sensor.simulate_batch(images[pick], stimulus, config, np.random.default_rng([int(seed), 1]),
@@ -316,11 +333,55 @@ def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_size
     folder = Path(folder)
     lines = ["file,label"]
     for k, i in enumerate(pick):
-        s = EventStream(ev[offsets[k]:offsets[k + 1]], sensor_size, sensor_size)
+        s = EventStream(ev[offsets[k]:offsets[k + 1]], sensor_side, sensor_side)
         name = f"digit{labels[i]}_{k:04d}{SUFFIXES[k % len(SUFFIXES)]}"
         write_events(s, folder / name)
         lines.append(f"{name},{labels[i]}")
     return files.atomic_write_text(folder / "index.csv", "\n".join(lines) + "\n")
+
+
+# --- frame files (simulate --data, export --inputs) ----------------------------------------------
+def load_frames_file(path, input_shape, input_q: int, n_classes: int, need_labels: bool = True):
+    """(x int64 (N, C, H, W), y int64 (N,) or None) from a frames NPZ: array `x` holds the frames as
+    input payloads (integers in [0, input_q]; an integer dtype, or floats holding whole numbers, as the
+    data set's frames do) and array `y` the class labels (an integer dtype, values in [0, n_classes)).
+
+    Every failure is a FormatError naming the file and the array.
+    """
+    from snnconvert.files import load_npz
+    path = Path(path)
+    z = load_npz(path)
+    shape = "(N, " + ", ".join(map(str, input_shape)) + ")"
+    for k, what in (("x", f"frames as input payloads 0..{input_q}, shape {shape}"), ("y", "class labels, shape (N,)")):
+        if k not in z and (k == "x" or need_labels):
+            raise FormatError(f"{path}: array '{k}' ({what}) is missing; found {sorted(z)} "
+                              f"(a frames file holds the arrays x and y)")
+    x = z["x"]
+    if x.ndim != 4 or tuple(x.shape[1:]) != tuple(input_shape) or x.shape[0] == 0:
+        raise FormatError(f"{path}: array 'x' has shape {x.shape}; the network needs {shape} with N >= 1")
+    if x.dtype.kind == "f":
+        if not np.all(np.isfinite(x)) or np.any(x != np.round(x)):
+            raise FormatError(f"{path}: array 'x' must hold whole-number input payloads in [0, {input_q}]; "
+                              f"got fractions or non-finite values")
+    elif x.dtype.kind not in "iub":
+        raise FormatError(f"{path}: array 'x' must hold integer input payloads; got dtype {x.dtype}")
+    lo, hi = x.min(), x.max()
+    if lo < 0 or hi > input_q:
+        raise FormatError(f"{path}: array 'x' must hold input payloads in [0, {input_q}]; got values in "
+                          f"[{lo:g}, {hi:g}]")
+    y = z.get("y")
+    if y is not None:
+        if y.dtype.kind not in "iu":
+            raise FormatError(f"{path}: array 'y' must hold integer class labels; got dtype {y.dtype}")
+        if y.shape != (x.shape[0],):
+            raise FormatError(f"{path}: array 'y' must hold one label per frame, shape ({x.shape[0]},); "
+                              f"got shape {y.shape}")
+        bad = np.flatnonzero((y < 0) | (y >= n_classes))
+        if bad.size:
+            raise FormatError(f"{path}: array 'y' must hold class labels in [0, {n_classes - 1}]; got "
+                              f"{int(y[bad[0]])} at index {int(bad[0])}")
+        y = y.astype(np.int64)
+    return x.astype(np.int64), y
 
 
 # --- frames of many recordings ---------------------------------------------------------------
@@ -372,16 +433,26 @@ def _subset(labels: np.ndarray, limit: int, seed: int) -> np.ndarray:
     return np.sort(keep)
 
 
+def data_section(recipe: dict) -> dict:
+    """The recipe's [data] section with every key filled (defaults) and renamed keys read under their
+    new name, also in recipes stored by earlier versions."""
+    given = dict(recipe.get("data", {}))
+    for old, new in RENAMED.items():
+        if old in given:
+            given.setdefault(new, given.pop(old))
+    return {k: given.get(k, key.default) for k, key in SCHEMA.items()}
+
+
 def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, list[str], dict]:
     """The recordings a recipe's [data] section describes, plus class names and facts for the report."""
-    sec = {k: recipe.get("data", {}).get(k, key.default) for k, key in SCHEMA.items()}
+    sec = data_section(recipe)
     seed = int(recipe.get("seed", 0))
     base = Path(recipe.get("_base_dir") or ".")
     config = _sensor.SensorConfig.from_section(sec)
     info = {"source": sec["source"]}
     src = sec["source"]
     if src == "digits":
-        images, labels = digits_images(sec["sensor_size"])
+        images, labels = digits_images(sec["sensor_side"])
         keep = _subset(labels, sec["limit"], seed)
         recs, path, hit = simulate_cached(images[keep], labels[keep], sec["stimulus"], config, seed,
                                           *_cache_folders(recipe, sec, base))
@@ -403,7 +474,7 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         full = float(np.iinfo(images.dtype).max) if np.issubdtype(images.dtype, np.integer) else float(images.max() or 1)
         images = np.clip(images.astype(np.float64) / full, 0, 1)
         if sec["idx_mode"] == "sensor":
-            recs, path, hit = simulate_cached(_resize(images, sec["sensor_size"]), labels, sec["stimulus"], config,
+            recs, path, hit = simulate_cached(_resize(images, sec["sensor_side"]), labels, sec["stimulus"], config,
                                               seed, *_cache_folders(recipe, sec, base))
             info.update(cache=str(path), cache_reused=hit, stimulus=sec["stimulus"])
         else:
@@ -414,8 +485,8 @@ def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, 
         paths, names = read_index(index)
         classes = class_names(names)
         keep = _subset(np.array([classes.index(v) for v in names]), sec["limit"], seed)
-        s_side = (sec["sensor_size"], sec["sensor_size"])
-        streams = [read_events(paths[i], sensor=s_side if paths[i].suffix.lower() == ".bin" else None)
+        side = (sec["sensor_side"], sec["sensor_side"])
+        streams = [read_events(paths[i], default_sensor=side, time_unit=sec["time_unit"])
                    for i in console.bar(keep, desc="reading", unit="file", enabled=progress)]
         recs = RecordingSet.from_streams(streams, [classes.index(names[i]) for i in keep])
         info.update(index=str(index))
@@ -432,6 +503,44 @@ def _binarized_recordings(images: np.ndarray, labels: np.ndarray, level: float) 
     return RecordingSet(ev, offsets, labels, w, h)
 
 
+def check_frames(X: np.ndarray, recs: RecordingSet, lens: np.ndarray, fsec: dict, dsec: dict) -> None:
+    """Refuse degenerate data: more than MAX_EMPTY_FRACTION of the frames without a spike.
+
+    empty = #{i : sum(X[i]) == 0}; refused when empty > MAX_EMPTY_FRACTION * N. The UsageError is
+    one line naming the recipe key to change (see _empty_frames_advice).
+    """
+    n = len(X)
+    empty = int(np.count_nonzero(X.reshape(n, -1).sum(1) == 0)) if n else 0
+    if n and empty > MAX_EMPTY_FRACTION * n:
+        raise UsageError(f"{empty} of {n} frames are empty (at most {MAX_EMPTY_FRACTION:.0%} may be); "
+                         f"{_empty_frames_advice(recs, lens, fsec, dsec)}")
+
+
+def _empty_frames_advice(recs: RecordingSet, lens: np.ndarray, fsec: dict, dsec: dict) -> str:
+    """Which key to change, by the first cause that holds:
+    recordings without events: the [data] key that made them (binarize_level, contrast) or the files;
+    binary frames whose windows hold events: frames.threshold, with the pooled count of the busiest
+    pixel of the median frame as the largest threshold that keeps it; else frames.window / frames.pick.
+    lens: events per frame window."""
+    per_rec = np.diff(recs.offsets)
+    if np.median(per_rec) == 0:
+        if dsec["source"] == "idx" and dsec["idx_mode"] == "binarize":
+            key = f"lower data.binarize_level (now {dsec['binarize_level']})"
+        elif dsec["source"] == "recordings":
+            key = f"check the recordings listed in {dsec['recordings_index']}"
+        else:
+            key = f"lower data.contrast (now {dsec['contrast']})"
+        return f"the median recording holds no events: {key}"
+    if fsec["mode"] == "binary" and np.median(lens) > 0:
+        counts = recording_frames(recs, {**fsec, "mode": "count", "max_count": 255}, progress=False)[0]
+        # the lower median: a threshold at most this keeps at least half of the frames non-empty
+        busiest = int(np.percentile(counts.reshape(len(counts), -1).max(1), 50, method="lower"))
+        return (f"lower frames.threshold (now {fsec['threshold']}) to at most {busiest}, the event count of "
+                f"the busiest pixel in the median frame")
+    return (f"change frames.window (now {fsec['window']!r}) or frames.pick (now {fsec['pick']!r}): "
+            f"the median frame window holds {int(np.median(lens))} events")
+
+
 def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     """Recordings -> one frame each (frames section) -> seeded stratified train/val/test split.
 
@@ -441,10 +550,11 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     from sklearn.model_selection import train_test_split
     from snnconvert import frames as F
     seed = int(recipe.get("seed", 0))
-    dsec = {k: recipe.get("data", {}).get(k, key.default) for k, key in SCHEMA.items()}
+    dsec = data_section(recipe)
     fsec = {k: recipe.get("frames", {}).get(k, key.default) for k, key in F.SCHEMA.items()}
     recs, classes, info = load_recordings(recipe, progress)
     X, wins, ok, lens = recording_frames(recs, fsec, progress)  # (N, C, S, S)
+    check_frames(X, recs, lens, fsec, dsec)
     y = recs.labels
     idx = np.arange(len(y))
     tf, vf = dsec["test_fraction"], dsec["val_fraction"]
@@ -469,10 +579,9 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         empty_frames=int(np.count_nonzero(spikes == 0)),
         split_sizes={"train": int(tr.size), "val": int(va.size), "test": int(te.size)},
     )
-    if len(X) and info["empty_frames"] > len(X) // 10:
-        console.say(f"warning: {info['empty_frames']} of {len(X)} frames are empty; lower frames.threshold "
-              f"(now {fsec['threshold']}) or change frames.window/pick (sparse recordings such as saccades "
-              "need a threshold of 1-2)")
+    if len(X) and info["empty_frames"] > WARN_EMPTY_FRACTION * len(X):
+        console.say(f"warning: {info['empty_frames']} of {len(X)} frames are empty; "
+                    f"{_empty_frames_advice(recs, lens, fsec, dsec)}")
     fp = _digest(X, y, tr, va, te, classes)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
                    input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,

@@ -20,7 +20,7 @@ import tomllib
 from pathlib import Path
 from typing import Any, Iterable
 
-from snnconvert import files
+from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError, closest, unknown_key_message
 from snnconvert.schema import Key
 
@@ -60,6 +60,28 @@ def schemas() -> dict[str, dict[str, Key]]:
     return out
 
 
+def renamed() -> dict[str, dict[str, str]]:
+    """{section: {old key: new key}} from each stage module's optional `RENAMED`."""
+    return {section: dict(getattr(importlib.import_module(modname), "RENAMED", {}))
+            for section, modname in SECTION_MODULES.items()}
+
+
+def _rename(section: str, table: dict, where: str) -> None:
+    """Read a renamed key under its new name, in place, with a one-line note on stderr.
+
+    A recipe that gives both the old and the new name is refused (which one is meant is unclear).
+    """
+    import sys
+    for old, new in renamed().get(section, {}).items():
+        if old in table:
+            if new in table:
+                raise UsageError(f"{where}: [{section}] gives both '{old}' (the old name of '{new}') and '{new}'; "
+                                 f"keep only '{new}'")
+            table[new] = table.pop(old)
+            console.say(f"note: {where}: [{section}] {old} is now called {new}; read as {new} = {table[new]!r} "
+                        f"(rename it)")
+
+
 def load(path, overrides: Iterable[str] = ()) -> dict:
     """Read a recipe TOML file, fill defaults, apply `--set` overrides and validate.
 
@@ -75,11 +97,13 @@ def load(path, overrides: Iterable[str] = ()) -> dict:
         raise UsageError(f"{path}: invalid TOML: {exc}") from None
     except UnicodeDecodeError:
         raise UsageError(f"{path}: not a UTF-8 text file") from None
-    return from_dict(raw, overrides, base_dir=path.resolve().parent, name=path.stem)
+    return from_dict(raw, overrides, base_dir=path.resolve().parent, name=path.stem, where=str(path))
 
 
-def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str = "recipe") -> dict:
-    """Resolve a recipe given as a dict (as parsed from TOML); see `load`."""
+def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str = "recipe",
+              where: str = "the recipe") -> dict:
+    """Resolve a recipe given as a dict (as parsed from TOML); see `load`. `where` names the recipe in
+    notes about renamed keys."""
     sch = schemas()
     raw = copy.deepcopy(raw)
     raw.pop("_base_dir", None)
@@ -87,6 +111,7 @@ def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str 
         if isinstance(value, dict):
             if key not in sch:
                 raise UsageError(_unknown_section(key, sch))
+            _rename(key, value, where)
             for k in value:
                 if k not in sch[key]:
                     raise UsageError(unknown_key_message(k, key, sch[key]))
@@ -150,6 +175,10 @@ def _parse_override(item: str, sch) -> tuple[str | None, str, Any]:
         section, key = lhs.split(".", 1)
         if section not in sch:
             raise UsageError(f"--set {lhs}: " + _unknown_section(section, sch))
+        if key in renamed().get(section, {}):
+            new = renamed()[section][key]
+            console.say(f"note: --set {lhs}: {section}.{key} is now called {section}.{new}; read as {section}.{new}")
+            key = new
         if key not in sch[section]:
             raise UsageError(f"--set {lhs}: " + unknown_key_message(key, section, sch[section]))
     else:

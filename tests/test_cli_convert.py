@@ -60,14 +60,14 @@ def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
     net = IntNetwork.load(run_dir / "net3")
     rng = np.random.default_rng(0)
     X = (rng.random((12,) + tuple(net.input_shape)) < 0.3).astype(np.float32)
-    np.savez(tmp_path / "f.npz", X=X, y=rng.integers(0, 10, 12))
+    np.savez(tmp_path / "f.npz", x=X, y=rng.integers(0, 10, 12))
     capsys.readouterr()
     assert main(["simulate", str(run_dir / "net3"), "--data", str(tmp_path / "f.npz")]) == 0
     assert "spike_accuracy" in capsys.readouterr().out
-    np.savez(tmp_path / "bad.npz", X=X)
+    np.savez(tmp_path / "bad.npz", x=X)
     assert main(["simulate", str(run_dir / "net3"), "--data", str(tmp_path / "bad.npz")]) == 2
-    assert capsys.readouterr().err == (f"error: {tmp_path / 'bad.npz'}: no array 'y' (a frames NPZ holds "
-                                       f"X (N, C, H, W) and y (N,))\n")
+    assert capsys.readouterr().err == (f"error: {tmp_path / 'bad.npz'}: array 'y' (class labels, shape (N,)) is "
+                                       f"missing; found ['x'] (a frames file holds the arrays x and y)\n")
 
 
 @pytest.mark.parametrize("argv,err", [

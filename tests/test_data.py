@@ -48,7 +48,7 @@ def test_digits_dataset_split_cache_and_frames(tmp_path):
     other = D.load_dataset({**r, "seed": 4}, progress=False)
     assert other.fingerprint != ds.fingerprint
     rec, label = ds.recordings[0]
-    assert len(rec) > 0 and rec.width == 32 and label == ds.recordings.labels[0]  # default sensor_size 32
+    assert len(rec) > 0 and rec.width == 32 and label == ds.recordings.labels[0]  # default sensor_side 32
 
 
 def test_corrupt_cache_is_replaced(tmp_path, capsys):

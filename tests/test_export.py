@@ -327,6 +327,9 @@ def test_reexport_replaces_old_files_and_refuses_foreign_folders(tmp_path):
     (np.zeros((2, 1, 6, 6), np.float32), None, 1, "Got float32 of shape"),
     (np.zeros((2, 1, 6, 6), np.int64), np.zeros(3, int), 1, "'labels' parameter of export must be 2 integer labels"),
     (np.zeros((2, 1, 6, 6), np.int64), None, -1, r"'vectors' parameter of export must be an int >= 0. Got -1 instead"),
+    # small_net has 3 classes: labels 0..2
+    (np.zeros((2, 1, 6, 6), np.int64), np.array([0, 3]), 1, r"must hold class labels in \[0, 2\]. Got 3 at index 1 instead"),
+    (np.zeros((2, 1, 6, 6), np.int64), np.array([-1, 0]), 1, r"must hold class labels in \[0, 2\]. Got -1 at index 0 instead"),
 ])
 def test_export_validates_inputs(tmp_path, x, labels, vectors, match):
     with pytest.raises(UsageError, match=match):
@@ -358,7 +361,7 @@ def test_cli_export_with_inputs_file(tmp_path, capsys):
     (["export", "{t}/nowhere", "{t}/out"], "error: network folder {t}/nowhere holds no network.json (run `snnconvert convert` first)"),
     (["export", "{t}/net", "{t}/out"], "error: {t}/net/recipe.toml is missing, so the test data is unknown; give --inputs FILE.npz"),
     (["export", "{t}/net", "{t}/out", "--vectors", "-2"], "error: The 'vectors' parameter of export must be an int >= 0. Got -2 instead."),
-    (["export", "{t}/net", "{t}/out", "--inputs", "{t}/bad.npz"], "error: {t}/bad.npz: array 'x' (int input payloads, shape (N, C, H, W)) is missing; found ['y']"),
+    (["export", "{t}/net", "{t}/out", "--inputs", "{t}/bad.npz"], "error: {t}/bad.npz: array 'x' (frames as input payloads 0..1, shape (N, 1, 6, 6)) is missing; found ['y'] (a frames file holds the arrays x and y)"),
     (["export", "{t}/net", "{t}/out", "--inputs", "{t}/none.npz"], "error: file not found: {t}/none.npz"),
 ])
 def test_cli_export_usage_errors(tmp_path, capsys, args, message):

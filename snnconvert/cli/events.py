@@ -12,6 +12,7 @@ from snnconvert import frames as F
 from snnconvert import windows as W
 from snnconvert.errors import UsageError
 from snnconvert.events import parse_sensor, read_events
+from snnconvert.events.formats import TIME_UNITS
 from snnconvert.files import check_output_path
 
 HELP = "summarize an event recording: events, duration, rate, ON/OFF balance and bursts"
@@ -20,10 +21,15 @@ _FS = F.SCHEMA
 
 
 def add_arguments(p) -> None:
-    p.add_argument("file", metavar="FILE", help="event file: .npz (own), .csv (t,x,y,p) or .bin (40-bit layout)")
+    p.add_argument("file", metavar="FILE",
+                   help="event file: .npz (own, or plain with arrays t, x, y, p), .csv (t,x,y,p) or .bin (40-bit layout)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     p.add_argument("--plot", metavar="OUT.png", help="draw the rate trace, thresholds, bursts and burst frames")
-    p.add_argument("--sensor", metavar="WxH", help="sensor size, for formats that do not store it (e.g. 34x34)")
+    p.add_argument("--sensor", metavar="WxH",
+                   help="sensor size, for files that do not store it (.bin, plain NPZ, CSV without '# sensor WxH'); "
+                        "e.g. 34x34")
+    p.add_argument("--time-unit", choices=TIME_UNITS, default="us",
+                   help="unit of the times in CSV and plain NPZ files; s and ms may have decimals (%(default)s)")
     g = p.add_argument_group("bursts (defaults as in the recipe's [frames] section)")
     g.add_argument("--bin-us", type=int, default=_FS["bin_us"].default, help="rate window in us (%(default)s)")
     g.add_argument("--upper", type=float, default=_FS["upper"].default,
@@ -65,7 +71,7 @@ def run(args) -> int:
             raise UsageError(f"--{name} must be >= 0; got {getattr(args, name)}")
     if args.plot:
         check_output_path(args.plot, "--plot")
-    stream = read_events(args.file, sensor=sensor)
+    stream = read_events(args.file, sensor=sensor, time_unit=args.time_unit)
     info = summarize(stream, args.bin_us, args.upper, args.lower, not args.absolute, args.min_duration_us,
                      args.merge_gap_us)
     info["file"] = str(args.file)

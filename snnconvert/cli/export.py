@@ -12,7 +12,7 @@ def add_arguments(p) -> None:
     p.add_argument("out_dir", metavar="OUT_DIR", help="export folder to write (new, empty, or an earlier export)")
     p.add_argument("--vectors", type=int, metavar="N", help="golden vectors to write (default: recipe [export] vectors, 16)")
     p.add_argument("--inputs", metavar="FILE.npz",
-                   help="test inputs instead of the recipe's data set: array x int (N, C, H, W), optional y")
+                   help="a frames file instead of the recipe's data set: array x (N, C, H, W) input payloads, optional y labels")
     p.add_argument("--csv", action=argparse.BooleanOptionalAction, default=None,
                    help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
     p.add_argument("--intel-hex", action=argparse.BooleanOptionalAction, default=None,

@@ -12,8 +12,8 @@ HELP = "re-run the simulation of a converted network (optionally event by event)
 def add_arguments(p) -> None:
     p.add_argument("net_dir", metavar="NET_DIR", help="folder written by `snnconvert convert` (network.json)")
     p.add_argument("--data", metavar="SOURCE",
-                   help="TRAIN_DIR (its test split and frame model) or a frames NPZ with arrays X (N, C, H, W) "
-                        "and y (N,); default: the test split of the recipe stored in the network")
+                   help="TRAIN_DIR (its test split and frame model) or a frames NPZ with arrays x (N, C, H, W) "
+                        "input payloads and y (N,) labels; default: the test split of the recipe stored in the network")
     p.add_argument("--reference", action="store_true",
                    help="also run the event-by-event reference simulator and check it agrees exactly")
     p.add_argument("--limit", type=int, metavar="N", help="use only the first N samples")
@@ -21,9 +21,8 @@ def add_arguments(p) -> None:
 
 def _load_data(net, source, progress: bool):
     """(float model or None, X, y) from a TRAIN_DIR, a frames NPZ, or the network's own recipe."""
-    from snnconvert import files
-    from snnconvert.data import load_dataset
-    from snnconvert.errors import FormatError, UsageError
+    from snnconvert.data import load_dataset, load_frames_file
+    from snnconvert.errors import UsageError
     if source is None:
         if "recipe" not in net.meta:
             raise UsageError("the network stores no recipe; give --data TRAIN_DIR or --data FRAMES.npz")
@@ -40,15 +39,8 @@ def _load_data(net, source, progress: bool):
         return model, *ds.test
     if path.suffix != ".npz":
         raise UsageError(f"--data {source}: expected a TRAIN_DIR folder or a .npz frames file")
-    z = files.load_npz(path)
-    for k in ("X", "y"):
-        if k not in z:
-            raise FormatError(f"{path}: no array '{k}' (a frames NPZ holds X (N, C, H, W) and y (N,))")
-    X, y = z["X"], z["y"]
-    if X.ndim != 4 or tuple(X.shape[1:]) != tuple(net.input_shape) or len(y) != len(X):
-        raise FormatError(f"{path}: X has shape {X.shape} and y {y.shape}; the network needs "
-                          f"X (N, {', '.join(map(str, net.input_shape))}) and one label per frame")
-    return None, X.astype(np.float32), y.astype(np.int64)
+    x, y = load_frames_file(path, net.input_shape, net.input_q, net.n_classes)
+    return None, x.astype(np.float32), y
 
 
 def _check_net_fits(net, ds, source: str) -> None:

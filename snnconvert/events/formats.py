@@ -1,6 +1,8 @@
 """Event file readers and writers; the format follows the file suffix.
 
-    .npz  the project's own: arrays t, x, y, p, width, height plus `format`/`version`
+    .npz  the project's own: arrays t, x, y, p, width, height plus `format`/`version`; or a plain
+          NPZ with integer arrays t, x, y, p of equal length (optionally width, height), as written
+          by `np.savez(path, t=t, x=x, y=y, p=p)`
     .csv  text with a header naming the columns t,x,y,p (any order); an optional first line
           `# sensor WxH` stores the sensor size
     .bin  the 40-bit layout published with the N-MNIST dataset, 5 bytes per event, most
@@ -9,7 +11,12 @@
 The .bin timestamp wraps at 2^23 us (about 8.39 s). The reader unwraps it by adding 2^23 each
 time the stored value decreases, so the writer refuses what that cannot recover: a first
 timestamp at or beyond 2^23, or two consecutive events 2^23 us or more apart.
-.bin stores no sensor size: pass `sensor=(width, height)`, else max address + 1 is used.
+.bin stores no sensor size. Sensor size, in order: `sensor=(width, height)` (overrides a stored
+size), the size stored in the file, `default_sensor` (e.g. a recipe's sensor_side), else
+max address + 1 with a warning on stderr naming the guessed size (never silently).
+
+Times are integer microseconds. `time_unit` "s" or "ms" reads float times of CSV and plain NPZ
+files and rounds t * 1e6 (or * 1e3) to the nearest microsecond (np.rint: halves to even).
 
 Every failure on file content is a FormatError naming the file and the byte offset or line.
 """
@@ -21,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
+from snnconvert import console
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events.stream import EventStream
 from snnconvert.files import atomic_write_bytes, load_npz
@@ -28,6 +36,8 @@ from snnconvert.files import atomic_write_bytes, load_npz
 FORMAT = "snnconvert-events"
 VERSION = 1
 SUFFIXES = (".npz", ".csv", ".bin")
+TIME_UNITS = ("us", "ms", "s")
+_US_PER_UNIT = {"us": 1, "ms": 1_000, "s": 1_000_000}
 WRAP_US = 1 << 23  # the 23-bit timestamp field of the 40-bit layout
 
 
@@ -50,18 +60,57 @@ def parse_sensor(text: str, what: str = "--sensor") -> tuple[int, int]:
     return w, h
 
 
-def read_events(path, sensor: tuple[int, int] | None = None) -> EventStream:
-    """Read an event file. `sensor=(width, height)` overrides a stored size or supplies a missing one."""
+def read_events(path, sensor: tuple[int, int] | None = None, default_sensor: tuple[int, int] | None = None,
+                time_unit: str = "us") -> EventStream:
+    """Read an event file. `sensor=(width, height)` overrides a stored size; `default_sensor` is used
+    only when the file stores none; `time_unit` (us, ms, s) is the unit of CSV and plain NPZ times."""
+    from snnconvert.errors import check_choice
     path = Path(path)
     kind = _suffix(path)
+    check_choice(time_unit, "time_unit", "read_events", TIME_UNITS)
     if not path.is_file():
         raise UsageError(f"file not found: {path}")
+    size = _SensorChoice(path, sensor, default_sensor)
     if kind == ".npz":
-        return _read_npz(path, sensor)
+        return _read_npz(path, size, time_unit)
     data = path.read_bytes()
     if kind == ".csv":
-        return _read_csv(path, data, sensor)
-    return _read_bin(path, data, sensor)
+        return _read_csv(path, data, size, time_unit)
+    return _read_bin(path, data, size)
+
+
+class _SensorChoice:
+    """The sensor size of one file: given > stored > default > guessed from the addresses (with a warning)."""
+
+    def __init__(self, path: Path, given, default):
+        self.path, self.given, self.default = path, given, default
+
+    def __call__(self, x, y, stored=None) -> tuple[int, int]:
+        if self.given:
+            return tuple(self.given)
+        if stored:
+            return tuple(stored)
+        if self.default:
+            return tuple(self.default)
+        w, h = _infer_sensor(x, y)
+        console.say(f"warning: {self.path} stores no sensor size; guessed {w}x{h} from the largest address "
+                    f"(set it with --sensor WxH, or data.sensor_side in a recipe)")
+        return w, h
+
+
+def _times_us(path: Path, t: np.ndarray, time_unit: str, where=None) -> np.ndarray:
+    """t in `time_unit` -> int64 microseconds: t * US_PER_UNIT, rounded to the nearest microsecond."""
+    t = np.asarray(t)
+    if time_unit == "us":
+        return t
+    if t.dtype.kind not in "iuf":
+        raise FormatError(f"{path}: times 't' must be numbers; got dtype {t.dtype}")
+    us = t.astype(np.float64) * _US_PER_UNIT[time_unit]
+    if us.size and not np.all(np.isfinite(us)) or us.size and np.abs(us).max() >= 2.0 ** 62:
+        i = int(np.flatnonzero(~np.isfinite(us) | (np.abs(np.nan_to_num(us, nan=np.inf)) >= 2.0 ** 62))[0])
+        loc = where(i) if where else f"index {i}"
+        raise FormatError(f"{path}: {loc}: time {t[i]} is not a finite time in {time_unit}")
+    return np.rint(us).astype(np.int64)
 
 
 def write_events(stream: EventStream, path) -> Path:
@@ -80,27 +129,54 @@ def write_events(stream: EventStream, path) -> Path:
     return atomic_write_bytes(path, encode_bin(stream))
 
 
-# --- own NPZ ---------------------------------------------------------------------------------
-def _read_npz(path: Path, sensor) -> EventStream:
+# --- NPZ: own or plain ------------------------------------------------------------------------
+def _read_npz(path: Path, size: _SensorChoice, time_unit: str) -> EventStream:
     try:
         z = load_npz(path)
     except FormatError:
         raise
     except Exception as exc:  # a broken zip directory, or a bare .npy renamed to .npz
         raise FormatError(f"{path}: not a readable NPZ file ({type(exc).__name__}: {exc})") from None
-    fmt = str(z.get("format", ""))
-    if fmt != FORMAT:
-        raise FormatError(f"{path}: not an event file (format {fmt!r}, expected {FORMAT!r})")
-    version = int(z["version"]) if "version" in z else -1
-    if version != VERSION:
-        raise FormatError(f"{path}: event file version {version} is not supported (expected {VERSION})")
+    own = "format" in z
+    if own:
+        fmt = str(z["format"])
+        if fmt != FORMAT:
+            raise FormatError(f"{path}: not an event file (format {fmt!r}, expected {FORMAT!r}; "
+                              f"a plain NPZ holds only the arrays t, x, y, p)")
+        version = int(z["version"]) if "version" in z and z["version"].dtype.kind in "iu" else -1
+        if version != VERSION:
+            raise FormatError(f"{path}: event file version {version} is not supported (expected {VERSION})")
+    keys = ("t", "x", "y", "p", "width", "height") if own else ("t", "x", "y", "p")
+    for k in keys:
+        if k not in z:
+            raise FormatError(f"{path}: missing array '{k}' (an event NPZ holds t, x, y, p); found {sorted(z)}")
     for k in ("t", "x", "y", "p", "width", "height"):
         if k not in z:
-            raise FormatError(f"{path}: missing array '{k}'")
-        if not np.issubdtype(z[k].dtype, np.integer):
-            raise FormatError(f"{path}: array '{k}' has dtype {z[k].dtype}, expected integers")
-    w, h = sensor if sensor else (int(z["width"]), int(z["height"]))
-    return _build(path, z["t"], z["x"], z["y"], z["p"], w, h)
+            continue
+        a = z[k]
+        float_time = k == "t" and time_unit != "us" and not own and a.dtype.kind == "f"
+        if not (np.issubdtype(a.dtype, np.integer) or float_time):
+            tail = "; for times in seconds or milliseconds pass --time-unit s or ms" if k == "t" and not own else ""
+            raise FormatError(f"{path}: array '{k}' has dtype {a.dtype}, expected integers{tail}")
+        if k in ("width", "height") and a.shape != ():
+            raise FormatError(f"{path}: array '{k}' must be one integer; got shape {a.shape}")
+        if k not in ("width", "height") and a.ndim != 1:
+            raise FormatError(f"{path}: array '{k}' must be 1-D; got shape {a.shape}")
+    n = z["t"].shape[0]
+    for k in "xyp":
+        if z[k].shape[0] != n:
+            raise FormatError(f"{path}: array '{k}' has {z[k].shape[0]} values but 't' has {n}")
+    stored = None
+    if ("width" in z) != ("height" in z):
+        raise FormatError(f"{path}: array '{'height' if 'width' in z else 'width'}' is missing; store both "
+                          f"width and height, or neither (then --sensor WxH gives the size)")
+    if "width" in z:
+        stored = (int(z["width"]), int(z["height"]))
+        if not (1 <= stored[0] <= 65535 and 1 <= stored[1] <= 65535):
+            raise FormatError(f"{path}: arrays 'width' and 'height' must be in [1, 65535]; got {stored}")
+    t = z["t"] if own else _times_us(path, z["t"], time_unit)
+    w, h = size(z["x"], z["y"], stored)
+    return _build(path, t, z["x"], z["y"], z["p"], w, h)
 
 
 def _build(path, t, x, y, p, w, h, where=None) -> EventStream:
@@ -128,7 +204,7 @@ def encode_csv(stream: EventStream) -> bytes:
     return (head + buf.getvalue()).encode()
 
 
-def _read_csv(path: Path, data: bytes, sensor) -> EventStream:
+def _read_csv(path: Path, data: bytes, size: _SensorChoice, time_unit: str) -> EventStream:
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -156,33 +232,59 @@ def _read_csv(path: Path, data: bytes, sensor) -> EventStream:
     first = line_no + 1
     body = lines[first:]
     ncol = len(header)
+    # times in us must be integers; in s or ms the t column may hold decimals (read as float64)
+    float_col = order[0] if time_unit != "us" else None
     if body:
         try:
-            arr = np.loadtxt(io.StringIO("\n".join(body)), delimiter=",", dtype=np.int64, ndmin=2)
+            if float_col is None:
+                arr = np.loadtxt(io.StringIO("\n".join(body)), delimiter=",", dtype=np.int64, ndmin=2)
+            else:
+                arr = np.loadtxt(io.StringIO("\n".join(body)), delimiter=",", dtype=np.float64, ndmin=2)
             if arr.shape[1] != ncol or arr.shape[0] != len(body):
                 raise ValueError("shape")
+            if float_col is not None:
+                ints = np.delete(arr, float_col, axis=1)
+                if not np.all(ints == np.round(ints)):  # x, y, p and other columns stay integers
+                    raise ValueError("not integral")
         except ValueError:
-            bad = _first_bad_csv_line(body, ncol)
-            raise FormatError(f"{path}: line {first + bad + 1}: expected {ncol} integers, got "
-                              f"{body[bad][:60]!r}") from None
+            bad, col = _first_bad_csv_line(body, ncol, float_col)
+            if col == order[0] and float_col is None and _is_float(body[bad].split(",")[col]):
+                raise FormatError(f"{path}: line {first + bad + 1}: time {body[bad].split(',')[col].strip()!r} is "
+                                  f"not an integer; times are integer microseconds (for seconds or milliseconds "
+                                  f"pass --time-unit s or ms)") from None
+            want = f"{ncol} integers" if float_col is None else f"{ncol} numbers (t in {time_unit}, then integers)"
+            raise FormatError(f"{path}: line {first + bad + 1}: expected {want}, got {body[bad][:60]!r}") from None
     else:
         arr = np.zeros((0, ncol), np.int64)
     t, x, y, p = (arr[:, j] for j in order)
-    w, h = sensor or stored or _infer_sensor(x, y)
-    return _build(path, t, x, y, p, w, h, where=lambda i: f"line {first + i + 1}")
+    where = lambda i: f"line {first + i + 1}"  # noqa: E731
+    if float_col is not None:
+        t = _times_us(path, t, time_unit, where)
+        x, y, p = (c.astype(np.int64) for c in (x, y, p))  # checked integral above
+    w, h = size(x, y, stored)
+    return _build(path, t, x, y, p, w, h, where=where)
 
 
-def _first_bad_csv_line(body: list[str], ncol: int) -> int:
+def _is_float(text: str) -> bool:
+    try:
+        float(text)
+        return True
+    except ValueError:
+        return False
+
+
+def _first_bad_csv_line(body: list[str], ncol: int, float_col: int | None = None) -> tuple[int, int]:
+    """(line index, column) of the first field that is not an integer (a number in column float_col)."""
     for i, line in enumerate(body):
         parts = line.split(",")
         if len(parts) != ncol:
-            return i
-        for v in parts:
+            return i, -1
+        for j, v in enumerate(parts):
             try:
-                int(v)
+                float(v) if j == float_col else int(v)
             except ValueError:
-                return i
-    return len(body) - 1  # pragma: no cover - loadtxt failed on something line-by-line parsing accepts
+                return i, j
+    return len(body) - 1, -1  # pragma: no cover - loadtxt failed on something line-by-line parsing accepts
 
 
 def _infer_sensor(x, y) -> tuple[int, int]:
@@ -232,11 +334,11 @@ def decode_bin(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndar
     return t, x, y, p
 
 
-def _read_bin(path: Path, data: bytes, sensor) -> EventStream:
+def _read_bin(path: Path, data: bytes, size: _SensorChoice) -> EventStream:
     whole = len(data) - len(data) % 5
     if whole != len(data):
         raise FormatError(f"{path}: truncated: {len(data)} bytes is not a multiple of 5; the last event "
                           f"starts at byte offset {whole} and is incomplete")
     t, x, y, p = decode_bin(data)
-    w, h = sensor or _infer_sensor(x, y)
+    w, h = size(x, y)
     return _build(path, t, x, y, p, w, h, where=lambda i: f"byte offset {5 * i}")

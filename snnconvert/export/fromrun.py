@@ -1,7 +1,8 @@
 """Export a converted network folder (network.json/npz + recipe.toml) with its test inputs.
 
 The golden inputs are the test split of the network's own data set, quantized to input payloads
-by arith.quantize_input, or an NPZ given by the user (`x` int (N, C, H, W), optional `y`).
+by arith.quantize_input, or a frames file given by the user (data.load_frames_file: `x` (N, C, H, W)
+input payloads, optional `y` labels).
 """
 
 from __future__ import annotations
@@ -11,24 +12,14 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert import arith
-from snnconvert.errors import FormatError, UsageError
-from snnconvert.files import load_npz
+from snnconvert.errors import UsageError
 from snnconvert.intnet import IntNetwork
 
 
-def load_inputs(path) -> tuple[np.ndarray, np.ndarray | None]:
-    """(x int64 (N, C, H, W), y int64 (N,) or None) from an NPZ with array `x` and optional `y`."""
-    path = Path(path)
-    z = load_npz(path)
-    if "x" not in z:
-        raise FormatError(f"{path}: array 'x' (int input payloads, shape (N, C, H, W)) is missing; found {sorted(z)}")
-    x = z["x"]
-    if x.dtype.kind not in "iu" or x.ndim != 4:
-        raise FormatError(f"{path}: array 'x' must be int (N, C, H, W); got {x.dtype} of shape {x.shape}")
-    y = z.get("y")
-    if y is not None and (y.dtype.kind not in "iu" or y.shape != (x.shape[0],)):
-        raise FormatError(f"{path}: array 'y' must be int ({x.shape[0]},); got {y.dtype} of shape {y.shape}")
-    return x.astype(np.int64), None if y is None else y.astype(np.int64)
+def load_inputs(path, net: IntNetwork) -> tuple[np.ndarray, np.ndarray | None]:
+    """(x int64 (N, C, H, W), y int64 (N,) or None) from a frames file with array `x` and optional `y`."""
+    from snnconvert.data import load_frames_file
+    return load_frames_file(path, net.input_shape, net.input_q, net.n_classes, need_labels=False)
 
 
 def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True) -> tuple[np.ndarray, np.ndarray]:
@@ -65,7 +56,7 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
     intel_hex = section.get("intel_hex", SCHEMA["intel_hex"].default) if intel_hex is None else intel_hex
     if inputs is not None:
-        x, y = load_inputs(inputs)
+        x, y = load_inputs(inputs, net)
     elif recipe is None:
         raise UsageError(f"{net_dir / 'recipe.toml'} is missing, so the test data is unknown; give --inputs FILE.npz")
     else:

@@ -64,6 +64,10 @@ def _check_inputs(net, x_int, labels, vectors):
         if labels.shape[0] != x.shape[0] or labels.dtype.kind not in "iu":
             raise UsageError(f"The 'labels' parameter of export must be {x.shape[0]} integer labels. "
                              f"Got {labels.dtype} of shape {labels.shape} instead.")
+        bad = np.flatnonzero((labels < 0) | (labels >= net.n_classes))
+        if bad.size:
+            raise UsageError(f"The 'labels' parameter of export must hold class labels in [0, {net.n_classes - 1}]. "
+                             f"Got {int(labels[bad[0]])} at index {int(bad[0])} instead.")
     return x, labels, vectors
 
 
