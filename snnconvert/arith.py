@@ -213,17 +213,17 @@ def check_requantize_range(acc_bits: int, m0, n, q: int | None = None, ttfs: boo
 
 
 def _value_bits(v) -> int:
-    """Signed width of the values in an int64 array: bits(max |V|) + 1 (0 for an empty array)."""
+    """Signed width of the values of an int64 array: the least b with -2^(b-1) <= V < 2^(b-1)."""
     if _is_torch(v):
         if v.dtype != torch.int64:
             raise TypeError(f"requantize needs int64 potentials; got {v.dtype}")
-        top = int(v.abs().max()) if v.numel() else 0
+        lo, hi = (int(v.min()), int(v.max())) if v.numel() else (0, 0)
     else:
         v = np.asarray(v)
         if v.dtype != np.int64:
             raise TypeError(f"requantize needs int64 potentials; got {v.dtype}")
-        top = int(np.abs(v).max(initial=0))
-    return top.bit_length() + 1
+        lo, hi = (int(v.min()), int(v.max())) if v.size else (0, 0)
+    return max(hi, -1 - lo).bit_length() + 1
 
 
 def requantize(v, m0, n, q: int, channel_axis: int = 1):
