@@ -75,6 +75,9 @@ def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
     (["--weight-bits", "1"], "error: The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 1 instead."),
     (["--coding", "rate"],
      "error: The 'coding' parameter of convert must be one of 'payload', 'ttfs', 'binary'. Got 'rate' instead."),
+    (["--coding", "binary", "--payload-bits", "4"],
+     "error: The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike carries no "
+     "payload). Got 4 instead."),
     (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max' or 'percentile:Q' "
                                   "with Q in (0, 100]. Got 'pct:99' instead."),
 ])
@@ -97,3 +100,11 @@ def test_missing_folders_and_bad_versions(run_dir, tmp_path, capsys):
     assert "format version 99 is not supported" in capsys.readouterr().err
     assert main(["simulate", str(run_dir / "net"), "--limit", "0"]) == 2
     assert capsys.readouterr().err == "error: The 'limit' parameter of simulate must be an int >= 1. Got 0 instead.\n"
+
+
+def test_binary_coding_alone_uses_one_bit_and_stores_it(run_dir, tmp_path, capsys):
+    # the recipe's payload width (4) belongs to its graded coding; --coding binary alone means p = 1
+    assert main(["convert", str(run_dir / "train"), "--coding", "binary", "--out", str(tmp_path / "b"), "--quiet"]) == 0
+    assert "binary (k=" in capsys.readouterr().out
+    meta = json.loads((tmp_path / "b" / "network.json").read_text())
+    assert meta["payload_bits"] == 1 and meta["meta"]["convert"]["payload_bits"] == 1

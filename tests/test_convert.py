@@ -176,7 +176,10 @@ def test_clipquant_ranges_are_used_and_count_frames_clip_to_the_payload():
     assert net1.input_q == 1                                 # count frames clipped to what one bit carries: 2^1 - 1
     assert convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3,
                    input_clip=False).input_q == 3            # or kept at the frame's own count width
-    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    with pytest.raises(UsageError, match="^The 'payload_bits' parameter of convert must be 1 with coding 'binary' "
+                       r"\(a binary spike carries no payload\). Got 3 instead.$"):
+        convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="binary", input_q=3)
     assert net2.payload_bits == 1 and net2.layers[0].q_out == 1   # binary spikes: 1 bit, largest value 2^1 - 1
     acc = (simulate(net, arith.quantize_input(xte, 3)).decisions == yte).mean()
     assert acc >= accuracy(model, xte, yte) - 0.05

@@ -24,7 +24,8 @@ def test_counts_match_the_reference_simulator(kind, coding, pc, capsys):
     model = trained(kind)
     (xtr, _), (xte, yte) = split()
     xte, yte = xte[:150], yte[:150]
-    net = convert(model, xtr[:256], weight_bits=4, payload_bits=4, coding=coding, per_channel=pc)
+    net = convert(model, xtr[:256], weight_bits=4, payload_bits=1 if coding == "binary" else 4, coding=coding,
+                  per_channel=pc)
     m = measure(model, net, xte, yte)
     traces = R.run_batch(net, arith.quantize_input(xte, 1), progress=False)
     assert m["sops_per_sample"] == pytest.approx(np.mean([t.sops for t in traces]), rel=1e-12)
