@@ -136,10 +136,12 @@ def settings_from(settings: dict) -> dict:
     return s
 
 
-def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: bool = False):
+def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: bool = False,
+                        float_accuracy: float | None = None):
     """Convert with the [convert] `settings`, calibrate on the training split, measure on the test split.
 
     Deterministic: the calibration subset is evenly spaced, and nothing draws random numbers.
+    `float_accuracy`: the test accuracy of the float model an aware `model` was fine-tuned from.
     Returns (net, metrics dict).
     """
     from snnconvert.sim.metrics import measure
@@ -154,7 +156,7 @@ def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: boo
     net.meta.update(data_fingerprint=getattr(dataset, "fingerprint", None), classes=list(getattr(dataset, "classes", [])),
                     convert=s)
     Xte, yte = dataset.test
-    metrics = measure(model, net, Xte, yte, tolerance_pp=s["tolerance_pp"], quiet=quiet)
+    metrics = measure(model, net, Xte, yte, tolerance_pp=s["tolerance_pp"], quiet=quiet, float_accuracy=float_accuracy)
     return net, metrics
 
 
@@ -164,7 +166,9 @@ def convert_checkpoint(train_dir, settings: dict, quiet: bool = False):
     from snnconvert.train import load_checkpoint
     model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
     dataset = load_dataset(ckpt["recipe"], progress=not quiet)
-    net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet)
+    # an aware checkpoint keeps the test accuracy of the float model it was fine-tuned from
+    net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet,
+                                       float_accuracy=(ckpt.get("metrics") or {}).get("float_frame_accuracy"))
     net.meta.update(recipe=ckpt["recipe"], train_fingerprint=ckpt.get("data_fingerprint"))
     return net, metrics
 
