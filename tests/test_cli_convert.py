@@ -108,3 +108,19 @@ def test_binary_coding_alone_uses_one_bit_and_stores_it(run_dir, tmp_path, capsy
     assert "binary (k=" in capsys.readouterr().out
     meta = json.loads((tmp_path / "b" / "network.json").read_text())
     assert meta["payload_bits"] == 1 and meta["meta"]["convert"]["payload_bits"] == 1
+
+
+def test_aware_checkpoint_is_named_and_compared_with_its_float_model(tmp_path, capsys):
+    from snnconvert import data
+    r = recipe.from_dict({**TINY, "train": {"epochs": 2, "threads": 1, "aware": True, "aware_epochs": 1},
+                          "convert": {"weight_bits": 3, "payload_bits": 3}})
+    _, tm = train.train(r, data.load_dataset(r, progress=False), tmp_path / "train", quiet=True)
+    assert main(["convert", str(tmp_path / "train"), "--out", str(tmp_path / "net"), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    m = json.loads((tmp_path / "net" / "metrics.json").read_text())
+    assert m["frame_model"] == "aware" and m["aware_bits"] == {"weight_bits": 3, "payload_bits": 3}
+    assert m["frame_accuracy"] == tm["frame_accuracy"]                 # the aware model that was converted
+    assert m["float_accuracy"] == tm["float_frame_accuracy"]           # the float model before fine-tuning
+    assert m["loss_vs_float_pp"] == 100 * (m["float_accuracy"] - m["spike_accuracy"])
+    assert f"frame model (aware, fine-tuned for k=3 p=3)  {m['frame_accuracy']:.4f}" in out
+    assert "float model before fine-tuning" in out and "within tolerance" in out
