@@ -42,6 +42,12 @@ TTFS_FORMULA = "fire at the first step t in 0..Q-1 with V * M0 + 2^(n-1) >= (Q -
 
 # Widest multiplier mantissa we allow; with it V * M0 must stay inside int64.
 MAX_MULTIPLIER_BITS = 31
+# A channel's weight range is floored at this fraction of its layer's largest (weight_scale).
+CHANNEL_RANGE_FLOOR = 2.0 ** -8
+# The weight range of a layer whose weights are all zero (weight_scale).
+ZERO_RANGE = 1.0
+# Bits of the integers requantize works in: V * M0 + 2^(n-1) must stay inside int64.
+WORD_BITS = 64
 
 
 def _is_torch(x) -> bool:
@@ -76,11 +82,21 @@ def round_half_even(x: np.ndarray) -> np.ndarray:
 
 
 def weight_scale(w: np.ndarray, bits: int, per_channel: bool, rule: str = "max",
-                 percentile: float = 99.99, eps: float = 1e-12) -> np.ndarray:
+                 percentile: float = 99.99, floor: float | None = None) -> np.ndarray:
     """s_w = r / (2^(k-1) - 1), with r = max|w| (rule "max") or the given percentile of |w|.
 
+    Per channel, each channel's range is floored at a fraction of the layer's largest:
+        r_o = max(r_o, f * max_o r_o),   f = CHANNEL_RANGE_FLOOR = 2^-8 unless `floor` is given,
+    so per-channel scales span at most 8 bits below the layer's widest channel. Without it a
+    near-dead channel (largest |w| ~ 1e-12 next to 0.5) gets a scale ~1e-12 times the others:
+    its multiplier M = s_w * s_in / s_out needs a shift n far beyond 63 bits and its bias
+    B = b / (s_w * s_in) overflows int64. With the floor, such a channel's weights round to the
+    few levels (usually 0) that the floored grid gives them, like a per-tensor scale would.
+    A layer whose largest range is 0 (all-zero weights, or a zero percentile everywhere) gets
+    r = ZERO_RANGE = 1.0 for every channel: any scale holds W = 0 exactly, and 1 (the unit of
+    the float weights) keeps B = b / (s_w * s_in) and M at the size of the float bias and scales.
     Returns one scale per output channel (axis 0); per-layer scales are repeated so callers
-    always see shape (O,). A zero range (all-zero weights) falls back to eps so W = 0, not NaN.
+    always see shape (O,).
     """
     w = np.asarray(w, dtype=np.float64)
     a = np.abs(w.reshape(w.shape[0], -1))  # (O, fan_in)
@@ -92,10 +108,26 @@ def weight_scale(w: np.ndarray, bits: int, per_channel: bool, rule: str = "max",
         r = np.percentile(a, percentile, axis=1)
     else:
         raise ValueError(f"unknown weight scale rule {rule!r}; use 'max' or 'percentile'")
-    s = np.maximum(r, eps) / weight_max(bits)
+    r = channel_ranges(r, CHANNEL_RANGE_FLOOR if floor is None else floor)
+    s = r / weight_max(bits)
     if not per_channel:
         s = np.repeat(s, w.shape[0])
     return s.astype(np.float64)
+
+
+def channel_ranges(r, floor: float | None = None):
+    """r_o -> max(r_o, f * max r) with f = CHANNEL_RANGE_FLOOR; all r = 0 -> ZERO_RANGE (see weight_scale).
+
+    numpy (float64) or torch, like `r`; the rule of `weight_scale`, shared with the training twin."""
+    f = CHANNEL_RANGE_FLOOR if floor is None else float(floor)
+    if _is_torch(r):
+        top = r.max()
+        return torch.where(top > 0, torch.maximum(r, f * top), torch.full_like(r, ZERO_RANGE))
+    r = np.asarray(r, dtype=np.float64)
+    top = float(r.max(initial=0.0))
+    if not top > 0:
+        return np.full(r.shape, ZERO_RANGE)
+    return np.maximum(r, f * top)
 
 
 def quantize_weights(w: np.ndarray, scale: np.ndarray, bits: int) -> np.ndarray:
@@ -107,18 +139,30 @@ def quantize_weights(w: np.ndarray, scale: np.ndarray, bits: int) -> np.ndarray:
 
 
 def quantize_bias(b: np.ndarray, w_scale: np.ndarray, in_scale: float) -> np.ndarray:
-    """B = round_half_even(b / (s_w[o] * s_in)): the bias at the accumulator's scale."""
-    return round_half_even(np.asarray(b, dtype=np.float64) / (np.asarray(w_scale) * float(in_scale)))
+    """B = round_half_even(b / (s_w[o] * s_in)): the bias at the accumulator's scale.
+
+    Refuses (ValueError) a bias that does not fit in |B| < 2^62, where int64 would wrap silently.
+    """
+    x = np.asarray(b, dtype=np.float64) / (np.asarray(w_scale, dtype=np.float64) * float(in_scale))
+    if not np.all(np.abs(x) < 2.0 ** (WORD_BITS - 2)):
+        raise ValueError(f"bias at the accumulator's scale reaches {np.max(np.abs(x)):.3g}, beyond 2^62")
+    return round_half_even(x)
 
 
-def fixed_point_multiplier(m: np.ndarray, bits: int = 16) -> tuple[np.ndarray, np.ndarray]:
-    """Split each real multiplier M > 0 into integers (M0, n) with M ~ M0 * 2^-n.
+def fixed_point_multiplier(m: np.ndarray, bits: int = 16, acc_bits: int | None = None
+                           ) -> tuple[np.ndarray, np.ndarray]:
+    """Split each real multiplier M >= 0 into integers (M0, n) with M ~ M0 * 2^-n, n >= 1.
 
-    M0 has exactly `bits` significant bits (2^(bits-1) <= M0 < 2^bits) and n >= 1, so the
-    rounding constant 2^(n-1) is an integer. Edge cases: M = 0 gives (0, 1), which makes every
-    payload 0; a multiplier too large for n >= 1 keeps n = 1 and a wider M0 (never seen in
-    practice: it would mean an output scale far below the input scale).
-    Relative error of the split: at most 2^-bits.
+    M0 has exactly `bits` significant bits (2^(bits-1) <= M0 < 2^bits), so the relative error
+    of the split is at most 2^-bits, and n >= 1 so the rounding constant 2^(n-1) is an integer.
+    Edge cases:
+      - M = 0 gives (0, 1), which makes every payload 0.
+      - Carry: when M * 2^n rounds up to 2^bits, the split is (2^(bits-1), n - 1).
+      - M >= 2^(bits-1) (or rounding up to it) would need n < 1 or a wider M0: refused
+        (ValueError); it means an output scale `bits` bits below the input's.
+      - With `acc_bits`, a multiplier that cannot move any potential |V| < 2^(acc_bits-1) off
+        payload 0, i.e. M0 * 2^(acc_bits-1) <= 2^(n-1), is stored as (0, 1): the same payloads
+        (all 0) and a shift that stays small.
     """
     if not 2 <= bits <= MAX_MULTIPLIER_BITS:
         raise ValueError(f"multiplier bits must be in [2, {MAX_MULTIPLIER_BITS}], got {bits}")
@@ -130,26 +174,73 @@ def fixed_point_multiplier(m: np.ndarray, bits: int = 16) -> tuple[np.ndarray, n
     for i, mi in enumerate(m):
         if mi == 0:
             continue
-        e = math.floor(math.log2(mi))
-        ni = bits - 1 - e
-        q = int(round(mi * 2.0 ** ni))
-        if q >= 1 << bits:  # rounding pushed it to the next power of two
-            q //= 2
-            ni -= 1
+        mant, e2 = math.frexp(mi)                  # mi = mant * 2^e2, 0.5 <= mant < 1 (exact)
+        ni = bits - e2                             # M * 2^ni = mant * 2^bits in [2^(bits-1), 2^bits)
+        q = int(round(math.ldexp(mant, bits)))     # exact: ldexp only moves the exponent
+        if q == 1 << bits:                         # rounding carried into the next power of two
+            q, ni = q >> 1, ni - 1
         if ni < 1:
-            q = int(round(mi * 2.0))
-            ni = 1
+            raise ValueError(f"multiplier {mi:.6g} does not fit a {bits}-bit M0 with a shift n >= 1 "
+                             f"(needs M < 2^{bits - 1})")
+        if acc_bits is not None and q << (int(acc_bits) - 1) <= 1 << (ni - 1):
+            continue                               # silent: no potential reaches payload 1
         m0[i], n[i] = q, ni
     return m0, n
+
+
+def check_requantize_range(acc_bits: int, m0, n, q: int | None = None, ttfs: bool = False) -> None:
+    """Refuse (ValueError) integers that would leave int64 in requantize or ttfs_crosses.
+
+    For |V| < 2^(acc_bits-1) and M0 of b bits (M0 < 2^b):
+        |V * M0| < 2^(acc_bits - 1 + b) <= 2^62   needs  acc_bits + b <= 63
+        2^(n-1) <= 2^61                           needs  1 <= n <= 62
+    so V * M0 + 2^(n-1) < 2^63. The ttfs threshold (Q - t) * 2^n <= Q * 2^n < 2^63 also needs
+    bits(Q) + n <= 63. numpy wraps int64 silently, hence the check.
+    """
+    m0 = np.asarray(m0, dtype=np.int64)
+    n = np.asarray(n, dtype=np.int64)
+    if m0.size and int(m0.min()) < 0:
+        raise ValueError(f"multiplier mantissas M0 must be >= 0; got {int(m0.min())}")
+    mb = int(m0.max(initial=0)).bit_length()
+    if int(acc_bits) + mb > WORD_BITS - 1:
+        raise ValueError(f"V * M0 needs {int(acc_bits)} + {mb} = {int(acc_bits) + mb} bits, more than "
+                         f"{WORD_BITS - 1} (accumulator bits + multiplier bits must be <= 63)")
+    if n.size and (int(n.min()) < 1 or int(n.max()) > WORD_BITS - 2):
+        raise ValueError(f"shifts n must lie in 1..{WORD_BITS - 2}; got {int(n.min())}..{int(n.max())}")
+    if ttfs and q is not None and n.size and int(q).bit_length() + int(n.max()) > WORD_BITS - 1:
+        raise ValueError(f"the ttfs threshold Q * 2^n needs {int(q).bit_length()} + {int(n.max())} bits, "
+                         f"more than {WORD_BITS - 1}")
+
+
+def _value_bits(v) -> int:
+    """Signed width of the values of an int64 array: the least b with -2^(b-1) <= V < 2^(b-1)."""
+    if _is_torch(v):
+        if v.dtype != torch.int64:
+            raise TypeError(f"requantize needs int64 potentials; got {v.dtype}")
+        lo, hi = (int(v.min()), int(v.max())) if v.numel() else (0, 0)
+    else:
+        v = np.asarray(v)
+        if v.dtype != np.int64:
+            raise TypeError(f"requantize needs int64 potentials; got {v.dtype}")
+        lo, hi = (int(v.min()), int(v.max())) if v.size else (0, 0)
+    return max(hi, -1 - lo).bit_length() + 1
 
 
 def requantize(v, m0, n, q: int, channel_axis: int = 1):
     """a = clamp((V * M0 + 2^(n-1)) >> n, 0, Q).
 
     `v` is the int64 potential, shape (N, C, ...) or (N, C); `m0` and `n` are per channel,
-    shape (C,), broadcast along `channel_axis`. Exact halves round up. Negative potentials
-    floor to negative values and clamp to 0, i.e. no spike.
+    shape (C,), broadcast along `channel_axis`. `>>` is the arithmetic shift (floor), so the
+    result is floor(V * M + 1/2) with M = M0 * 2^-n: exact halves round towards +infinity
+    (2.5 -> 3, -2.5 -> -2), unlike round-half-away-from-zero helpers (-2.5 -> -3). The two rules
+    differ only for negative halves, and the clamp at 0 maps both of their results there to 0
+    (no spike): for V * M >= 0 they agree, and every V * M < 0 ends at 0 under either rule. So
+    the cheaper rule (one add, one shift) never changes a payload.
+
+    Valid input (checked, else ValueError/TypeError): int64 `v`, M0 >= 0, 1 <= n <= 62, and
+    bits(max |V|) + 1 + bits(max M0) <= 63, so V * M0 + 2^(n-1) stays inside int64.
     """
+    check_requantize_range(_value_bits(v), m0, n)
     m0b, nb = _per_channel(v, m0, n, channel_axis)
     half = _shl(1, nb - 1, v)
     out = (v * m0b + half) >> nb
@@ -162,7 +253,9 @@ def ttfs_crosses(v, m0, n, q: int, t: int, channel_axis: int = 1):
         V * M0 + 2^(n-1) >= (Q - t) * 2^n
 
     The first step where this holds is t = Q - a with a = requantize(V); it never holds for a = 0.
+    Valid input as for `requantize`, and bits(Q) + n <= 63 for the threshold (checked).
     """
+    check_requantize_range(_value_bits(v), m0, n, q, ttfs=True)
     m0b, nb = _per_channel(v, m0, n, channel_axis)
     half = _shl(1, nb - 1, v)
     return v * m0b + half >= _shl(int(q) - int(t), nb, v)

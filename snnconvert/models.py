@@ -337,10 +337,11 @@ class ClipQuant(nn.Module):
 
 
 def weight_scale_of(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
-    """s_w per output channel, shape (O,): max|w| / (2^(k-1)-1) over the layer or each channel."""
+    """s_w per output channel, shape (O,): max|w| / (2^(k-1)-1) over the layer or each channel,
+    ranges floored as in `arith.weight_scale` (arith.channel_ranges)."""
     flat = w.detach().abs().reshape(w.shape[0], -1)  # (O, fan_in)
     r = flat.amax(dim=1) if per_channel else flat.amax().expand(w.shape[0])
-    return r.clamp_min(1e-12) / arith.weight_max(bits)
+    return arith.channel_ranges(r) / arith.weight_max(bits)
 
 
 def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
@@ -348,7 +349,7 @@ def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Te
     (max over the layer or over each output channel; the rule of `arith.weight_scale`;
     Jacob et al. 2018). Rounds half to even and multiplies by 1/s in float32, like
     torch.fake_quantize_per_tensor_affine. Gradients pass straight through; s is not learned.
-    An all-zero weight tensor gives s = 1e-12 / qmax and w_q = 0.
+    An all-zero weight tensor gives s = 1 / qmax (arith.ZERO_RANGE) and w_q = 0.
     """
     qm = arith.weight_max(bits)
     s = weight_scale_of(w, bits, per_channel).reshape(-1, *[1] * (w.dim() - 1))  # (O, 1, ...)

@@ -247,7 +247,8 @@ def _summary(run_: Run) -> dict:
     paths = {"report": "report.html", "export": "export", "network": "net", "checkpoint": "train/model.pt"}
     if rec is not None:
         paths["sweep"] = "sweep/sweep.csv"
-    keys = ["frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
+    keys = ["frame_accuracy", "frame_model", "aware_bits", "float_accuracy", "loss_vs_float_pp",
+            "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "within_tolerance", "agreement",
             "weight_bits", "payload_bits", "coding", "spikes_per_sample", "sops_per_sample",
             "macs_per_sample", "max_spikes_per_neuron", "weight_memory_bits"]
     s = {k: m.get(k) for k in keys}
@@ -275,8 +276,17 @@ def _print_summary(s: dict) -> None:
         if isinstance(v, dict):
             return v.get("label") or ", ".join(f"{k} {v[k]}" for k in list(v)[:4])
         return str(v)
-    rows = [(k, s[k]) for k in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
-                                 "weight_bits", "payload_bits", "coding", "spikes_per_sample",
+    from snnconvert.sim.metrics import tolerance_verdict
+    rows = [(k, s[k]) for k in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp")]
+    if s.get("conversion_loss_pp") is not None:
+        rows.append(("within tolerance", tolerance_verdict(s["conversion_loss_pp"], s["tolerance_pp"])))
+    if s.get("frame_model") == "aware":
+        b = s.get("aware_bits") or {}
+        rows[0] = (f"frame_accuracy (aware, fine-tuned for k={b.get('weight_bits')} p={b.get('payload_bits')})",
+                   s["frame_accuracy"])
+        rows += [("float model before fine-tuning", s.get("float_accuracy")),
+                 ("loss vs float model (pp)", s.get("loss_vs_float_pp"))]
+    rows += [(k, s[k]) for k in ("agreement", "weight_bits", "payload_bits", "coding", "spikes_per_sample",
                                  "sops_per_sample", "macs_per_sample", "verify_passed", "recommended")]
     w = max(len(k) for k, _ in rows)
     console.echo(f"summary of run '{s['name']}'")

@@ -75,6 +75,9 @@ def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
     (["--weight-bits", "1"], "error: The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 1 instead."),
     (["--coding", "rate"],
      "error: The 'coding' parameter of convert must be one of 'payload', 'ttfs', 'binary'. Got 'rate' instead."),
+    (["--coding", "binary", "--payload-bits", "4"],
+     "error: The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike carries no "
+     "payload). Got 4 instead."),
     (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max' or 'percentile:Q' "
                                   "with Q in (0, 100]. Got 'pct:99' instead."),
 ])
@@ -97,3 +100,27 @@ def test_missing_folders_and_bad_versions(run_dir, tmp_path, capsys):
     assert "format version 99 is not supported" in capsys.readouterr().err
     assert main(["simulate", str(run_dir / "net"), "--limit", "0"]) == 2
     assert capsys.readouterr().err == "error: The 'limit' parameter of simulate must be an int >= 1. Got 0 instead.\n"
+
+
+def test_binary_coding_alone_uses_one_bit_and_stores_it(run_dir, tmp_path, capsys):
+    # the recipe's payload width (4) belongs to its graded coding; --coding binary alone means p = 1
+    assert main(["convert", str(run_dir / "train"), "--coding", "binary", "--out", str(tmp_path / "b"), "--quiet"]) == 0
+    assert "binary (k=" in capsys.readouterr().out
+    meta = json.loads((tmp_path / "b" / "network.json").read_text())
+    assert meta["payload_bits"] == 1 and meta["meta"]["convert"]["payload_bits"] == 1
+
+
+def test_aware_checkpoint_is_named_and_compared_with_its_float_model(tmp_path, capsys):
+    from snnconvert import data
+    r = recipe.from_dict({**TINY, "train": {"epochs": 2, "threads": 1, "aware": True, "aware_epochs": 1},
+                          "convert": {"weight_bits": 3, "payload_bits": 3}})
+    _, tm = train.train(r, data.load_dataset(r, progress=False), tmp_path / "train", quiet=True)
+    assert main(["convert", str(tmp_path / "train"), "--out", str(tmp_path / "net"), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    m = json.loads((tmp_path / "net" / "metrics.json").read_text())
+    assert m["frame_model"] == "aware" and m["aware_bits"] == {"weight_bits": 3, "payload_bits": 3}
+    assert m["frame_accuracy"] == tm["frame_accuracy"]                 # the aware model that was converted
+    assert m["float_accuracy"] == tm["float_frame_accuracy"]           # the float model before fine-tuning
+    assert m["loss_vs_float_pp"] == 100 * (m["float_accuracy"] - m["spike_accuracy"])
+    assert f"frame model (aware, fine-tuned for k=3 p=3)  {m['frame_accuracy']:.4f}" in out
+    assert "float model before fine-tuning" in out and "within tolerance" in out

@@ -176,7 +176,10 @@ def test_clipquant_ranges_are_used_and_count_frames_clip_to_the_payload():
     assert net1.input_q == 1                                 # count frames clipped to what one bit carries: 2^1 - 1
     assert convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3,
                    input_clip=False).input_q == 3            # or kept at the frame's own count width
-    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    with pytest.raises(UsageError, match="^The 'payload_bits' parameter of convert must be 1 with coding 'binary' "
+                       r"\(a binary spike carries no payload\). Got 3 instead.$"):
+        convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="binary", input_q=3)
     assert net2.payload_bits == 1 and net2.layers[0].q_out == 1   # binary spikes: 1 bit, largest value 2^1 - 1
     acc = (simulate(net, arith.quantize_input(xte, 3)).decisions == yte).mean()
     assert acc >= accuracy(model, xte, yte) - 0.05
@@ -229,3 +232,58 @@ def test_aware_model_and_its_integer_network_agree_neuron_for_neuron(kind, wb, p
     out = net.layers[-1]
     s_acc = np.asarray(out.info["s_w"]) * out.info["s_in"]                 # (classes,)
     assert np.allclose(res.potentials * s_acc, logits.numpy(), rtol=1e-5, atol=1e-4 * s_acc.max())
+
+
+def _with_dead_channels(kind: str, whole_layer: bool = False) -> nn.Sequential:
+    """A trained digits model with near-dead and all-zero channels, as long training leaves them
+    (largest |w| ~ 1e-12 in a conv channel and ~ 1e-23 in a dense channel were seen on the default model)."""
+    import copy
+    model = copy.deepcopy(trained(kind)).eval()
+    with torch.no_grad():
+        lin = [m for m in model if isinstance(m, (nn.Conv2d, nn.Linear))]
+        if whole_layer:
+            lin[0].weight.zero_()                   # an all-zero layer: only its biases drive the next one
+            lin[0].bias.copy_(torch.linspace(-0.2, 0.5, lin[0].bias.numel()))
+            return model
+        lin[0].weight[0] *= 1e-12                   # near-dead conv channel
+        lin[0].weight[1] = 0.0                      # all-zero conv channel with a positive bias: a constant
+        lin[0].bias[1] = 0.3
+        lin[-2].weight[3] *= 1e-23                  # near-dead dense channel
+        lin[-2].weight[4] = 0.0
+    return model
+
+
+@pytest.mark.parametrize("kind,whole", [("conv_avg", False), ("mlp", False), ("mlp", True), ("conv_max", True)])
+@pytest.mark.parametrize("pc", [False, True])
+@pytest.mark.parametrize("coding", ["payload", "ttfs"])
+def test_near_dead_and_all_zero_channels_convert_and_simulate_exactly(kind, whole, pc, coding):
+    from snnconvert.sim import reference as R
+    model = _with_dead_channels(kind, whole)
+    (xtr, _), (xte, yte) = split()
+    net = convert(model, xtr[:256], weight_bits=4, payload_bits=4, coding=coding, per_channel=pc)
+    x = arith.quantize_input(xte[:12], 1)
+    vec = simulate(net, x)
+    for s, tr in enumerate(R.run_batch(net, x, progress=False)):      # event-by-event, exact integers
+        assert np.array_equal(tr.potentials, vec.potentials[s]) and tr.decision == vec.decisions[s]
+    for L in net.layers:
+        if L.weight is None:
+            continue
+        assert np.all((L.shift >= 1) & (L.shift <= 62)) and L.acc_bits + int(L.m0.max()).bit_length() <= 63
+        s_w = np.array(L.info["s_w"])
+        assert s_w.min() >= s_w.max() * 2.0**-8 * (1 - 1e-12)        # the stated floor of channel ranges
+    if whole:
+        first = next(L for L in net.layers if L.weight is not None)
+        assert not first.weight.any()                                 # W = 0 on a unit-range grid
+        b = next(op for op in fold(model) if op.weight is not None).bias   # after batch-norm folding
+        # s_w = 1 / (2^3 - 1), s_in = 1: B = round(b * 7)
+        assert np.array_equal(first.bias, np.rint(b * 7).astype(np.int64))
+    else:
+        lin = [L for L in net.layers if L.weight is not None]
+        assert not lin[0].weight[0].any() and not lin[0].weight[1].any()      # near-dead rounds to 0
+        assert not lin[-2].weight[3].any() and not lin[-2].weight[4].any()
+        # a channel with no weights and a positive bias fires a constant: round(b / s_out) (clamped to Q)
+        s_out = lin[0].info["s_out"]
+        want = min(int(np.floor(0.3 / s_out + 0.5)), 15)
+        assert np.all(vec.payloads[net.layers.index(lin[0])][:, 1] == want)
+        # the dead channels cost nothing: the spike network stays near its float model
+        assert (vec.decisions == yte[:12]).mean() >= accuracy(model, xte[:12], yte[:12]) - 0.1

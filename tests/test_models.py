@@ -162,7 +162,9 @@ def test_weight_fake_quant_equals_torch_per_channel(bits):
     qm = arith.weight_max(bits)
     w = torch.randn(7, 4, 3, 3, generator=torch.Generator().manual_seed(10 + bits))
     w[2] = 0.0  # an all-zero channel must stay zero, not NaN
-    scales = (w.abs().reshape(7, -1).amax(1).clamp_min(1e-12) / qm)
+    r = w.abs().reshape(7, -1).amax(1)
+    # the all-zero channel takes the floor of the scale rule: 2^-8 of the layer's widest channel
+    scales = torch.maximum(r, r.max() * 2.0**-8) / qm
     ref = torch.fake_quantize_per_channel_affine(w, scales, torch.zeros(7, dtype=torch.int32), 0, -qm, qm)
     got = M.weight_fake_quant(w, bits, per_channel=True)
     assert torch.equal(got, ref)

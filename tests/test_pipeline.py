@@ -60,6 +60,8 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
     assert any(re.fullmatch(r"\[data\] 1257 train, 180 validation, 360 test samples, 16x16 binary frames, "
                             r"10 classes, \d+\.\d input events per frame \(mean, train split\)", m) for m in lines)
     assert re.search(r"^\[export\] done in \d+\.\d s$", captured.err, re.M)
+    loss = summary["conversion_loss_pp"]
+    assert "within tolerance" in out_text and f"yes (loss {loss:.2f} pp <= {tol:.2f} pp)" in out_text
 
     # a second run with the same resolved recipe reuses every stage
     assert main(args) == 0
@@ -176,3 +178,17 @@ def test_interrupt_keeps_finished_stages_and_the_rerun_reuses_them(tmp_path, mon
     actions = _stage_actions(out)
     assert actions["data"] == actions["train"] == actions["convert"] == "reused"
     assert actions["export"] == "ran"
+
+
+def test_run_summary_flags_a_point_outside_tolerance_and_names_an_aware_frame_model(capsys):
+    from snnconvert.pipeline import _print_summary
+    s = {"name": "r", "frame_accuracy": 0.98, "spike_accuracy": 0.9439, "conversion_loss_pp": 3.61,
+         "tolerance_pp": 0.5, "frame_model": "aware", "aware_bits": {"weight_bits": 3, "payload_bits": 3},
+         "float_accuracy": 0.985, "loss_vs_float_pp": 4.11, "agreement": 0.95, "weight_bits": 3, "payload_bits": 3,
+         "coding": "payload", "spikes_per_sample": 1.0, "sops_per_sample": 1.0, "macs_per_sample": 1,
+         "verify_passed": True, "recommended": None, "paths": {"report": "report.html"}}
+    _print_summary(s)
+    rows = {line.split("  ")[1]: line.split("  ")[-1] for line in capsys.readouterr().out.splitlines()[1:]}
+    assert rows["within tolerance"] == "no (loss 3.61 pp > 0.50 pp)"
+    assert rows["frame_accuracy (aware, fine-tuned for k=3 p=3)"] == "0.98"
+    assert rows["float model before fine-tuning"] == "0.985" and rows["loss vs float model (pp)"] == "4.11"

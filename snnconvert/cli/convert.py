@@ -12,7 +12,8 @@ def add_arguments(p) -> None:
     p.add_argument("train_dir", metavar="TRAIN_DIR", help="folder written by `snnconvert train` (holds model.pt)")
     p.add_argument("--weight-bits", type=int, metavar="K", help="weight bits, 2..16 (default: the recipe's)")
     p.add_argument("--payload-bits", type=int, metavar="P", help="payload bits, 1..8 (default: the recipe's)")
-    p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's)")
+    p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's); "
+                   "binary sends 1-bit spikes, so it sets the payload bits to 1")
     p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
     p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
     p.add_argument("--input-clip", action=argparse.BooleanOptionalAction, default=None,
@@ -45,6 +46,8 @@ def run(args) -> int:
         v = getattr(args, flag)
         if v is not None:
             settings[key] = v
+    if args.coding == "binary" and args.payload_bits is None:
+        settings["payload_bits"] = 1       # the recipe's payload width belongs to its own coding
     settings = settings_from(settings)
     out = Path(args.out) if args.out else check_output_path(train_dir.resolve().parent / "net", "", "folder")
     net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)

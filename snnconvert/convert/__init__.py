@@ -80,7 +80,15 @@ def _check_settings(weight_bits, payload_bits, coding, per_channel, calibration,
     check_int(multiplier_bits, "multiplier_bits", o, 2, 31)
     check_int(acc_limit_bits, "accumulator_bits", o, 0, 62)
     check_choice(overflow, "overflow", o, ["saturate", "wrap"])
+    check_binary_payload(coding, payload_bits)
     return parse_range_rule(calibration, "calibration", o), parse_range_rule(weight_scale, "weight_scale", o)
+
+
+def check_binary_payload(coding, payload_bits) -> None:
+    """A binary spike carries no payload: coding "binary" needs payload_bits = 1 (refused otherwise)."""
+    if coding == "binary" and payload_bits != 1:
+        raise UsageError(f"The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike "
+                         f"carries no payload). Got {payload_bits!r} instead.")
 
 
 def convert(model, calib_x, *, weight_bits: int, payload_bits: int, coding: str, per_channel: bool = False,
@@ -90,8 +98,8 @@ def convert(model, calib_x, *, weight_bits: int, payload_bits: int, coding: str,
     """Frame model -> single-spike integer network: a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, 2^p - 1).
 
     `calib_x` (N, C, H, W) float frames are used whole (pick the subset with
-    `calibrate.calibration_subset`). Binary coding is the p = 1 case, so `payload_bits` is forced
-    to 1. Input payloads are clamp(round(frame), 0, Q_in). By default Q_in = input_q: the input
+    `calibrate.calibration_subset`). Binary coding is the p = 1 case: it needs `payload_bits` = 1
+    and refuses any other width. Input payloads are clamp(round(frame), 0, Q_in). By default Q_in = input_q: the input
     events carry the frame's counts at their own width (ceil(log2(input_q + 1)) bits, at most 8;
     ttfs: an input window of input_q steps). With input_clip=True, Q_in = min(input_q, 2^p - 1), so
     every event of the network carries p bits, at the price of clipping counts the frame model saw.
@@ -102,7 +110,7 @@ def convert(model, calib_x, *, weight_bits: int, payload_bits: int, coding: str,
     calib_x = np.asarray(calib_x, dtype=np.float32)
     if calib_x.ndim != 4 or calib_x.shape[0] == 0:
         raise UsageError(f"calibration frames must have shape (N, C, H, W) with N >= 1; got {calib_x.shape}")
-    p = 1 if coding == "binary" else int(payload_bits)
+    p = int(payload_bits)
     ranges = activation_ranges(ops, calib_x, cal[0], cal[1], act_max=act_max, quiet=quiet)
     q_in = min(int(input_q), arith.payload_max(p)) if input_clip else int(input_q)
     net = build_network(ops, ranges, input_shape=calib_x.shape[1:], input_q=q_in,
@@ -124,13 +132,16 @@ def settings_from(settings: dict) -> dict:
     s.update(settings)
     for k, key in SCHEMA.items():
         s[k] = key.check(s[k], k, "convert")
+    check_binary_payload(s["coding"], s["payload_bits"])
     return s
 
 
-def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: bool = False):
+def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: bool = False,
+                        float_accuracy: float | None = None):
     """Convert with the [convert] `settings`, calibrate on the training split, measure on the test split.
 
     Deterministic: the calibration subset is evenly spaced, and nothing draws random numbers.
+    `float_accuracy`: the test accuracy of the float model an aware `model` was fine-tuned from.
     Returns (net, metrics dict).
     """
     from snnconvert.sim.metrics import measure
@@ -145,7 +156,7 @@ def convert_and_measure(model, dataset, settings: dict, act_max=None, quiet: boo
     net.meta.update(data_fingerprint=getattr(dataset, "fingerprint", None), classes=list(getattr(dataset, "classes", [])),
                     convert=s)
     Xte, yte = dataset.test
-    metrics = measure(model, net, Xte, yte, tolerance_pp=s["tolerance_pp"], quiet=quiet)
+    metrics = measure(model, net, Xte, yte, tolerance_pp=s["tolerance_pp"], quiet=quiet, float_accuracy=float_accuracy)
     return net, metrics
 
 
@@ -156,7 +167,9 @@ def convert_checkpoint(train_dir, settings: dict, quiet: bool = False):
     model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
     dataset = load_dataset(ckpt["recipe"], progress=not quiet)
     check_checkpoint_fits(model, ckpt, dataset, Path(train_dir) / "model.pt")
-    net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet)
+    # an aware checkpoint keeps the test accuracy of the float model it was fine-tuned from
+    net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet,
+                                       float_accuracy=(ckpt.get("metrics") or {}).get("float_frame_accuracy"))
     net.meta.update(recipe={k: v for k, v in ckpt["recipe"].items() if k != "_embedded"},
                     train_fingerprint=ckpt.get("data_fingerprint"))
     return net, metrics

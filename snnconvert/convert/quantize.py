@@ -8,8 +8,13 @@ Scales (s_0 = 1: frame values are the input payloads):
     a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, Q)      (arith.requantize; exact halves round up)
 
 Edge cases: a layer whose calibrated range is 0 gets M = 0 (it never fires) and s_l = 1 so
-later scales stay finite. The output layer keeps its potentials for the argmax; its M0/n and
-q_out = Q map positive logits to payloads for the ttfs early decision only.
+later scales stay finite. Per-channel weight ranges are floored at 2^-8 of the layer's largest
+(arith.weight_scale), and a channel whose multiplier cannot lift any potential of its
+accumulator to payload 1 is stored silent (M0 = 0; arith.fixed_point_multiplier), so near-dead
+and all-zero channels keep shifts and biases inside 64-bit integers. A layer that still does not
+fit (accumulator bits + multiplier bits > 63, arith.check_requantize_range) is refused.
+The output layer keeps its potentials for the argmax; its M0/n and q_out = Q map positive
+logits to payloads for the ttfs early decision only.
 """
 
 from __future__ import annotations
@@ -18,6 +23,7 @@ import numpy as np
 
 from snnconvert import arith
 from snnconvert.convert.fold import FoldedOp
+from snnconvert.errors import UsageError
 from snnconvert.intnet import IntLayer, IntNetwork
 
 
@@ -44,19 +50,25 @@ def build_network(ops: list[FoldedOp], ranges: list, *, input_shape: tuple, inpu
             s_w = arith.weight_scale(w, weight_bits, per_channel, weight_rule[0], weight_rule[1])     # (O,)
             W = arith.quantize_weights(w, s_w, weight_bits)
             s_eff = s_in / div
-            B = arith.quantize_bias(op.bias, s_w, s_eff)
             r = float(ranges[i])
             s_out = r / Q if r > 0 else 1.0
             M = s_w * s_eff / s_out if r > 0 else np.zeros_like(s_w)
-            m0, n = arith.fixed_point_multiplier(M, multiplier_bits)
             if op.kind == "conv":
                 out_shape = (w.shape[0],) + _out_hw(shape[1], shape[2], op.kernel, op.stride, op.padding)
                 kw = dict(kernel=op.kernel, stride=op.stride, padding=op.padding)
             else:
                 out_shape, kw = (w.shape[0],), {}
                 shape = (int(np.prod(shape)),)
-            acc = arith.accumulator_bits(int(np.prod(W.shape[1:])), int(np.abs(W).max(initial=0)), q_in,
-                                         int(np.abs(B).max(initial=0)))
+            try:
+                B = arith.quantize_bias(op.bias, s_w, s_eff)
+                acc = arith.accumulator_bits(int(np.prod(W.shape[1:])), int(np.abs(W).max(initial=0)), q_in,
+                                             int(np.abs(B).max(initial=0)))
+                m0, n = arith.fixed_point_multiplier(M, multiplier_bits, acc_bits=acc)
+                arith.check_requantize_range(acc, m0, n, Q, ttfs=coding == "ttfs")
+            except ValueError as exc:
+                raise UsageError(f"layer {name} cannot be held in 64-bit integers with these settings: {exc} "
+                                 f"(input scale {s_eff:.3g}, output range {r:.3g}; try other 'multiplier_bits' "
+                                 f"or 'calibration')") from None
             info = {"range": r, "s_in": s_eff, "s_out": s_out, "s_w": s_w.tolist(), "multiplier": M.tolist(),
                     "source_layers": op.source, "pool_divisor": div}
             layers.append(IntLayer(name=name, kind=op.kind, in_shape=shape, out_shape=out_shape, weight=W, bias=B,

@@ -1,14 +1,25 @@
 """What a conversion cost: accuracy, spikes, operations, widths, memory, latency, estimated energy.
 
-    conversion_loss_pp = 100 * (frame_accuracy - spike_accuracy)
+    conversion_loss_pp = 100 * (frame_accuracy - spike_accuracy)   (against the frame model converted)
+    loss_vs_float_pp   = 100 * (float_accuracy - spike_accuracy)   (against the float model before
+                         conversion-aware fine-tuning; equal to conversion_loss_pp for a float model)
     sops_per_sample    = mean over samples of sum over emitted events of the event's fan-out
                          (weighted synapses only; input events included, max-pool comparisons not)
     macs_per_sample    = sum over conv/dense layers of O * H' * W' * I * kh * kw (dense frame model)
-    energy (estimate)  = SOPs * E_add(accumulator width) [+ SOPs * E_mult(8-bit) for p > 1 payloads]
-                         [+ ttfs: neurons * steps * E_add for the per-step integration]
-                         vs MACs * (E_mult + E_add)(fp32); per-operation values from Horowitz 2014,
-                         ISSCC, 45 nm. These are estimates of arithmetic energy only (no memory, no
-                         control), for comparing the two models, not a chip measurement.
+    energy (estimate), three figures per sample, per-operation values from Horowitz 2014, ISSCC, 45 nm:
+      spike      = SOPs * E_add(acc) [+ SOPs * E_mult(k, p) for payload coding with p > 1]
+                   [+ ttfs: neurons * input steps * E_add(acc) for the per-step integration]
+      dense int  = sum over conv/dense layers of MACs_l * (E_mult(k, bits(Q_in,l)) + E_add(acc)):
+                   the same layers run densely in integers at the same widths, every MAC one
+                   multiply of a k-bit weight by the layer's input value (p-bit payloads; the
+                   input layer's frame values; sums after a sum pool) and one add at the
+                   accumulator width; a 1-bit input makes the multiply a gate (no multiply charged)
+      float      = MACs * (E_mult + E_add)(fp32): the frame model
+    E_add(acc): int8/int16/int32 add by the widest accumulator (wider than 32 charged as 32);
+    E_mult(k, b): int8 multiply when k and b are both <= 8 bits, else int32 multiply (the table has
+    no 16-bit multiply, so this is an upper bound). spike vs dense int separates the gain from
+    sparsity (events instead of every MAC); dense int vs float the gain from fewer bits. These are
+    estimates of arithmetic energy only (no memory, no control), not a chip measurement.
 
 quantized_accuracy comes from the dense integer pass without a declared accumulator width;
 spike_accuracy from the simulation with that width (saturate/wrap). They are equal unless the
@@ -34,6 +45,34 @@ E_PJ = {"int8_add": 0.03, "int16_add": 0.05, "int32_add": 0.1, "fp32_add": 0.9, 
 def _add_class(bits: int) -> str:
     """The adder class an accumulator of `bits` needs; wider than 32 bits is charged as 32 (lower bound)."""
     return "int8_add" if bits <= 8 else "int16_add" if bits <= 16 else "int32_add"
+
+
+def _mult_class(weight_bits: int, value_bits: int) -> str | None:
+    """The multiplier class of a k-bit weight times a b-bit value: None for b = 1 (a gate), int8 when
+    both are <= 8 bits, else int32 (the table's next entry: an upper bound for 9-16 bits)."""
+    if value_bits <= 1:
+        return None
+    return "int8_mult" if max(weight_bits, value_bits) <= 8 else "int32_mult"
+
+
+def tolerance_verdict(loss_pp: float, tolerance_pp: float) -> str:
+    """'yes (loss 0.28 pp <= 0.50 pp)' or 'no (loss 3.61 pp > 0.50 pp)': the conversion loss against the tolerance."""
+    if loss_pp <= tolerance_pp:
+        return f"yes (loss {loss_pp:.2f} pp <= {tolerance_pp:.2f} pp)"
+    return f"no (loss {loss_pp:.2f} pp > {tolerance_pp:.2f} pp)"
+
+
+def frame_model_kind(model) -> tuple[str, dict | None]:
+    """("aware", {"weight_bits": k, "payload_bits": p}) for a conversion-aware (fake-quantized) frame
+    model, read from its quantizing layers; ("float", None) otherwise."""
+    from snnconvert.models import ClipQuant
+    wb = sorted({int(m.weight_bits) for m in model.modules() if hasattr(m, "quantized_weight")})
+    levels = sorted({int(m.levels) for m in model.modules() if isinstance(m, ClipQuant)})
+    if not wb and not levels:
+        return "float", None
+    bits = {"weight_bits": wb[-1] if wb else None,
+            "payload_bits": int(levels[-1] + 1).bit_length() - 1 if levels else None}
+    return "aware", bits
 
 
 def macs(net: IntNetwork) -> int:
@@ -72,10 +111,15 @@ def latency(net: IntNetwork, res) -> dict:
             "samples_without_output_spike": int((~fired).sum())}
 
 
-def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 0.5, quiet: bool = False) -> dict:
+def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 0.5, quiet: bool = False,
+            float_accuracy: float | None = None) -> dict:
     """All metrics of one conversion on a labelled test set (X float frames (N, C, H, W), y (N,)).
 
-    `float_model` may be None (frame metrics are then left out). Prints the table unless quiet.
+    `float_model` is the frame model that was converted; it may be None (frame metrics are then
+    left out). frame_accuracy is its accuracy, whether it is a float or a conversion-aware model
+    (`frame_model` says which; `aware_bits` gives the widths it was fine-tuned for). For an aware
+    model, `float_accuracy` is the accuracy of the float model before fine-tuning (None if the
+    caller does not know it); for a float model it is frame_accuracy. Prints the table unless quiet.
     """
     X = np.asarray(X_test, dtype=np.float32)
     y = np.asarray(y_test, dtype=np.int64)
@@ -98,6 +142,11 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
         out["conversion_loss_pp"] = 100.0 * (out["frame_accuracy"] - out["spike_accuracy"])
         out["agreement"] = float((frame_pred == spike_pred).mean())
         out["within_tolerance"] = bool(out["conversion_loss_pp"] <= tolerance_pp)
+        kind, bits = frame_model_kind(float_model)
+        out["frame_model"], out["aware_bits"] = kind, bits
+        fa = out["frame_accuracy"] if kind == "float" else float_accuracy
+        out["float_accuracy"] = None if fa is None else float(fa)
+        out["loss_vs_float_pp"] = None if fa is None else 100.0 * (float(fa) - out["spike_accuracy"])
     out["tolerance_pp"] = float(tolerance_pp)
     out["early_accuracy"] = float((res.early_decisions == y).mean()) if net.coding == "ttfs" else None
 
@@ -141,24 +190,34 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
 
 
 def energy(net: IntNetwork, sops: float, n_macs: int) -> dict:
-    """Arithmetic energy estimate per sample in pJ (see the module docstring)."""
+    """Arithmetic energy estimates per sample in pJ: spike, dense integer, float (module docstring)."""
     widest = max(L.acc_bits for L in net.layers if L.weight is not None)
     if net.acc_limit_bits:
         widest = min(widest, net.acc_limit_bits)
     add = E_PJ[_add_class(widest)]
     spike = sops * add
     notes = [f"each SOP is one {_add_class(widest)} ({add} pJ) at the widest accumulator ({widest} bits)"]
-    if net.coding == "payload" and net.payload_bits > 1:
-        spike += sops * E_PJ["int8_mult"]
-        notes.append("payload coding with p > 1 multiplies weight by payload: one int8 multiply per SOP")
+    mult = _mult_class(net.weight_bits, net.payload_bits)
+    if net.coding == "payload" and mult is not None:
+        spike += sops * E_PJ[mult]
+        notes.append(f"payload coding with p > 1 multiplies weight by payload: one {mult} per SOP")
     if net.coding == "ttfs":
         steps = sum(int(np.prod(L.out_shape)) * (L.q_in // int(L.info.get("pool_divisor", 1)))
                     for L in net.layers if L.weight is not None)
         spike += steps * add
         notes.append("ttfs integrates its current once per step: neurons * input steps extra adds")
+    dense = 0.0
+    for L in net.layers:
+        if L.weight is not None:
+            m = _mult_class(net.weight_bits, int(L.q_in).bit_length())
+            dense += int(np.prod(L.out_shape)) * L.fan_in * ((E_PJ[m] if m else 0.0) + add)
+    notes.append(f"dense integer: every MAC one k-bit x input-width multiply (none for 1-bit inputs) and one "
+                 f"{_add_class(widest)}")
     frame = n_macs * (E_PJ["fp32_mult"] + E_PJ["fp32_add"])
-    return {"spike_pj_per_sample": float(spike), "frame_pj_per_sample": float(frame),
-            "ratio_spike_to_frame": float(spike / frame) if frame else None, "source": ENERGY_SOURCE,
+    return {"spike_pj_per_sample": float(spike), "dense_int_pj_per_sample": float(dense),
+            "frame_pj_per_sample": float(frame),
+            "ratio_spike_to_frame": float(spike / frame) if frame else None,
+            "ratio_spike_to_dense_int": float(spike / dense) if dense else None, "source": ENERGY_SOURCE,
             "notes": notes, "is_estimate": True}
 
 
@@ -181,9 +240,21 @@ def format_table(m: dict) -> str:
         return "-" if v is None else f"{v:.4f}" if isinstance(v, float) else str(v)
     rows = [("coding", f"{m['coding']} (k={m['weight_bits']}, p={m['payload_bits']}"
                        f"{', per-channel' if m['per_channel'] else ''})")]
-    for k in ("frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
-              "early_accuracy", "spikes_per_sample", "max_spikes_per_neuron", "sops_per_sample", "macs_per_sample",
-              "sops_per_mac", "weight_memory_bits"):
+    aware = m.get("frame_model") == "aware"
+    if aware:   # the frame model that was converted is the fake-quantized one: name it, then the float one
+        b = m.get("aware_bits") or {}
+        rows.append((f"frame model (aware, fine-tuned for k={b.get('weight_bits')} p={b.get('payload_bits')})",
+                     f(m.get("frame_accuracy"))))
+        rows.append(("float model before fine-tuning", f(m.get("float_accuracy"))))
+    for k in ("frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp"):
+        if k in m and not (aware and k == "frame_accuracy"):
+            rows.append((k, f(m[k])))
+    if aware:
+        rows.append(("loss vs float model (pp)", f(m.get("loss_vs_float_pp"))))
+    if "conversion_loss_pp" in m:
+        rows.append(("within tolerance", tolerance_verdict(m["conversion_loss_pp"], m["tolerance_pp"])))
+    for k in ("agreement", "early_accuracy", "spikes_per_sample", "max_spikes_per_neuron", "sops_per_sample",
+              "macs_per_sample", "sops_per_mac", "weight_memory_bits"):
         if k in m:
             rows.append((k, f(m[k])))
     rows.append(("accumulator_bits", ", ".join(f"{k}:{v}" for k, v in m["accumulator_bits"].items())))
@@ -192,7 +263,10 @@ def format_table(m: dict) -> str:
         rows.append(("overflows", ", ".join(f"{k}:{v}" for k, v in m["overflows"].items() if v)))
     rows.append(("latency", latency_text(m["latency"])))
     e = m["energy"]
-    rows.append(("energy (estimate)", f"{e['spike_pj_per_sample'] / 1e3:.2f} nJ spike vs "
-                                      f"{e['frame_pj_per_sample'] / 1e3:.2f} nJ frame per sample (Horowitz 2014)"))
+    dense = e.get("dense_int_pj_per_sample")
+    rows.append(("energy (estimate)", f"{e['spike_pj_per_sample'] / 1e3:.2f} nJ spike, "
+                                      + ("" if dense is None else f"{dense / 1e3:.2f} nJ dense integer (same widths), ")
+                                      + f"{e['frame_pj_per_sample'] / 1e3:.2f} nJ float frame model per sample "
+                                        f"(Horowitz 2014)"))
     w = max(len(r[0]) for r in rows)
     return "\n".join(f"{k:<{w}}  {v}" for k, v in rows)

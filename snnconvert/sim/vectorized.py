@@ -175,8 +175,8 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
                 pooled_early = True
             if fast:
                 a = arith.requantize_float(v.to(torch.float64), L.m0, L.shift, L.q_out).to(torch.float32)  # (N, O, ...)
-            else:
-                a = arith.requantize(v, L.m0, L.shift, L.q_out).to(torch.float32)
+            else:   # the float path is not proven exact here: integers only (v may be a float32 from the kernel)
+                a = arith.requantize(v.to(torch.int64), L.m0, L.shift, L.q_out).to(torch.float32)
         kernels.append(used)
         if stats and L.kind != "sumpool" and a.numel() and (float(a.min()) < 0 or float(a.max()) > L.q_out):
             # one spike carries at most Q; anything else would need a second spike
