@@ -156,7 +156,7 @@ def read_idx(path) -> np.ndarray:
         import zlib
         try:
             data = gzip.decompress(data)
-        except (OSError, EOFError, zlib.error) as exc:  # bad header / cut short / damaged deflate stream
+        except (OSError, EOFError, zlib.error):  # bad header / cut short / damaged deflate stream
             raise FormatError(f"{path}: not a readable gzip file (damaged or cut short)") from None
     if len(data) < 4 or data[0] != 0 or data[1] != 0:
         raise FormatError(f"{path}: not an IDX file (byte offset 0: magic number must start with 00 00)")

@@ -14,10 +14,10 @@ Binary mode ignores polarity; in it no pixel carries more than one spike per win
 
 from __future__ import annotations
 
-import io
 
 import numpy as np
 
+from snnconvert import plots
 from snnconvert.errors import UsageError, check_choice, check_int
 from snnconvert.events.stream import EventStream
 from snnconvert.schema import Key
@@ -140,13 +140,6 @@ def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], b
 
 
 # --- plots ----------------------------------------------------------------------------------
-def _save_png(fig, path):
-    from snnconvert.files import atomic_write_bytes
-    import matplotlib.pyplot as plt
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    plt.close(fig)
-    return atomic_write_bytes(path, buf.getvalue())
 
 
 def _frame_image(frame: np.ndarray) -> np.ndarray:
@@ -201,9 +194,7 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
     """Rate trace (events/s) with the two thresholds and the bursts shaded; the frame of each
     burst (up to 6) beside it on one fixed colour scale (`frame_style(mode, q)`).
     rate_trace = (t_k, rate) from windows.rate_trace."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = plots.pyplot()
     frames = [np.asarray(f) for f in list(frames)[:6]]
     ncol = max(len(frames), 1)
     fig = plt.figure(figsize=(4.6 + 2.2 * ncol, 3.4))
@@ -239,16 +230,14 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
         a = fig.add_subplot(grid[0, 1])
         a.text(0.5, 0.5, "no burst", ha="center", va="center")
         a.axis("off")
-    return _save_png(fig, path)
+    return plots.save_png(fig, path)
 
 
 def frames_figure(X, y, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,
                   caption: str = ""):
     """The figure of `plot_frames`: one row per class (every class, also one without examples),
     up to per_class examples each, one fixed colour scale with a colour bar, caption on top."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = plots.pyplot()
     X = np.asarray(X)  # (N, C, H, W)
     y = np.asarray(y)
     labels = list(range(len(classes))) if classes is not None else [int(v) for v in np.unique(y)]
@@ -292,4 +281,4 @@ def frames_caption(split: str, mode: str, shape, threshold: int, max_count: int)
 def plot_frames(X, y, path, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,
                 caption: str = ""):
     """PNG grid of example frames: one row per class, up to per_class examples each (see frames_figure)."""
-    return _save_png(frames_figure(X, y, classes, per_class, mode, q, caption), path)
+    return plots.save_png(frames_figure(X, y, classes, per_class, mode, q, caption), path)

@@ -71,7 +71,6 @@ def _rename(section: str, table: dict, where: str) -> None:
 
     A recipe that gives both the old and the new name is refused (which one is meant is unclear).
     """
-    import sys
     for old, new in renamed().get(section, {}).items():
         if old in table:
             if new in table:

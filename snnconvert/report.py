@@ -9,12 +9,10 @@ from __future__ import annotations
 
 import base64
 import html
-import io
-import json
 import re
 from pathlib import Path
 
-from snnconvert import files
+from snnconvert import files, plots
 from snnconvert.errors import FormatError, UsageError
 
 # (id, title) of every section, in page order; tests check each id is present.
@@ -131,12 +129,6 @@ def _figure(path: Path, caption: str, missing: str) -> str:
     return f"<figure>{_img(path, caption)}<figcaption class=\"note\">{_e(caption)}</figcaption></figure>"
 
 
-def _png_of(fig) -> str:
-    import matplotlib.pyplot as plt
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
-    plt.close(fig)
-    return f'<img alt="chart" src="data:image/png;base64,{base64.b64encode(buf.getvalue()).decode("ascii")}">'
 
 
 def _fmt(v) -> str:
@@ -228,9 +220,7 @@ def _layer_dict(m: dict, key: str, run: Path | None = None) -> dict:
 
 def _confusion_png(cm, title: str) -> str:
     """Draw a confusion matrix (rows = true class) when its PNG is missing but the numbers exist."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = plots.pyplot()
     import numpy as np
     cm = np.asarray(cm)  # (classes, classes)
     fig, ax = plt.subplots(figsize=(4.2, 3.8))
@@ -243,7 +233,7 @@ def _confusion_png(cm, title: str) -> str:
     ax.set_xlabel("predicted")
     ax.set_ylabel("true")
     ax.set_title(title, fontsize=9)
-    return _png_of(fig)
+    return f'<img alt="chart" src="{plots.png_data_uri(fig)}">'
 
 
 # --- sections ------------------------------------------------------------------------------
@@ -501,14 +491,12 @@ def _spikes(run: Path) -> str:
         out.append(_missing("The conversion metrics hold no per-layer spike counts."))
         return "\n".join(out)
     out.append(_table(["layer", "spikes per sample (mean over the test set)"], [[k, v] for k, v in layers.items()]))
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = plots.pyplot()
     fig, ax = plt.subplots(figsize=(6.5, 2.6))
     ax.bar([str(k) for k in layers], [float(v or 0) for v in layers.values()], color="tab:blue")
     ax.set_ylabel("spikes per sample")
     ax.grid(axis="y", alpha=0.3)
-    out.append(_png_of(fig))
+    out.append(f'<img alt="chart" src="{plots.png_data_uri(fig)}">')
     return "\n".join(out)
 
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
 
-from snnconvert import console, files
+from snnconvert import console, files, plots
 from snnconvert.errors import FormatError, UsageError, check_bool, check_choice, check_float, check_int, fail
 from snnconvert.intnet import CODINGS
 from snnconvert.schema import Key
@@ -698,19 +698,8 @@ def format_table(rows: list[dict], recommendation: dict) -> str:
     return "\n".join(lines)
 
 
-def _save_png(fig, path: Path) -> None:
-    import matplotlib.pyplot as plt
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    plt.close(fig)
-    files.atomic_write_bytes(path, buf.getvalue())
 
 
-def _pyplot():
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    return plt
 
 
 def loss_scale(losses, tolerance_pp: float):
@@ -722,7 +711,7 @@ def loss_scale(losses, tolerance_pp: float):
     """
     import numpy as np
     from matplotlib.colors import BoundaryNorm, ListedColormap
-    plt = _pyplot()
+    plt = plots.pyplot()
     vals = [float(v) for v in losses] or [0.0]
     tol, top = float(tolerance_pp), max(vals)
     good = sorted({min(min(vals), -max(tol, 0.5)) - 1e-9, *([0.0] if tol > 0 else []), tol})
@@ -769,7 +758,7 @@ def heatmap_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float 
     """
     import numpy as np
     from matplotlib.patches import Rectangle
-    plt = _pyplot()
+    plt = plots.pyplot()
     rec = (recommendation or {}).get("point") or {}
     groups = _grid_groups(rows, lambda r: r["loss_pp"])
     acc = {(r["coding"], r["weight_bits"], r["payload_bits"]): 100 * r["spike_accuracy"] for r in rows}
@@ -821,7 +810,7 @@ def _wrap(text: str, width: int = 110) -> str:
 def plot_heatmap(rows: list[dict], frame_accuracy: float, path: Path, tolerance_pp: float = 0.5,
                  recommendation: dict | None = None, note: str = "") -> None:
     """heatmap.png: see heatmap_figure."""
-    _save_png(heatmap_figure(rows, frame_accuracy, tolerance_pp, recommendation, note), path)
+    plots.save_png(heatmap_figure(rows, frame_accuracy, tolerance_pp, recommendation, note), path)
 
 
 def _si(x, _pos=None) -> str:
@@ -878,7 +867,7 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
     to just above the best point. Points below are left out and counted in the panel titles.
     Each point is labelled weight bits/payload bits."""
     from matplotlib import ticker
-    plt = _pyplot()
+    plt = plots.pyplot()
     frame = 100 * frame_accuracy
     tol = float(tolerance_pp)
     accs = [100 * r["spike_accuracy"] for r in rows]
@@ -949,7 +938,7 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
 def plot_pareto(rows: list[dict], frame_accuracy: float, tolerance_pp: float, recommendation: dict,
                 path: Path, note: str = "") -> None:
     """pareto.png: see pareto_figure."""
-    _save_png(pareto_figure(rows, frame_accuracy, tolerance_pp, recommendation, note), path)
+    plots.save_png(pareto_figure(rows, frame_accuracy, tolerance_pp, recommendation, note), path)
 
 
 def codings_figure(rows: list[dict], recommendation: dict | None = None, note: str = ""):
@@ -957,7 +946,7 @@ def codings_figure(rows: list[dict], recommendation: dict | None = None, note: s
     per sample against payload bits, one line per coding, at one weight width (the recommended
     point's, else the widest swept)."""
     from matplotlib import ticker
-    plt = _pyplot()
+    plt = plots.pyplot()
     rec = (recommendation or {}).get("point") or {}
     wb = rec.get("weight_bits") or max(r["weight_bits"] for r in rows)
     fig, axes = plt.subplots(1, 2, figsize=(10, 3.6), layout="constrained")
@@ -1003,7 +992,7 @@ def write_outputs(result: SweepResult, recipe: dict | None = None) -> None:
         plot_pareto(rows, result.frame_accuracy, result.tolerance_pp, result.recommendation, out / "pareto.png",
                     note)
         if len({r["coding"] for r in rows}) > 1:
-            _save_png(codings_figure(rows, result.recommendation, note), out / "codings.png")
+            plots.save_png(codings_figure(rows, result.recommendation, note), out / "codings.png")
         elif (out / "codings.png").exists():  # left by an earlier sweep of several codings
             (out / "codings.png").unlink()
     if recipe is not None:

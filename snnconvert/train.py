@@ -27,7 +27,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from snnconvert import console, files, models
+from snnconvert import console, files, models, plots
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import (FormatError, UsageError, check_bool, check_float, check_int, check_shape,
                                fail)
@@ -315,7 +315,7 @@ def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int
 
 def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
     """PNG of a confusion matrix (rows = true class, columns = predicted), counts written in cells."""
-    plt = _pyplot()
+    plt = plots.pyplot()
     cm = np.asarray(cm)
     n = cm.shape[0]
     fig, ax = plt.subplots(figsize=(1.2 + 0.45 * n, 1.0 + 0.45 * n), dpi=100)
@@ -332,12 +332,12 @@ def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
     ax.set_xlabel("predicted")
     ax.set_ylabel("true")
     ax.set_title(title, fontsize=9)
-    return _save_fig(fig, path)
+    return plots.save_png(fig, path)
 
 
 def plot_curves(history: list[dict], path, title: str = "training") -> Path:
     """PNG: loss (left) and accuracy (right) per epoch, train and validation; aware epochs shaded."""
-    plt = _pyplot()
+    plt = plots.pyplot()
     fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=100)
     ep = [i + 1 for i in range(len(history))]
     a1.plot(ep, [h["train_loss"] for h in history], label="train")
@@ -357,7 +357,7 @@ def plot_curves(history: list[dict], path, title: str = "training") -> Path:
     a2.set_ylabel("accuracy (%)")
     fig.suptitle(title, fontsize=10)
     fig.tight_layout()
-    return _save_fig(fig, path)
+    return plots.save_png(fig, path)
 
 
 # ---------------------------------------------------------------- the loop
@@ -595,17 +595,3 @@ def _write_history(history, path) -> None:
         w.writerow({k: ("" if h.get(k) is None else h[k]) for k in cols})
     files.atomic_write_text(path, buf.getvalue())
 
-
-def _pyplot():
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    return plt
-
-
-def _save_fig(fig, path) -> Path:
-    plt = _pyplot()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    return files.atomic_write_bytes(path, buf.getvalue())

@@ -166,7 +166,6 @@ def _fire(net: IntNetwork, L: IntLayer, v: np.ndarray) -> np.ndarray:
 
 def _integrate(net: IntNetwork, L: IntLayer, T: dict, ev: np.ndarray, q_window: int) -> tuple[np.ndarray, int]:
     """Potential at window close, V = B + sum W * a, and the SOPs spent."""
-    O = L.weight.shape[0]
     S = int(np.prod(L.out_shape[1:])) if L.kind == "conv" else 1
     bias = np.repeat(L.bias.astype(np.int64), S)                                      # (O*S,)
     if net.coding != "ttfs":
