@@ -74,8 +74,7 @@ def net_and_inputs():
 @pytest.mark.parametrize("kernel", ["auto", "int64"])
 def test_simulator_batches_hold_a_bounded_number_of_values(net_and_inputs, monkeypatch, kernel):
     net, x = net_and_inputs
-    x = np.concatenate([x] * 4)                                   # (2388, 1, 16, 16): more than one batch
-    monkeypatch.setattr(vectorized, "BATCH_VALUES", 2**18)        # small budget: several batches here
+    monkeypatch.setattr(vectorized, "BATCH_VALUES", 2**16)        # small budget: 597 samples in several batches
     sizes = []
     run = vectorized._run
 
@@ -88,8 +87,8 @@ def test_simulator_batches_hold_a_bounded_number_of_values(net_and_inputs, monke
     # the conv_max layout of tests/_convert_helpers.py: widest output 6 x 16 x 16 = 1536 values per
     # sample; on the int64 kernel the first conv's window copy is 16 x 16 positions x 9 taps = 2304
     widest = 2304 if kernel == "int64" else 1536
-    assert vectorized.batch_size(net, kernel) == 2**18 // widest
-    assert max(sizes) * widest <= 2**18 and sum(sizes) == len(x) and len(sizes) > 1
+    assert vectorized.batch_size(net, kernel) == 2**16 // widest
+    assert max(sizes) * widest <= 2**16 and sum(sizes) == len(x) and len(sizes) > 1
     whole = vectorized.simulate(net, x, kernel=kernel, batch=len(x))   # one batch: the same integers
     assert np.array_equal(res.potentials, whole.potentials) and np.array_equal(res.spike_counts, whole.spike_counts)
     assert all(np.array_equal(a, b) for a, b in zip(res.payloads, whole.payloads))
