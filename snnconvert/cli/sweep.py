@@ -17,7 +17,7 @@ def add_arguments(p) -> None:
     p.add_argument("--aware", action="store_true", default=None,
                    help="fine-tune with conversion-aware training at each point before converting")
     p.add_argument("--aware-epochs", type=int, metavar="N", help="epochs of aware fine-tuning per point")
-    p.add_argument("--jobs", type=int, metavar="N", help="parallel processes (default: core count)")
+    p.add_argument("--jobs", type=int, metavar="N", help="parallel processes (default: usable cores, fewer when memory is short)")
     p.add_argument("--out", metavar="DIR", help="output folder (default: 'sweep' beside TRAIN_DIR)")
     p.add_argument("--tolerance-pp", type=float, metavar="PP",
                    help="accuracy loss allowed for the recommendation, in percentage points (default 0.5)")

@@ -100,16 +100,39 @@ def weighted_sum(L: IntLayer, a: torch.Tensor, kernel: str = "auto", bias: bool 
     return z, k
 
 
+# Values a batch may hold in one tensor. A batch allocates a handful of float64/int64 temporaries
+# the size of its widest layer, so this keeps one batch near 32 MB per temporary however many
+# samples are simulated (the recorded payloads, kept for every sample, come on top).
+BATCH_VALUES = 2**22
+
+
+def batch_size(net: IntNetwork, kernel: str = "auto") -> int:
+    """Samples per batch: BATCH_VALUES // (values per sample of the widest tensor), at least 1.
+
+    The widest tensor is a layer's output, or for a conv layer on the int64 kernel the window
+    copy of the exact correlation (output positions x fan-in).
+    """
+    widest = int(np.prod(net.input_shape))
+    for L in net.layers:
+        n = int(np.prod(L.out_shape))
+        if L.kind == "conv" and _kernel_for(L, kernel) == "int64":
+            n = int(np.prod(L.out_shape[1:])) * L.fan_in
+        widest = max(widest, n)
+    return max(1, BATCH_VALUES // max(widest, 1))
+
+
 @torch.no_grad()
 def simulate(net: IntNetwork, x_int, record: bool = True, limit: bool = True, kernel: str = "auto",
-             batch: int = 4096, stats: bool = True) -> SimResult:
+             batch: int | None = None, stats: bool = True) -> SimResult:
     """Run the integer network on `x_int` (N, C, H, W) input payloads in 0..input_q.
 
     limit=False ignores the declared accumulator width: that is the dense "quantized forward".
     stats=False skips spike counts, |V| maxima and the single-spike check (decisions only).
+    batch=None takes batch_size(net, kernel) samples at a time (bounded memory for any N).
     """
     if kernel not in KERNELS:
         raise ValueError(f"kernel must be one of {KERNELS}; got {kernel!r}")
+    batch = batch_size(net, kernel) if batch is None else int(batch)
     x = np.asarray(x_int)
     if x.ndim != 4 or tuple(x.shape[1:]) != tuple(net.input_shape):
         raise ValueError(f"inputs must have shape (N, {', '.join(map(str, net.input_shape))}); got {x.shape}")
