@@ -439,9 +439,13 @@ def test_a_stored_cache_dir_never_chooses_where_files_are_written(base, tmp_path
 
 
 def test_report_names_a_damaged_result_line_in_its_sweep_section(base, tmp_path):
+    from snnconvert.files import atomic_write_json
     from snnconvert.report import write_report
     run = tmp_path / "run"
     shutil.copytree(base / "sweep", run / "sweep")
+    # the stage log a run folder starts with (report refuses a folder without it)
+    atomic_write_json(run / "stages.json", {"version": 1, "stages": {
+        "sweep": {"fingerprint": "fp-sweep", "status": "done", "seconds": 1.0, "last_action": "ran"}}})
     _results_line(lambda r: r["metrics"].update(spike_accuracy="high"))(run)
     page = write_report(run).read_text()
     assert (f"This section cannot be shown: The &#x27;metrics.spike_accuracy&#x27; field of "

@@ -125,12 +125,13 @@ def test_run_summary_in_words(capsys):
     s = {"name": "demo", "frame_accuracy": 0.98, "spike_accuracy": 0.975, "conversion_loss_pp": 0.5,
          "agreement": 0.99, "weight_bits": 4, "payload_bits": 4, "coding": "payload", "spikes_per_sample": 3603.2,
          "sops_per_sample": 304313.0, "macs_per_sample": 955008, "verify_passed": True, "recommended": None,
-         "paths": {"report": "report.html"}}
+         "tolerance_pp": 0.5, "paths": {"report": "report.html"}}
     pipeline._print_summary(s)
     assert capsys.readouterr().out == """summary of run 'demo'
   frame_accuracy      0.98
   spike_accuracy      0.975
   conversion_loss_pp  0.5
+  within tolerance    yes (loss 0.50 pp <= 0.50 pp)
   agreement           0.99
   weight_bits         4
   payload_bits        4
@@ -186,7 +187,7 @@ def _bad_recordings(folder: Path) -> Path:
     (folder / "bad.bin").write_bytes(b"\x05\x11\x80\x03")
     (folder / "index.csv").write_text("\n".join(lines + ["bad.bin,0"]) + "\n")
     recipe = folder / "recipe.toml"
-    recipe.write_text('name = "bad"\n[data]\nsource = "recordings"\nrecordings_index = "index.csv"\nsensor_size = 8\n')
+    recipe.write_text('name = "bad"\n[data]\nsource = "recordings"\nrecordings_index = "index.csv"\nsensor_side = 8\n')
     return recipe
 
 

@@ -120,7 +120,8 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
     assert code == 0
     lines = capsys.readouterr().out.splitlines()
     rec = json.loads((out / "recommendation.json").read_text())
-    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "loss", "pp", "weight", "kbit", "SOPs/sample"]
+    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "loss", "pp", "weight", "kbit", "SOPs/sample",
+                                 "steps", "nJ", "(est.)"]  # two codings: latency and energy columns too
     assert [ln.split()[:3] for ln in lines[2:6]] == [["payload", "3", "1"], ["payload", "3", "2"],
                                                     ["ttfs", "3", "1"], ["ttfs", "3", "2"]]
     assert lines[-3] == f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} %"
