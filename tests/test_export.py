@@ -352,8 +352,8 @@ def test_cli_export_with_inputs_file(tmp_path, capsys):
     code = main(["export", str(tmp_path / "net"), str(tmp_path / "out"), "--inputs", str(tmp_path / "in.npz"),
                  "--vectors", "3", "--no-csv", "--quiet"])
     assert code == 0
-    # 4 tables for each of 3 weighted layers + tables.npz + vectors.npz
-    assert capsys.readouterr().out == f"export: 4 layers, 14 files, 3 golden vectors -> {tmp_path / 'out'}\n"
+    # 4 tables for each of 3 weighted layers, each as .mem, .coe and .mif, + tables.npz + vectors.npz
+    assert capsys.readouterr().out == f"export: 4 layers, 38 files, 3 golden vectors -> {tmp_path / 'out'}\n"
     assert not (tmp_path / "out" / "vectors").exists()
 
 

@@ -17,6 +17,15 @@ def add_arguments(p) -> None:
                    help="also write CSV tables and vector files (--no-csv: memory files and NPZ only)")
     p.add_argument("--intel-hex", action=argparse.BooleanOptionalAction, default=None,
                    help="also write each table as Intel HEX (default: recipe [export] intel_hex, off)")
+    p.add_argument("--coe-mif", action=argparse.BooleanOptionalAction, default=None,
+                   help="also write each table as a Xilinx .coe and an Intel .mif block-RAM image (default: recipe "
+                        "[export] coe_mif, on)")
+    p.add_argument("--pack-bits", type=int, metavar="P",
+                   help="pack floor(P/bits) table words into each P-bit word of the .coe/.mif images, lane 0 in the "
+                        "least significant bits (default: recipe [export] pack_bits, 0 = unpacked)")
+    p.add_argument("--verilog", action=argparse.BooleanOptionalAction, default=None,
+                   help="also write the behavioural Verilog model and its self-checking testbench under verilog/ "
+                        "(default: recipe [export] verilog, off)")
 
 
 def run(args) -> int:
@@ -30,8 +39,11 @@ def run(args) -> int:
     check_output_path(args.out_dir, "OUT_DIR", "folder")
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
+    if args.pack_bits is not None:
+        check_int(args.pack_bits, "pack_bits", "export", 0, 4096)
     man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,
-                               inputs=args.inputs, progress=not args.quiet)
+                               inputs=args.inputs, progress=not args.quiet, coe_mif=args.coe_mif,
+                               pack_bits=args.pack_bits, verilog=args.verilog)
     man = load_json(man_path)
     out = Path(args.out_dir)
     console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "

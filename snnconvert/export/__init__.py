@@ -14,6 +14,10 @@ SCHEMA: dict[str, Key] = {
                    lo=0, hi=100000),
     "csv": Key(True, "bool", "CSV tables and per-layer vector files are what testbench scripts and spreadsheets read most easily"),
     "intel_hex": Key(False, "bool", "off: $readmemh files serve every HDL simulator; Intel HEX only for tools that load ROMs from it"),
+    "coe_mif": Key(True, "bool", "Vivado (.coe) and Quartus (.mif) load block-RAM images directly; small text copies of the .mem words"),
+    "pack_bits": Key(0, "int", "0 = one table word per memory word, as the .mem files; e.g. 32 or 36 packs narrow words to a block-RAM width",
+                     lo=0, hi=4096),
+    "verilog": Key(False, "bool", "off: the Verilog model and testbench are for hardware bring-up; the .mem files and vectors suffice otherwise"),
 }
 
 from snnconvert.export.fromrun import export_from_run  # noqa: E402

@@ -32,11 +32,12 @@ def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True) -> tuple[n
 
 def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int | None = None,
                     csv: bool | None = None, intel_hex: bool | None = None, inputs=None,
-                    progress: bool = True) -> Path:
+                    progress: bool = True, coe_mif: bool | None = None, pack_bits: int | None = None,
+                    verilog: bool | None = None) -> Path:
     """Export the network in `net_dir` to `out_dir`; returns the manifest path.
 
-    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv/intel_hex: default from the
-    recipe's [export] section. inputs: an NPZ path to use instead of the data set's test split.
+    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv/intel_hex/coe_mif/pack_bits/
+    verilog: default from the recipe's [export] section. inputs: an NPZ path to use instead of the data set's test split.
     """
     from snnconvert import recipe as recipe_mod
     from snnconvert.export import SCHEMA
@@ -55,6 +56,8 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
     csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
     intel_hex = section.get("intel_hex", SCHEMA["intel_hex"].default) if intel_hex is None else intel_hex
+    opts = {k: section.get(k, SCHEMA[k].default) if v is None else v
+            for k, v in (("coe_mif", coe_mif), ("pack_bits", pack_bits), ("verilog", verilog))}
     if inputs is not None:
         x, y = load_inputs(inputs, net)
     elif recipe is None:
@@ -62,4 +65,4 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     else:
         x, y = test_inputs(net, recipe, progress)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
-                          progress=progress)
+                          progress=progress, **opts)

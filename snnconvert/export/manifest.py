@@ -77,6 +77,12 @@ TABLE_FIELDS = {
     "csv": "the same values as CSV, the indices as columns then value (null when CSV output is off)",
     "intel_hex": "the same words as Intel HEX (one data record per word, record address = word address, type 04 records "
                  "for address bits 31..16, ceil(bits/8) bytes most significant first); null when not written",
+    "coe": "the same words as a Xilinx block-RAM coefficient file (radix 16, comma-separated, packed as `packing` "
+           "states); null when not written",
+    "mif": "the same words as an Intel memory initialisation file (DEPTH, WIDTH, hex address : data lines, packed as "
+           "`packing` states); null when not written",
+    "packing": "memory words of the .coe/.mif files: word_bits, lanes (table words per memory word; 1 = unpacked), "
+               "depth (memory words) and lane_order (lane 0 = least significant bits); null when not written",
     "npz_key": "key of the same array in tables.npz",
     "shape": "array shape; word address k is the row-major (last index fastest) position",
     "layout": "index order written out, e.g. [out_channel][in_channel][ky][kx]",

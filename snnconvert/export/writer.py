@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int, fail
+from snnconvert.export import fpga
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
@@ -73,18 +74,24 @@ def _check_inputs(net, x_int, labels, vectors):
 
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
                    recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
-                   progress: bool = True) -> Path:
+                   progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
     classes when `labels` are given) become golden vectors. vectors = 0 writes tables only.
     csv: also CSV tables and vector files; intel_hex: also an Intel HEX file per table.
+    coe_mif: also a Xilinx .coe and an Intel .mif block-RAM image per table, with `pack_bits` > 0
+    packing floor(pack_bits / bits) table words into one memory word (fpga.LANE_ORDER).
+    verilog: also the behavioural Verilog model and its self-checking testbench (export.verilog).
     An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
     a non-empty folder that holds no export is refused.
     """
     x, labels, vectors = _check_inputs(net, x_int, labels, vectors)
     csv = check_bool(csv, "csv", "export")
     intel_hex = check_bool(intel_hex, "intel_hex", "export")
+    coe_mif = check_bool(coe_mif, "coe_mif", "export")
+    pack_bits = check_int(pack_bits, "pack_bits", "export", 0, fpga.MAX_PACK_BITS)
+    verilog = check_bool(verilog, "verilog", "export")
     out = Path(out_dir)
     old_files = previous_export_files(out)
 
@@ -96,10 +103,15 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
         for kind, (spec, a) in tables.items():
             stem = f"{lid}_{TABLE_SUFFIX[kind]}"
             spec = dict(spec, file=f"{stem}.mem", csv=f"{stem}.csv" if csv else None,
-                        intel_hex=f"{stem}.hex" if intel_hex else None, npz_key=f"{lid}.{kind}")
+                        intel_hex=f"{stem}.hex" if intel_hex else None, npz_key=f"{lid}.{kind}",
+                        coe=None, mif=None, packing=None)
             try:
-                files[spec["file"]] = format_mem(a, spec["bits"], spec["signed"],
-                                                 mem_header(lid, net.layers[i].kind, kind, spec, spec["file"])).encode()
+                header = mem_header(lid, net.layers[i].kind, kind, spec, spec["file"])
+                files[spec["file"]] = format_mem(a, spec["bits"], spec["signed"], header).encode()
+                if coe_mif:
+                    names, images = fpga.table_images(stem, a, spec, header[:3], pack_bits)
+                    spec.update(names)
+                    files.update(images)
             except ValueError as exc:
                 raise ValueError(f"layer {lid}, table {kind}: {exc}") from None
             if csv:
