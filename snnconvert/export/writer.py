@@ -131,6 +131,10 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
         if csv:
             files.update(csv_files(net, arrays))
             vec_info.update(csv_folder="vectors", sample_folder="vectors/sample_NNNN (NNNN = sample, 4 digits)")
+    if verilog:
+        from snnconvert.export import verilog as verilog_mod
+        ids = [M.layer_id(i, L.name) for i, L in enumerate(net.layers)]
+        files.update(verilog_mod.sources(net, ids, specs, arrays if idx.size else {}))
     if recipe is not None:
         from snnconvert import recipe as recipe_mod
         files["recipe.toml"] = recipe_mod.dumps(recipe).encode()
