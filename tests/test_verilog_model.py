@@ -141,3 +141,22 @@ def test_model_rounds_exact_halves_up(tmp_path):
     z = np.load(out / "vectors.npz")
     assert z["L0_hid.events"][:, 3].tolist() == [3, 2, 1, 3]   # halves up, by hand: (5+1)>>1, (3+1)>>1, (1+1)>>1
     assert "PASS: 1 samples" in run_tb(out, tmp_path)
+
+
+def test_cli_export_verilog_and_packing(tmp_path, capsys):
+    from snnconvert.cli import main
+    net = small_net("ttfs")
+    net.save(tmp_path / "net")
+    x, y = small_inputs(3)
+    np.savez(tmp_path / "in.npz", x=x, y=y)
+    args = ["export", str(tmp_path / "net"), str(tmp_path / "out"), "--inputs", str(tmp_path / "in.npz"),
+            "--vectors", "2", "--no-csv", "--quiet"]
+    assert main(args + ["--pack-bits", "-1"]) == 2
+    assert capsys.readouterr().err == ("error: The 'pack_bits' parameter of export must be an int in [0, 4096]. "
+                                       "Got -1 instead.\n")
+    assert main(args + ["--verilog", "--pack-bits", "32"]) == 0
+    import json
+    man = json.loads((tmp_path / "out" / "manifest.json").read_text())
+    assert man["layers"][0]["tables"]["weight"]["packing"]["lanes"] == 8          # 32 // 4-bit weights
+    assert {"verilog/snn_model.v", "verilog/snn_tb.v"} <= set(man["files"])      # listed with their sha256
+    assert "PASS: 2 samples" in run_tb(tmp_path / "out", tmp_path)
