@@ -295,15 +295,21 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
     return n
 
 
-def verify(out_dir, progress: bool = True) -> VerifyResult:
-    """Check the export folder `out_dir`; see the module docstring. Raises UsageError/FormatError
-    (ValueError subclasses) when a file is missing or unreadable; returns the result otherwise."""
+def read_manifest(out_dir) -> tuple[Path, dict]:
+    """(folder, manifest object) of the export folder `out_dir`; UsageError/FormatError when absent or not an object."""
     folder = Path(out_dir)
     if not folder.is_dir():
         raise UsageError(f"export folder not found: {folder}")
     man = load_json(folder / MANIFEST)
     if not isinstance(man, dict):
         raise FormatError(f"{folder / MANIFEST}: not a manifest object")
+    return folder, man
+
+
+def verify(out_dir, progress: bool = True) -> VerifyResult:
+    """Check the export folder `out_dir`; see the module docstring. Raises UsageError/FormatError
+    (ValueError subclasses) when a file is missing or unreadable; returns the result otherwise."""
+    folder, man = read_manifest(out_dir)
     ck = _Checker(folder)
     files = man.get("files")
     if not isinstance(files, dict):

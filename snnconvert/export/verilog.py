@@ -406,16 +406,11 @@ def read_export(export_dir) -> tuple[IntNetwork, list[str], dict, dict]:
     """(network, layer ids, table specs, vector arrays) read from an export folder alone: the manifest
     and the memory files are checked as `verify` checks them, and the network is rebuilt from them."""
     from snnconvert.export import manifest as M
-    from snnconvert.export.verify import _Checker, _check_tables
+    from snnconvert.export.verify import _Checker, _check_tables, read_manifest
     from snnconvert.export.writer import MANIFEST
-    from snnconvert.files import load_json, load_npz, resolve_inside
+    from snnconvert.files import load_npz, resolve_inside
 
-    folder = Path(export_dir)
-    if not folder.is_dir():
-        raise UsageError(f"export folder not found: {folder}")
-    man = load_json(folder / MANIFEST)
-    if not isinstance(man, dict):
-        raise FormatError(f"{folder / MANIFEST}: not a manifest object")
+    folder, man = read_manifest(export_dir)
     try:
         tables = _check_tables(_Checker(folder), man)
         net = M.network_from_manifest(man, tables, name=str(folder / MANIFEST),
