@@ -6,15 +6,10 @@ integer network and to check their implementation event for event.
 
 from __future__ import annotations
 
-from snnconvert.schema import Key
+from snnconvert.settings.export import KEYS
 
-# Recipe section [export].
-SCHEMA: dict[str, Key] = {
-    "vectors": Key(16, "int", "16 samples exercise every class of a small test set yet keep the golden files small enough to diff by hand",
-                   lo=0, hi=100000),
-    "csv": Key(True, "bool", "CSV tables and per-layer vector files are what testbench scripts and spreadsheets read most easily"),
-    "intel_hex": Key(False, "bool", "off: $readmemh files serve every HDL simulator; Intel HEX only for tools that load ROMs from it"),
-}
+# Recipe section [export]: its keys are declared in snnconvert.settings.export.
+SCHEMA = KEYS
 
 from snnconvert.export.fromrun import export_from_run  # noqa: E402
 from snnconvert.export.manifest import LAYER_FIELDS, MANIFEST_FIELDS, TABLE_FIELDS  # noqa: E402
