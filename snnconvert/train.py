@@ -31,12 +31,10 @@ from snnconvert import console, files, models, plots
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import (FormatError, UsageError, check_bool, check_float, check_int, check_shape,
                                fail)
-from snnconvert.settings.train import KEYS
 
 CHECKPOINT_FORMAT = "snnconvert-checkpoint"
 CHECKPOINT_VERSION = 1
 
-SCHEMA = KEYS  # the [train] keys, declared in snnconvert.settings.train
 
 
 # ---------------------------------------------------------------- public API
