@@ -11,9 +11,9 @@ from snnconvert import arith
 from snnconvert.cli import main
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.export import LAYER_FIELDS, MANIFEST_FIELDS, TABLE_FIELDS, export_network
-from snnconvert.settings.export import KEYS
 from snnconvert.export import memfile as MF
 from snnconvert.intnet import IntLayer, IntNetwork
+from snnconvert.settings.export import KEYS
 
 torch.set_num_threads(2)
 

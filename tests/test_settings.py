@@ -158,3 +158,13 @@ def test_aware_training_is_redone_when_any_convert_setting_changes(tmp_path):
         run_.stage("train", lambda: None)
         fps.append(run_.fingerprints["train"])
     assert fps[0] != fps[1]
+
+
+def test_imports_run_one_way():
+    # the core never imports the CLI, and only the CLI imports the pipeline (report reads snnconvert.stages)
+    import re
+    pkg = ROOT / "snnconvert"
+    upward = re.compile(r"^\s*(from|import)\s+snnconvert(\.cli\b|\.pipeline\b|\s+import\s+.*\b(cli|pipeline)\b)", re.M)
+    offenders = [str(p.relative_to(ROOT)) for p in sorted(pkg.rglob("*.py"))
+                 if p.parent.name != "cli" and p.name != "__main__.py" and upward.search(p.read_text())]
+    assert offenders == []
