@@ -37,43 +37,16 @@ import numpy as np
 from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events import sensor as _sensor
-from snnconvert.events.formats import SUFFIXES, TIME_UNITS, read_events, write_events
+from snnconvert.events.formats import SUFFIXES, read_events, write_events
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
-from snnconvert.schema import Key
 
-SOURCES = ("digits", "idx", "recordings")
 CACHE_FORMAT = "snnconvert-recordings"
 CACHE_VERSION = 1
 # more than half of the frames empty: a classifier cannot learn from them, so the run stops
 # (a threshold or window set for other data); above a tenth it only warns
 MAX_EMPTY_FRACTION = 0.5
 WARN_EMPTY_FRACTION = 0.1
-# keys that were renamed: old name -> new name (recipe.from_dict reads the old name with a note)
-RENAMED = {"sensor_size": "sensor_side"}
 
-SCHEMA: dict[str, Key] = {
-    "source": Key("digits", "choice", "bundled with scikit-learn: runs offline with nothing to download",
-                  choices=SOURCES),
-    "stimulus": Key("flash", "choice", "a flash gives one clean ON burst per image, the simplest frame",
-                    choices=_sensor.STIMULI),
-    "sensor_side": Key(32, "int", "4x the 8x8 digits: enough pixels for smooth edges, small enough to simulate fast; "
-                       "also the side of recordings that store no sensor size (.bin)", lo=8, hi=1024),
-    "limit": Key(0, "int", "0 keeps every sample; tests set a small number to run in seconds", lo=0),
-    "val_fraction": Key(0.1, "float", "a small validation split for early stopping and calibration", lo=0.0, hi=0.5),
-    "test_fraction": Key(0.2, "float", "about 360 digits: one test error moves accuracy by under 0.3 points",
-                         lo=0.05, hi=0.5),
-    "idx_images": Key("", "path", "no default: IDX files are the user's own (relative to the recipe folder)"),
-    "idx_labels": Key("", "path", "no default: IDX files are the user's own (relative to the recipe folder)"),
-    "idx_mode": Key("sensor", "choice", "showing images to the sensor keeps IDX data comparable with recordings",
-                    choices=("sensor", "binarize")),
-    "binarize_level": Key(0.5, "float", "half of full scale: the usual cut for dark-on-light digit images",
-                          lo=0.0, hi=1.0),
-    "recordings_index": Key("", "path", "no default: a CSV `file,label` inside the user's recordings folder"),
-    "time_unit": Key("us", "choice", "recordings store integer microseconds; s or ms read float times in CSV and plain "
-                     "NPZ files", choices=TIME_UNITS),
-    "cache_dir": Key("", "path", "empty: $SNNCONVERT_CACHE or ~/.cache/snnconvert, shared between runs"),
-    **_sensor.SCHEMA,
-}
 
 
 # --- recordings held in memory ---------------------------------------------------------------
@@ -388,7 +361,7 @@ def load_frames_file(path, input_shape, input_q: int, n_classes: int, need_label
 def recording_frames(recs: RecordingSet, frames_section: dict, progress: bool = True):
     """(X (N, C, S, S) float32, windows (N, 2), used_rule (N,) bool) for a RecordingSet."""
     from snnconvert import frames as F
-    sec = {k: frames_section.get(k, key.default) for k, key in F.SCHEMA.items()}
+    sec = frames_section
     n = len(recs)
     wins = np.zeros((n, 2), np.int64)
     ok = np.zeros(n, bool)
@@ -433,19 +406,9 @@ def _subset(labels: np.ndarray, limit: int, seed: int) -> np.ndarray:
     return np.sort(keep)
 
 
-def data_section(recipe: dict) -> dict:
-    """The recipe's [data] section with every key filled (defaults) and renamed keys read under their
-    new name, also in recipes stored by earlier versions."""
-    given = dict(recipe.get("data", {}))
-    for old, new in RENAMED.items():
-        if old in given:
-            given.setdefault(new, given.pop(old))
-    return {k: given.get(k, key.default) for k, key in SCHEMA.items()}
-
-
 def load_recordings(recipe: dict, progress: bool = True) -> tuple[RecordingSet, list[str], dict]:
     """The recordings a recipe's [data] section describes, plus class names and facts for the report."""
-    sec = data_section(recipe)
+    sec = recipe["data"]
     seed = int(recipe.get("seed", 0))
     base = Path(recipe.get("_base_dir") or ".")
     config = _sensor.SensorConfig.from_section(sec)
@@ -550,8 +513,7 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     from sklearn.model_selection import train_test_split
     from snnconvert import frames as F
     seed = int(recipe.get("seed", 0))
-    dsec = data_section(recipe)
-    fsec = {k: recipe.get("frames", {}).get(k, key.default) for k, key in F.SCHEMA.items()}
+    dsec, fsec = recipe["data"], recipe["frames"]
     recs, classes, info = load_recordings(recipe, progress)
     X, wins, ok, lens = recording_frames(recs, fsec, progress)  # (N, C, S, S)
     check_frames(X, recs, lens, fsec, dsec)

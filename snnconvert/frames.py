@@ -20,31 +20,8 @@ import numpy as np
 from snnconvert import plots
 from snnconvert.errors import UsageError, check_choice, check_int
 from snnconvert.events.stream import EventStream
-from snnconvert.schema import Key
+from snnconvert.settings.frames import MODES
 
-MODES = ("binary", "count", "polarity")
-
-SCHEMA: dict[str, Key] = {
-    "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance",
-                  choices=("burst", "fixed", "count")),
-    "pick": Key("first", "choice", "the first burst of a flash is the onset: ON events of the whole shape",
-                choices=("first", "largest")),
-    "bin_us": Key(1000, "int", "1 ms rate bins resolve a flash onset that lasts a few ms", lo=1),
-    "relative": Key(True, "bool", "thresholds as multiples of the background rate adapt to each sensor"),
-    "upper": Key(8.0, "float", "a burst must stand well above background (x background, or events/s)", lo=0.0),
-    "lower": Key(2.0, "float", "hysteresis: a burst ends when the rate is back near background", lo=0.0),
-    "min_duration_us": Key(500, "int", "drops single-bin noise blips", lo=0),
-    "merge_gap_us": Key(2000, "int", "a brief dip inside one stimulus response does not split it", lo=0),
-    "window_us": Key(5000, "int", "fixed windows: a few ms holds one onset response", lo=1),
-    "window_events": Key(2000, "int", "count windows: about the events of one digit onset", lo=1),
-    "mode": Key("binary", "choice", "one spike per pixel suits single-spike networks (input_q = 1)",
-                choices=MODES),
-    "size": Key(16, "int", "half the 32-pixel sensor: keeps the digit shape, 4x fewer input neurons", lo=2, hi=1024),
-    "threshold": Key(16, "int", "binary: ~4 onset events per pixel of a 2x2 block keeps strokes at half brightness "
-                     "and above and drops the blurred rim (measured best of 4-24 on digits)", lo=1),
-    "max_count": Key(15, "int", "count/polarity: a 4-bit input payload; clips only the brightest 2x2 blocks",
-                     lo=1, hi=255),
-}
 
 
 def channels(mode: str) -> int:
@@ -115,23 +92,22 @@ def bin_window(stream: EventStream, t0: int, t1: int, mode: str = "binary", size
 
 
 def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
-    """All windows of `stream` by the [frames] section's window rule."""
+    """All windows of `stream` by the window rule of a resolved [frames] section (every key present)."""
     from snnconvert import windows as W
-    kind = section.get("window", SCHEMA["window"].default)
-    get = lambda k: section.get(k, SCHEMA[k].default)  # noqa: E731
+    kind = section["window"]
     if kind == "burst":
-        return W.bursts(stream, get("bin_us"), get("upper"), get("lower"), get("relative"),
-                        get("min_duration_us"), get("merge_gap_us"))
+        return W.bursts(stream, section["bin_us"], section["upper"], section["lower"], section["relative"],
+                        section["min_duration_us"], section["merge_gap_us"])
     if kind == "fixed":
-        return W.fixed_windows(stream, get("window_us"))
-    return W.count_windows(stream, get("window_events"))
+        return W.fixed_windows(stream, section["window_us"])
+    return W.count_windows(stream, section["window_events"])
 
 
 def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], bool]:
     """The window that makes a recording's frame, and whether it came from the rule (True) or the
     fallback (False): a recording where the rule finds no window uses all of its events."""
     from snnconvert import windows as W
-    chosen = W.pick(stream, windows_of(stream, section), section.get("pick", SCHEMA["pick"].default))
+    chosen = W.pick(stream, windows_of(stream, section), section["pick"])
     if chosen is not None:
         return chosen, True
     if len(stream):

@@ -21,14 +21,15 @@ from snnconvert import console
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
 from snnconvert.files import atomic_write_json, check_output_path, fingerprint, load_json
-
-STAGES = ["data", "train", "convert", "sweep", "export", "verify", "report"]
+from snnconvert.settings import Section
+from snnconvert.stages import STAGES
 STAGE_LOG_VERSION = 1
 
-# What each stage reads: recipe sections, and the stages whose results it consumes.
+# What each stage reads: recipe sections (their settings objects are its fingerprint), and the
+# stages whose results it consumes.
 _READS = {
     "data": (["data", "frames"], []),
-    "train": (["model", "train"], ["data"]),       # + the bit budget, when training is conversion-aware
+    "train": (["model", "train"], ["data"]),       # + [convert], when training is conversion-aware
     "convert": (["convert"], ["train"]),
     "sweep": (["sweep", "convert"], ["train"]),
     "export": (["export"], ["convert"]),
@@ -47,10 +48,12 @@ _OUTPUTS = {
 
 
 class Run:
-    """One run folder and its stage log."""
+    """One run folder and its stage log. `settings`: the recipe's checked sections ({section: settings
+    object}, from `recipe.load_settings`), built once and passed to every stage."""
 
-    def __init__(self, recipe: dict, out: Path, force: str | None = None):
+    def __init__(self, recipe: dict, settings: dict[str, Section], out: Path, force: str | None = None):
         self.recipe = recipe
+        self.settings = settings
         self.out = Path(out)
         self.force = force
         self.log_path = self.out / "stages.json"
@@ -77,9 +80,9 @@ class Run:
 
     def stage(self, name: str, fn) -> None:
         sections, deps = _READS[name]
-        reads = {s: self.recipe.get(s) for s in sections}
-        if name == "train" and self.recipe["train"]["aware"]:
-            reads["budget"] = {k: self.recipe["convert"][k] for k in ("weight_bits", "payload_bits", "per_channel")}
+        if name == "train" and self.settings["train"].aware:
+            sections = [*sections, "convert"]   # fine-tuning reads the [convert] settings it trains for
+        reads = {s: self.settings[s].as_dict() for s in sections}
         fp = fingerprint(name, self.recipe.get("seed"), reads,
                          [self.fingerprints[d] for d in deps if d in self.fingerprints])
         self.fingerprints[name] = fp
@@ -113,16 +116,16 @@ def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
     """Run the whole job for a recipe; returns the summary dict (also written to summary.json)."""
     if force is not None and force not in STAGES:
         raise UsageError(f"The 'force' parameter of run must be one of {', '.join(map(repr, STAGES))}. Got {force!r} instead.")
-    r = recipe_mod.load(recipe_path, overrides)
+    r, settings = recipe_mod.load_settings(recipe_path, overrides)
     out = check_output_path(out or default_out(r), "--out" if out else "", "folder")
     out.mkdir(parents=True, exist_ok=True)
     recipe_mod.save(r, out)
-    run_ = Run(r, out, force)
+    run_ = Run(r, settings, out, force)
 
     run_.stage("data", lambda: _data_stage(run_))
     run_.stage("train", lambda: _train_stage(run_))
     run_.stage("convert", lambda: _convert_stage(run_))
-    if r["sweep"]["enabled"]:
+    if settings["sweep"].enabled:
         run_.stage("sweep", lambda: _sweep_stage(run_))
     run_.stage("export", lambda: _export_stage(run_))
     run_.stage("verify", lambda: _verify_stage(run_))
@@ -198,14 +201,9 @@ def _train_stage(run_: Run) -> None:
     train(run_.recipe, run_.dataset(), run_.out / "train")
 
 
-def _convert_settings(r: dict) -> dict:
-    return dict(r["convert"])
-
-
 def _convert_stage(run_: Run) -> None:
-    from snnconvert.cli.convert import write_outputs
-    from snnconvert.convert import convert_checkpoint
-    net, metrics = convert_checkpoint(run_.out / "train", _convert_settings(run_.recipe))
+    from snnconvert.convert import convert_checkpoint, write_outputs
+    net, metrics = convert_checkpoint(run_.out / "train", run_.settings["convert"], dataset=run_.dataset())
     write_outputs(net, metrics, run_.recipe, run_.out / "net")
 
 
@@ -219,7 +217,7 @@ def _export_stage(run_: Run) -> None:
     target = run_.out / "export"
     if target.exists():  # an export of an older network, or one cut short by Ctrl-C: never mix the two
         shutil.rmtree(target)
-    export_from_run(run_.out / "net", target, run_.recipe)
+    export_from_run(run_.out / "net", target, run_.recipe, settings=run_.settings["export"], dataset=run_.dataset())
 
 
 def _verify_stage(run_: Run) -> None:

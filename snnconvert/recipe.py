@@ -1,17 +1,19 @@
-"""Recipes: one TOML file per experiment, strict, with defaults declared by the stages.
+"""Recipes: one TOML file per experiment, strict, with defaults declared once per section.
 
-A recipe has two top-level keys (`name`, `seed`) and one section per stage. Each stage module
-declares its section's keys in a module-level `SCHEMA: dict[str, schema.Key]`; this module only
-gathers them, so every section listed in SECTION_MODULES must exist (no silent skipping).
+A recipe has two top-level keys (`name`, `seed`) and one section per stage. Each section's keys
+live in its torch-free settings module (`snnconvert.settings.<section>`: `KEYS` and a frozen
+settings class); this module only gathers them, so parsing a recipe imports no stage and no torch.
 
-Resolution order: defaults < file < `--set section.key=value` overrides; then every value is
-validated with `Key.check`. The resolved recipe also carries `_base_dir` (the recipe's folder,
-for relative paths); keys starting with "_" are never written back to TOML.
+Resolution order: defaults < file < `--set section.key=value` overrides; then each section is
+checked once, by building its settings object (`load_settings` returns these objects too). The
+resolved recipe also carries `_base_dir` (the recipe's folder, for relative paths); keys starting
+with "_" are never written back to TOML.
 """
 
 from __future__ import annotations
 
 import copy
+import dataclasses
 import importlib
 import json
 import math
@@ -23,18 +25,7 @@ from typing import Any, Iterable
 from snnconvert import console, files
 from snnconvert.errors import FormatError, UsageError, closest, unknown_key_message
 from snnconvert.schema import Key
-
-# Section -> module declaring its SCHEMA. Order is the order of the job (and of the TOML file).
-SECTION_MODULES = {
-    "data": "snnconvert.data",
-    "frames": "snnconvert.frames",
-    "model": "snnconvert.models",
-    "train": "snnconvert.train",
-    "convert": "snnconvert.convert",
-    "sweep": "snnconvert.sweep",
-    "export": "snnconvert.export",
-}
-SECTIONS = tuple(SECTION_MODULES)
+from snnconvert.settings import SECTIONS, Section
 
 TOP_LEVEL = {
     "name": Key(None, "str", "the recipe file's stem: runs are named after the file unless told otherwise"),
@@ -43,27 +34,43 @@ TOP_LEVEL = {
 }
 
 
-def schemas() -> dict[str, dict[str, Key]]:
-    """{section: {key: Key}} gathered from every stage module; a missing module is an error."""
+def settings_types() -> dict[str, type[Section]]:
+    """{section: its settings class}, from the torch-free modules `snnconvert.settings.<section>`."""
     out = {}
-    for section, modname in SECTION_MODULES.items():
-        try:
-            mod = importlib.import_module(modname)
-        except ModuleNotFoundError as exc:
-            if exc.name == modname:
-                raise UsageError(f"recipe section [{section}] has no schema: module {modname} is not installed") from None
-            raise
-        schema = getattr(mod, "SCHEMA", None)
-        if not isinstance(schema, dict):
-            raise UsageError(f"recipe section [{section}] has no schema: {modname}.SCHEMA is missing")
-        out[section] = schema
+    for section in SECTIONS:
+        mod = _settings_module(section)
+        found = [v for v in vars(mod).values()
+                 if isinstance(v, type) and issubclass(v, Section) and v is not Section and v.SECTION == section]
+        out[section] = found[0] if found else _keys_only(section, mod)
     return out
 
 
+def _settings_module(section: str):
+    """`snnconvert.settings.<section>`; a section without one yet reads its stage module's `SCHEMA`."""
+    name = f"snnconvert.settings.{section}"
+    try:
+        return importlib.import_module(name)
+    except ModuleNotFoundError as exc:
+        if exc.name != name:
+            raise
+    return importlib.import_module(f"snnconvert.{section}")
+
+
+def _keys_only(section: str, mod) -> type[Section]:
+    """A settings class made from a module that declares only `KEYS` (or a stage module's `SCHEMA`)."""
+    keys = getattr(mod, "KEYS", None) or getattr(mod, "SCHEMA")
+    return dataclasses.make_dataclass(f"{section.title()}Settings", list(keys), bases=(Section,), frozen=True,
+                                      namespace={"SECTION": section, "KEYS": keys})
+
+
+def schemas() -> dict[str, dict[str, Key]]:
+    """{section: {key: Key}} for every section."""
+    return {section: cls.KEYS for section, cls in settings_types().items()}
+
+
 def renamed() -> dict[str, dict[str, str]]:
-    """{section: {old key: new key}} from each stage module's optional `RENAMED`."""
-    return {section: dict(getattr(importlib.import_module(modname), "RENAMED", {}))
-            for section, modname in SECTION_MODULES.items()}
+    """{section: {old key: new key}} from each settings module's optional `RENAMED`."""
+    return {section: dict(getattr(_settings_module(section), "RENAMED", {})) for section in SECTIONS}
 
 
 def _rename(section: str, table: dict, where: str) -> None:
@@ -82,7 +89,12 @@ def _rename(section: str, table: dict, where: str) -> None:
 
 
 def load(path, overrides: Iterable[str] = ()) -> dict:
-    """Read a recipe TOML file, fill defaults, apply `--set` overrides and validate.
+    """Read a recipe TOML file, fill defaults, apply `--set` overrides and validate (see `load_settings`)."""
+    return load_settings(path, overrides)[0]
+
+
+def load_settings(path, overrides: Iterable[str] = ()) -> tuple[dict, dict[str, Section]]:
+    """(recipe dict, {section: settings object}) of a recipe TOML file, each section checked once.
 
     Errors (all UsageError, one line): missing file (names the path), TOML syntax (file and
     line), unknown section/key (with the closest valid name), wrong type or range (the template).
@@ -96,14 +108,19 @@ def load(path, overrides: Iterable[str] = ()) -> dict:
         raise UsageError(f"{path}: invalid TOML: {exc}") from None
     except UnicodeDecodeError:
         raise UsageError(f"{path}: not a UTF-8 text file") from None
-    return from_dict(raw, overrides, base_dir=path.resolve().parent, name=path.stem, where=str(path))
+    return _resolve(raw, overrides, base_dir=path.resolve().parent, name=path.stem, where=str(path))
 
 
 def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str = "recipe",
               where: str = "the recipe") -> dict:
     """Resolve a recipe given as a dict (as parsed from TOML); see `load`. `where` names the recipe in
     notes about renamed keys."""
-    sch = schemas()
+    return _resolve(raw, overrides, base_dir, name, where)[0]
+
+
+def _resolve(raw: dict, overrides: Iterable[str], base_dir, name: str, where: str) -> tuple[dict, dict[str, Section]]:
+    types = settings_types()
+    sch = {section: cls.KEYS for section, cls in types.items()}
     raw = copy.deepcopy(raw)
     raw.pop("_base_dir", None)
     for key, value in raw.items():
@@ -130,12 +147,11 @@ def from_dict(raw: dict, overrides: Iterable[str] = (), base_dir=".", name: str 
     r: dict[str, Any] = {}
     r["name"] = TOP_LEVEL["name"].check(raw.get("name", name), "name", "the recipe")
     r["seed"] = TOP_LEVEL["seed"].check(raw.get("seed", TOP_LEVEL["seed"].default), "seed", "the recipe")
-    for section, keys in sch.items():
-        given = raw.get(section, {})
-        r[section] = {k: key.check(copy.deepcopy(given[k]) if k in given else copy.deepcopy(key.default), k, section)
-                      for k, key in keys.items()}
+    settings = {section: cls.from_section(raw.get(section, {})) for section, cls in types.items()}
+    for section, obj in settings.items():
+        r[section] = obj.as_dict()
     r["_base_dir"] = str(Path(base_dir).resolve())
-    return r
+    return r, settings
 
 
 EMBEDDED = "_embedded"   # marks a recipe read from inside a file; its value names the file

@@ -242,7 +242,7 @@ _STATUS = {"done": "done", "running": "started, not finished"}
 
 
 def _overview(run: Path) -> str:
-    from snnconvert.pipeline import STAGES
+    from snnconvert.stages import STAGES
     out = [f"<p>Run <strong>{_e(run_name(run))}</strong> in folder <code>{_e(run.resolve())}</code>.</p>"]
     stages = _json(run / "stages.json") or {}
     items = stages.get("stages", {})

@@ -1,8 +1,9 @@
-"""Recipe keys are declared by the stage that uses them.
+"""Recipe keys: each declared once, in the torch-free settings module of its section.
 
-Each stage module (data, frames, models, train, convert, sweep, export) has a module-level
-`SCHEMA: dict[str, Key]` for its recipe section. `snnconvert.recipe` gathers them, fills
-defaults, applies `--set` overrides and validates with `Key.check`. The README's recipe table
+Each module `snnconvert.settings.<section>` (data, frames, model, train, convert, sweep, export)
+has a module-level `KEYS: dict[str, Key]` and a settings class that checks every value with its
+Key. `snnconvert.recipe` gathers them, fills defaults, applies `--set` overrides and builds the
+settings objects. The README's recipe table
 is generated from the same declarations, so the documented default is the real one.
 """
 

@@ -12,7 +12,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import accuracy, split, trained  # noqa: E402
 
 from snnconvert import arith  # noqa: E402
-from snnconvert.convert import SCHEMA, convert, fold, folded_forward, parse_range_rule, settings_from  # noqa: E402
+from snnconvert.convert import ConvertSettings, convert, fold, folded_forward, parse_range_rule  # noqa: E402
+from snnconvert.settings.convert import KEYS  # noqa: E402
 from snnconvert.convert.calibrate import activation_ranges, calibration_subset, range_statistic  # noqa: E402
 from snnconvert.errors import UsageError  # noqa: E402
 from snnconvert.intnet import IntNetwork  # noqa: E402
@@ -66,10 +67,10 @@ def test_range_rule_parsing(text, parsed):
 
 
 def test_settings_fill_defaults_and_reject_unknown_keys():
-    s = settings_from({"weight_bits": 3})
-    assert s["weight_bits"] == 3 and s["payload_bits"] == SCHEMA["payload_bits"].default
+    s = ConvertSettings.from_section({"weight_bits": 3})
+    assert s.weight_bits == 3 and s.payload_bits == KEYS["payload_bits"].default
     with pytest.raises(UsageError, match=r"Unknown key 'weight_bit' in section \[convert\]. Did you mean 'weight_bits'"):
-        settings_from({"weight_bit": 3})
+        ConvertSettings.from_section({"weight_bit": 3})
 
 
 @pytest.mark.parametrize("kind", ["conv_max", "conv_avg"])

@@ -128,7 +128,7 @@ def test_every_convert_option_on_the_trained_default_model(trained_default):
         mode = ACCUMULATORS[i % 3]
         full = convert(model, xcal, weight_bits=pt[4], payload_bits=p, coding=coding, per_channel=pt[1],
                        calibration=pt[2], weight_scale=pt[3], input_q=int(ds.input_q),
-                       acc_limit_bits=0 if mode == "unlimited" else widths[pt],
+                       accumulator_bits=0 if mode == "unlimited" else widths[pt],
                        overflow="saturate" if mode == "unlimited" else mode)
         short = build(*pt, acc_bits=full.acc_limit_bits, overflow=full.overflow)
         for a, b_ in zip(full.layers, short.layers):

@@ -4,13 +4,14 @@ import numpy as np
 import pytest
 
 from snnconvert import data as D
+from snnconvert import recipe as R
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events import read_events
 
 
 def recipe(tmp_path, **data):
-    return {"name": "t", "seed": 3, "_base_dir": str(tmp_path),
-            "data": {"cache_dir": str(tmp_path / "cache"), **data}, "frames": {}}
+    return R.from_dict({"name": "t", "seed": 3, "data": {"cache_dir": str(tmp_path / "cache"), **data}},
+                       base_dir=tmp_path)
 
 
 def test_digits_facts():
@@ -107,7 +108,7 @@ def test_idx_dataset(tmp_path, mode, threshold):
     _idx_pair(tmp_path)
     r = recipe(tmp_path, source="idx", idx_images="img.idx", idx_labels="lab.idx", idx_mode=mode,
                val_fraction=0.0, test_fraction=0.25)
-    r["frames"] = {"threshold": threshold, "size": 8}
+    r["frames"].update(threshold=threshold, size=8)
     ds = D.load_dataset(r, progress=False)
     assert len(ds.train[1]) + len(ds.test[1]) == 60 and ds.input_shape == (1, 8, 8)  # the 60 images written, size 8
     if mode == "binarize":
@@ -166,7 +167,7 @@ def test_split_too_small_is_a_usage_error(tmp_path):
 
 
 def test_schema_defaults_pass_their_own_checks():
-    from snnconvert import frames as F
-    for sec, schema in (("data", D.SCHEMA), ("frames", F.SCHEMA)):
+    from snnconvert.settings import data as data_settings, frames as frames_settings
+    for sec, schema in (("data", data_settings.KEYS), ("frames", frames_settings.KEYS)):
         for k, key in schema.items():
             assert key.reason and key.check(key.default, k, sec) == key.default

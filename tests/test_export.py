@@ -10,9 +10,10 @@ import torch.nn.functional as F
 from snnconvert import arith
 from snnconvert.cli import main
 from snnconvert.errors import FormatError, UsageError
-from snnconvert.export import LAYER_FIELDS, MANIFEST_FIELDS, SCHEMA, TABLE_FIELDS, export_network
+from snnconvert.export import LAYER_FIELDS, MANIFEST_FIELDS, TABLE_FIELDS, export_network
 from snnconvert.export import memfile as MF
 from snnconvert.intnet import IntLayer, IntNetwork
+from snnconvert.settings.export import KEYS
 
 torch.set_num_threads(2)
 
@@ -338,8 +339,8 @@ def test_export_validates_inputs(tmp_path, x, labels, vectors, match):
 
 def test_schema_defaults_carry_reasons():
     # the project's defaults, as the README documents them (`--vectors 16`, CSV on, Intel HEX off)
-    assert SCHEMA["vectors"].default == 16 and SCHEMA["csv"].default is True and SCHEMA["intel_hex"].default is False
-    assert all(k.reason for k in SCHEMA.values())
+    assert KEYS["vectors"].default == 16 and KEYS["csv"].default is True and KEYS["intel_hex"].default is False
+    assert all(k.reason for k in KEYS.values())
 
 
 # ---------------------------------------------------------------- CLI

@@ -9,6 +9,7 @@ from hypothesis import strategies as st
 from snnconvert import frames as F
 from snnconvert.errors import UsageError
 from snnconvert.events import EventStream
+from snnconvert.settings.frames import FramesSettings
 
 
 def rand_stream(n=500, w=32, h=32, seed=0, t_max=10_000):
@@ -107,7 +108,7 @@ def test_validation(kw, match):
 
 def test_frame_window_falls_back_to_all_events():
     s = EventStream.from_arrays([0] * 5, [0, 1, 2, 3, 4], [0] * 5, [1] * 5, 8, 8)  # one instant: no burst
-    (a, b), ok = F.frame_window(s, {})
+    (a, b), ok = F.frame_window(s, FramesSettings.from_section({}).as_dict())
     assert not ok and (a, b) == (0, 1)  # hand-computed: all events, [t_first, t_last + 1) = [0, 1)
 
 

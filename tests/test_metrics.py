@@ -111,7 +111,7 @@ def test_aware_frame_model_is_named_and_the_float_model_is_kept_apart():
 def test_declared_width_separates_spike_from_quantized_accuracy():
     model = trained("mlp")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:256], weight_bits=6, payload_bits=4, coding="payload", acc_limit_bits=5, overflow="wrap")
+    net = convert(model, xtr[:256], weight_bits=6, payload_bits=4, coding="payload", accumulator_bits=5, overflow="wrap")
     m = measure(model, net, xte, yte, quiet=True)
     assert sum(m["overflows"].values()) > 0
     assert m["spike_accuracy"] < m["quantized_accuracy"]           # wrap-around flips signs of large potentials

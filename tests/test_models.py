@@ -7,9 +7,10 @@ from torch import nn
 
 from snnconvert import arith, models as M
 from snnconvert.errors import UsageError
+from snnconvert.settings.model import DEFAULT_LAYERS
 
 
-DEFAULT = M.DEFAULT_LAYERS
+DEFAULT = DEFAULT_LAYERS
 
 
 def test_default_model_structure_params_and_macs(capsys):

@@ -141,7 +141,7 @@ def test_float32_kernel_is_exact_just_below_its_bound():
 
 @pytest.mark.parametrize("mode", ["saturate", "wrap"])
 def test_injected_overflows_are_counted_per_layer(mode):
-    net, _, x, _ = _net("conv_max", "payload", 6, 4, acc_limit_bits=6, overflow=mode)
+    net, _, x, _ = _net("conv_max", "payload", 6, 4, accumulator_bits=6, overflow=mode)
     x = x[:120]
     free = simulate(net, x, limit=False)
     lim = simulate(net, x)

@@ -104,9 +104,10 @@ def _recordings_folder(folder, counts, threshold=1):
                                              np.ones(n, int), 8, 8), folder / f"r{i}.npz")
         lines.append(f"r{i}.npz,{i % 2}")
     (folder / "index.csv").write_text("\n".join(lines) + "\n")
-    return {"seed": 0, "_base_dir": str(folder), "data": {"source": "recordings", "recordings_index": "index.csv",
-                                                           "test_fraction": 0.2, "val_fraction": 0.0},
-            "frames": {"size": 8, "threshold": threshold, "window": "fixed", "window_us": 1}}
+    return R.from_dict({"seed": 0, "data": {"source": "recordings", "recordings_index": "index.csv",
+                                            "test_fraction": 0.2, "val_fraction": 0.0},
+                        "frames": {"size": 8, "threshold": threshold, "window": "fixed", "window_us": 1}},
+                       base_dir=folder)
 
 
 def test_empty_recordings_name_their_source(tmp_path):
@@ -121,9 +122,8 @@ def test_empty_recordings_name_their_source(tmp_path):
 def test_windows_without_events_name_the_window_keys(tmp_path):
     r = _recordings_folder(tmp_path, [3] * 4)
     recs, _, _ = D.load_recordings(r, progress=False)
-    fsec = {**{k: v.default for k, v in __import__("snnconvert.frames").frames.SCHEMA.items()}, **r["frames"]}
     # windows that hold none of the recordings' events (lens 0): the window rule is the key to change
-    assert D._empty_frames_advice(recs, np.zeros(4, np.int64), fsec, D.data_section(r)) == (
+    assert D._empty_frames_advice(recs, np.zeros(4, np.int64), r["frames"], r["data"]) == (
         "change frames.window (now 'fixed') or frames.pick (now 'first'): the median frame window holds 0 events")
 
 
@@ -344,7 +344,7 @@ def test_old_sensor_key_is_read_with_a_note(tmp_path, capsys):
     assert capsys.readouterr().err.splitlines()[-1] == ("note: --set data.sensor_size: data.sensor_size is now "
                                                         "called data.sensor_side; read as data.sensor_side")
     # a recipe stored by an earlier version inside a run folder reads the same
-    assert D.data_section({"data": {"sensor_size": 24}})["sensor_side"] == 24
+    assert R.from_embedded({"data": {"sensor_size": 24}}, "model.pt")["data"]["sensor_side"] == 24
 
 
 def test_old_and_new_sensor_key_together_are_refused(tmp_path, capsys):

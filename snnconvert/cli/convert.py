@@ -23,13 +23,9 @@ def add_arguments(p) -> None:
     p.add_argument("--out", metavar="NET_DIR", help="output folder (default: TRAIN_DIR/../net)")
 
 
-FLAGS = {"weight_bits": "weight_bits", "payload_bits": "payload_bits", "coding": "coding", "per_channel": "per_channel",
-         "calibration": "calibration", "input_clip": "input_clip", "accumulator_bits": "accumulator_bits", "overflow": "overflow"}
-
-
 def run(args) -> int:
     from snnconvert import console
-    from snnconvert.convert import convert_checkpoint, settings_from
+    from snnconvert.convert import ConvertSettings, convert_checkpoint, write_outputs
     from snnconvert.errors import UsageError
     from snnconvert.files import check_output_path
     from snnconvert.sim.metrics import format_table
@@ -41,19 +37,17 @@ def run(args) -> int:
         raise UsageError(f"{train_dir / 'model.pt'}: file not found (TRAIN_DIR must be a folder written by "
                          f"`snnconvert train`)")
     ckpt_recipe = _checkpoint_recipe(train_dir)
-    settings = dict(ckpt_recipe.get("convert", {}))
-    for flag, key in FLAGS.items():
-        v = getattr(args, flag)
-        if v is not None:
-            settings[key] = v
+    section = dict(ckpt_recipe["convert"])
+    # each option is named after its [convert] key; an option left out keeps the recipe's value
+    section.update({k: getattr(args, k) for k in ConvertSettings.KEYS if getattr(args, k, None) is not None})
     if args.coding == "binary" and args.payload_bits is None:
-        settings["payload_bits"] = 1       # the recipe's payload width belongs to its own coding
-    settings = settings_from(settings)
+        section["payload_bits"] = 1       # the recipe's payload width belongs to its own coding
+    settings = ConvertSettings.from_section(section)
     out = Path(args.out) if args.out else check_output_path(train_dir.resolve().parent / "net", "", "folder")
     net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
     if args.quiet:   # otherwise measure() has printed it already
         console.echo(format_table(metrics))
-    write_outputs(net, metrics, {**ckpt_recipe, "convert": settings}, out)
+    write_outputs(net, metrics, {**ckpt_recipe, "convert": settings.as_dict()}, out)
     console.echo(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
     return 0
 
@@ -62,17 +56,3 @@ def _checkpoint_recipe(train_dir: Path) -> dict:
     from snnconvert.train import load_checkpoint
     _, ckpt = load_checkpoint(train_dir / "model.pt")
     return dict(ckpt["recipe"])
-
-
-def write_outputs(net, metrics: dict, recipe: dict, out: Path) -> None:
-    """network.json/.npz, metrics.json, recipe.toml and confusion.png of one conversion, each atomic."""
-    from snnconvert import files
-    from snnconvert import recipe as recipe_mod
-    from snnconvert.train import plot_confusion
-    net.save(out)
-    files.atomic_write_json(out / "metrics.json", metrics)
-    recipe_mod.save(recipe, out)
-    classes = net.meta.get("classes") or [str(i) for i in range(net.n_classes)]
-    plot_confusion(metrics["confusion"], classes, out / "confusion.png",
-                   title=f"spike model ({net.coding}, k={net.weight_bits}, p={net.payload_bits}): "
-                         f"{100 * metrics['spike_accuracy']:.2f}%")

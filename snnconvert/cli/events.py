@@ -14,10 +14,11 @@ from snnconvert.errors import UsageError
 from snnconvert.events import parse_sensor, read_events
 from snnconvert.events.formats import TIME_UNITS
 from snnconvert.files import check_output_path
+from snnconvert.settings.frames import KEYS as FRAMES_KEYS
 
 HELP = "summarize an event recording: events, duration, rate, ON/OFF balance and bursts"
 
-_FS = F.SCHEMA
+_FS = FRAMES_KEYS
 
 
 def add_arguments(p) -> None:

@@ -6,7 +6,7 @@ HELP = "run every stage of a recipe: data, train, convert, sweep, export, verify
 
 
 def add_arguments(p) -> None:
-    from snnconvert.pipeline import STAGES
+    from snnconvert.stages import STAGES
     p.add_argument("recipe", metavar="RECIPE", help="recipe TOML file, e.g. recipes/default.toml")
     p.add_argument("--out", metavar="DIR", default=None, help="run folder (default: runs/<recipe name>)")
     p.add_argument("--set", dest="overrides", metavar="SECTION.KEY=VALUE", action="append", default=[],

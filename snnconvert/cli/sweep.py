@@ -48,8 +48,7 @@ def run(args) -> int:
     from snnconvert import data, train
     model, ckpt = train.load_checkpoint(path)
     recipe = ckpt["recipe"]
-    section = {k: key.default for k, key in sweep.SCHEMA.items()}
-    section.update(recipe.get("sweep") or {})
+    section = recipe["sweep"]   # a checked recipe: every key present
 
     def pick(value, key):
         return section[key] if value is None else value

@@ -32,11 +32,11 @@ from snnconvert import console
 from snnconvert.errors import FormatError, UsageError
 from snnconvert.events.stream import EventStream
 from snnconvert.files import atomic_write_bytes, load_npz
+from snnconvert.settings.data import TIME_UNITS
 
 FORMAT = "snnconvert-events"
 VERSION = 1
 SUFFIXES = (".npz", ".csv", ".bin")
-TIME_UNITS = ("us", "ms", "s")
 _US_PER_UNIT = {"us": 1, "ms": 1_000, "s": 1_000_000}
 WRAP_US = 1 << 23  # the 23-bit timestamp field of the 40-bit layout
 

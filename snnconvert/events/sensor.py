@@ -35,59 +35,35 @@ from scipy import ndimage
 
 from snnconvert.errors import UsageError, check_choice
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
-from snnconvert.schema import Key
+from snnconvert.settings.data import SENSOR_KEYS, STIMULI
 
-STIMULI = ("flash", "saccade")
 _CHUNK = 256  # images per vectorized pass: bounds memory, feeds the progress bar
 _EPS = 1e-9  # float slack so that an exact k*C step counts k crossings, not k-1
 
-# The sensor's recipe keys (section [data]); SensorConfig has one field per key.
-SCHEMA: dict[str, Key] = {
-    "contrast": Key(0.25, "float", "typical DVS contrast threshold, 0.1-0.5 natural-log units (from memory)",
-                    lo=0.01, hi=2.0),
-    "mismatch": Key(0.03, "float", "per-pixel threshold sigma relative to contrast; 2.1% is published for a "
-                    "128x128 sensor", lo=0.0, hi=0.5),
-    "refractory_us": Key(100, "int", "caps a pixel near 10 kHz, above its bandwidth (common practice)", lo=0),
-    "jitter_us": Key(50, "int", "timestamp noise of tens of us, typical of arbiters under load (from memory)", lo=0),
-    "noise_hz": Key(0.2, "float", "background activity of a fraction of an event per pixel per second "
-                    "(from memory)", lo=0.0),
-    "hot_pixels": Key(0, "int", "a clean sensor by default; raise it to test robustness", lo=0),
-    "hot_pixel_hz": Key(300.0, "float", "a hot pixel fires hundreds of times per second (from memory)", lo=0.0),
-    "dark_level": Key(0.2, "float", "screen black at 20% of white: up to 7 events per bright pixel at C=0.25",
-                      lo=0.001, hi=1.0),
-    "rise_us": Key(1000, "int", "a display and photoreceptor settle in about a millisecond (from memory)", lo=1),
-    "flash_delay_us": Key(10000, "int", "quiet lead-in so the background rate can be measured", lo=0),
-    "flash_on_us": Key(50000, "int", "keeps the ON and OFF bursts well apart", lo=1),
-    "flash_off_us": Key(30000, "int", "quiet tail after the OFF burst", lo=0),
-    "saccade_segments": Key(3, "int", "a triangle: the shortest closed path that moves every edge", lo=2, hi=16),
-    "saccade_segment_us": Key(30000, "int", "about the pace of small eye movements, tens of ms per segment", lo=1),
-    "saccade_amplitude": Key(2.0, "float", "a couple of sensor pixels: edges move, the shape stays put", lo=0.1),
-    "saccade_steps": Key(16, "int", "time samples per segment: sub-pixel motion per step", lo=2, hi=1000),
-}
 
 
 @dataclass(frozen=True)
 class SensorConfig:
-    contrast: float = SCHEMA["contrast"].default
-    mismatch: float = SCHEMA["mismatch"].default
-    refractory_us: int = SCHEMA["refractory_us"].default
-    jitter_us: int = SCHEMA["jitter_us"].default
-    noise_hz: float = SCHEMA["noise_hz"].default
-    hot_pixels: int = SCHEMA["hot_pixels"].default
-    hot_pixel_hz: float = SCHEMA["hot_pixel_hz"].default
-    dark_level: float = SCHEMA["dark_level"].default
-    rise_us: int = SCHEMA["rise_us"].default
-    flash_delay_us: int = SCHEMA["flash_delay_us"].default
-    flash_on_us: int = SCHEMA["flash_on_us"].default
-    flash_off_us: int = SCHEMA["flash_off_us"].default
-    saccade_segments: int = SCHEMA["saccade_segments"].default
-    saccade_segment_us: int = SCHEMA["saccade_segment_us"].default
-    saccade_amplitude: float = SCHEMA["saccade_amplitude"].default
-    saccade_steps: int = SCHEMA["saccade_steps"].default
+    contrast: float = SENSOR_KEYS["contrast"].default
+    mismatch: float = SENSOR_KEYS["mismatch"].default
+    refractory_us: int = SENSOR_KEYS["refractory_us"].default
+    jitter_us: int = SENSOR_KEYS["jitter_us"].default
+    noise_hz: float = SENSOR_KEYS["noise_hz"].default
+    hot_pixels: int = SENSOR_KEYS["hot_pixels"].default
+    hot_pixel_hz: float = SENSOR_KEYS["hot_pixel_hz"].default
+    dark_level: float = SENSOR_KEYS["dark_level"].default
+    rise_us: int = SENSOR_KEYS["rise_us"].default
+    flash_delay_us: int = SENSOR_KEYS["flash_delay_us"].default
+    flash_on_us: int = SENSOR_KEYS["flash_on_us"].default
+    flash_off_us: int = SENSOR_KEYS["flash_off_us"].default
+    saccade_segments: int = SENSOR_KEYS["saccade_segments"].default
+    saccade_segment_us: int = SENSOR_KEYS["saccade_segment_us"].default
+    saccade_amplitude: float = SENSOR_KEYS["saccade_amplitude"].default
+    saccade_steps: int = SENSOR_KEYS["saccade_steps"].default
 
     def __post_init__(self):
         for f in fields(self):
-            SCHEMA[f.name].check(getattr(self, f.name), f.name, "SensorConfig")
+            SENSOR_KEYS[f.name].check(getattr(self, f.name), f.name, "SensorConfig")
         if self.rise_us >= self.flash_on_us:
             raise UsageError(f"The 'rise_us' parameter of SensorConfig must be below flash_on_us "
                              f"({self.flash_on_us}). Got {self.rise_us} instead.")

@@ -14,6 +14,7 @@ import numpy as np
 from snnconvert import arith
 from snnconvert.errors import UsageError
 from snnconvert.intnet import IntNetwork
+from snnconvert.settings.export import ExportSettings
 
 
 def load_inputs(path, net: IntNetwork) -> tuple[np.ndarray, np.ndarray | None]:
@@ -22,25 +23,28 @@ def load_inputs(path, net: IntNetwork) -> tuple[np.ndarray, np.ndarray | None]:
     return load_frames_file(path, net.input_shape, net.input_q, net.n_classes, need_labels=False)
 
 
-def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True) -> tuple[np.ndarray, np.ndarray]:
-    """Test frames of the recipe's data set as input payloads: a0 = clamp(round(frame), 0, Q_in)."""
-    from snnconvert import data
-    ds = data.load_dataset(recipe, progress=progress)
-    x, y = ds.test                                                   # (N, C, H, W) float32, (N,)
+def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True, dataset=None) -> tuple[np.ndarray, np.ndarray]:
+    """Test frames of the recipe's data set (or of `dataset`, already loaded) as input payloads:
+    a0 = clamp(round(frame), 0, Q_in)."""
+    if dataset is None:
+        from snnconvert import data
+        dataset = data.load_dataset(recipe, progress=progress)
+    x, y = dataset.test                                                  # (N, C, H, W) float32, (N,)
     return arith.quantize_input(x, net.input_q).astype(np.int64), np.asarray(y, dtype=np.int64)
 
 
 def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int | None = None,
                     csv: bool | None = None, intel_hex: bool | None = None, inputs=None,
-                    progress: bool = True, coe_mif: bool | None = None, pack_bits: int | None = None,
-                    verilog: bool | None = None) -> Path:
+                    progress: bool = True, settings: ExportSettings | None = None, dataset=None,
+                    coe_mif: bool | None = None, pack_bits: int | None = None, verilog: bool | None = None) -> Path:
     """Export the network in `net_dir` to `out_dir`; returns the manifest path.
 
-    recipe: the resolved recipe (default: net_dir/recipe.toml). vectors/csv/intel_hex/coe_mif/pack_bits/
-    verilog: default from the recipe's [export] section. inputs: an NPZ path to use instead of the data set's test split.
+    recipe: the resolved recipe (default: net_dir/recipe.toml). settings: its checked [export] section
+    (default: built from the recipe). vectors/csv/intel_hex/coe_mif/pack_bits/verilog: None keeps the
+    setting. inputs: an NPZ path to use instead of the data set's test split. dataset: the recipe's
+    data set, if already loaded.
     """
     from snnconvert import recipe as recipe_mod
-    from snnconvert.export import SCHEMA
     from snnconvert.export.writer import export_network
 
     from snnconvert.export.writer import previous_export_files
@@ -50,19 +54,21 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
         raise UsageError(f"network folder {net_dir} holds no network.json (run `snnconvert convert` first)")
     net = IntNetwork.load(net_dir)
     if recipe is None and (net_dir / "recipe.toml").is_file():
-        recipe = recipe_mod.load(net_dir / "recipe.toml")
+        recipe, loaded = recipe_mod.load_settings(net_dir / "recipe.toml")
         recipe[recipe_mod.EMBEDDED] = str(net_dir / "recipe.toml")   # a file of the folder: it never chooses where files go
-    section = (recipe or {}).get("export", {})
-    vectors = section.get("vectors", SCHEMA["vectors"].default) if vectors is None else vectors
-    csv = section.get("csv", SCHEMA["csv"].default) if csv is None else csv
-    intel_hex = section.get("intel_hex", SCHEMA["intel_hex"].default) if intel_hex is None else intel_hex
-    opts = {k: section.get(k, SCHEMA[k].default) if v is None else v
+        settings = settings or loaded["export"]
+    if settings is None:
+        settings = ExportSettings.from_section(recipe["export"] if recipe is not None else {})
+    vectors = settings.vectors if vectors is None else vectors
+    csv = settings.csv if csv is None else csv
+    intel_hex = settings.intel_hex if intel_hex is None else intel_hex
+    opts = {k: getattr(settings, k) if v is None else v
             for k, v in (("coe_mif", coe_mif), ("pack_bits", pack_bits), ("verilog", verilog))}
     if inputs is not None:
         x, y = load_inputs(inputs, net)
     elif recipe is None:
         raise UsageError(f"{net_dir / 'recipe.toml'} is missing, so the test data is unknown; give --inputs FILE.npz")
     else:
-        x, y = test_inputs(net, recipe, progress)
+        x, y = test_inputs(net, recipe, progress, dataset)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
                           progress=progress, **opts)

@@ -1,0 +1,3 @@
+"""The stages of a run, in order: the one list `pipeline` runs and `report` shows (neither imports the other)."""
+
+STAGES = ["data", "train", "convert", "sweep", "export", "verify", "report"]
