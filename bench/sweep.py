@@ -68,8 +68,9 @@ def main(argv: list[str] | None = None) -> dict:
         for rep in range(args.repeats):  # interleaved, best of each: other processes' load hits both alike
             for jobs in (1, 2):
                 t0 = time.perf_counter()
-                results[jobs] = sweep.run_sweep(train_dir, args.weight_bits, args.payload_bits, jobs=jobs,
-                                                out_dir=tmp / f"jobs{jobs}-{rep}", progress=False)
+                settings = sweep.SweepSettings.from_section(
+                    {"weight_bits": args.weight_bits, "payload_bits": args.payload_bits, "jobs": jobs})
+                results[jobs] = sweep.run_sweep(train_dir, settings, tmp / f"jobs{jobs}-{rep}", progress=False)
                 times[jobs].append(time.perf_counter() - t0)
                 phase[jobs].append(results[jobs].seconds["points"])
         times = {j: min(t) for j, t in times.items()}

@@ -209,7 +209,7 @@ def _convert_stage(run_: Run) -> None:
 
 def _sweep_stage(run_: Run) -> None:
     from snnconvert.sweep import run_from_recipe
-    run_from_recipe(run_.out / "train", run_.recipe, run_.out / "sweep")
+    run_from_recipe(run_.out / "train", run_.recipe, run_.out / "sweep", dataset=run_.dataset())
 
 
 def _export_stage(run_: Run) -> None:

@@ -13,7 +13,6 @@ with "_" are never written back to TOML.
 from __future__ import annotations
 
 import copy
-import dataclasses
 import importlib
 import json
 import math
@@ -41,26 +40,16 @@ def settings_types() -> dict[str, type[Section]]:
         mod = _settings_module(section)
         found = [v for v in vars(mod).values()
                  if isinstance(v, type) and issubclass(v, Section) and v is not Section and v.SECTION == section]
-        out[section] = found[0] if found else _keys_only(section, mod)
+        if len(found) != 1:
+            raise UsageError(f"recipe section [{section}] needs exactly one settings class in {mod.__name__}; "
+                             f"found {len(found)}")
+        out[section] = found[0]
     return out
 
 
 def _settings_module(section: str):
-    """`snnconvert.settings.<section>`; a section without one yet reads its stage module's `SCHEMA`."""
-    name = f"snnconvert.settings.{section}"
-    try:
-        return importlib.import_module(name)
-    except ModuleNotFoundError as exc:
-        if exc.name != name:
-            raise
-    return importlib.import_module(f"snnconvert.{section}")
-
-
-def _keys_only(section: str, mod) -> type[Section]:
-    """A settings class made from a module that declares only `KEYS` (or a stage module's `SCHEMA`)."""
-    keys = getattr(mod, "KEYS", None) or getattr(mod, "SCHEMA")
-    return dataclasses.make_dataclass(f"{section.title()}Settings", list(keys), bases=(Section,), frozen=True,
-                                      namespace={"SECTION": section, "KEYS": keys})
+    """`snnconvert.settings.<section>`: the section's keys and settings class, without torch."""
+    return importlib.import_module(f"snnconvert.settings.{section}")
 
 
 def schemas() -> dict[str, dict[str, Key]]:

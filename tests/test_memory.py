@@ -25,8 +25,8 @@ GIB = 2**30
     (8, 100 * 2**20, 1),       # less than one worker's memory: still one process (this one)
 ])
 def test_automatic_job_count_is_bounded_by_cpus_and_memory(monkeypatch, cpus, memory, want):
-    monkeypatch.setattr(sweep, "usable_cpus", lambda: cpus)
-    monkeypatch.setattr(sweep, "available_memory", lambda: memory)
+    monkeypatch.setattr(sweep.executor, "usable_cpus", lambda: cpus)
+    monkeypatch.setattr(sweep.executor, "available_memory", lambda: memory)
     assert sweep.resolve_jobs(0) == sweep.resolve_jobs(None) == want
     assert sweep.resolve_jobs(5) == 5          # an explicit count is the user's choice
 

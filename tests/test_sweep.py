@@ -4,6 +4,7 @@ These tests drive the sweep with a small deterministic point function so the boo
 checked exactly; tests/test_sweep_real.py runs the real conversion on a trained checkpoint.
 """
 
+import copy
 import csv
 import json
 from types import SimpleNamespace
@@ -13,6 +14,7 @@ import pytest
 import torch
 
 from snnconvert import sweep
+from snnconvert.sweep import figures
 from snnconvert.errors import FormatError, UsageError
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
@@ -64,18 +66,19 @@ def test_codings_rejects(value):
 ])
 def test_schema_rejects(key, value, message):
     with pytest.raises(UsageError, match=message):
-        sweep.SCHEMA[key].check(value, key, "sweep")
+        sweep.KEYS[key].check(value, key, "sweep")
 
 
 def test_schema_defaults_are_valid_and_explained():
-    for key, k in sweep.SCHEMA.items():
+    for key, k in sweep.KEYS.items():
         k.check(k.default, key, "sweep")
         assert k.reason and "\n" not in k.reason
 
 
 def test_points_order_and_binary_collapse():
     # grid order: coding, then weight bits, then payload bits; a binary spike carries 1 bit, so binary keeps p=1 only
-    pts = sweep.make_points("2-3", "1-3", ["payload", "binary"])
+    pts = sweep.make_points(sweep.SweepSettings.from_section(
+        {"weight_bits": "2-3", "payload_bits": "1-3", "codings": ["payload", "binary"]}))
     assert [(p["coding"], p["weight_bits"], p["payload_bits"]) for p in pts] == [
         ("payload", 2, 1), ("payload", 2, 2), ("payload", 2, 3), ("payload", 3, 1), ("payload", 3, 2),
         ("payload", 3, 3), ("binary", 2, 1), ("binary", 3, 1)]
@@ -140,11 +143,20 @@ def _context(data_fp="d1", seed=0):
     return model, ckpt, ds
 
 
-def _run(tmp_path, ctx=None, **kw):
-    args = dict(weight_bits="2-4", payload_bits="1-2", jobs=1, out_dir=tmp_path / "sw", progress=False,
-                point_fn=fake_point, context=ctx or _context())
-    args.update(kw)
-    return sweep.run_sweep(tmp_path / "train", **args)
+def _settings(**kw):
+    return sweep.SweepSettings.from_section({"weight_bits": "2-4", "payload_bits": "1-2", "jobs": 1, **kw})
+
+
+def _inputs(tmp_path, ctx, settings):
+    """The inputs of a sweep as a caller builds them: the checkpoint's recipe with this [sweep] section."""
+    model, ckpt, ds = ctx or _context()
+    return sweep.Inputs(tmp_path / "train", model, ckpt, ds, {**ckpt["recipe"], "sweep": settings.as_dict()})
+
+
+def _run(tmp_path, ctx=None, point_fn=fake_point, executor=None, **kw):
+    settings = _settings(**kw)
+    return sweep.run_sweep(_inputs(tmp_path, ctx, settings), settings, tmp_path / "sw", executor=executor,
+                           point_fn=point_fn, progress=False)
 
 
 def test_outputs_and_recommendation(tmp_path):
@@ -160,6 +172,9 @@ def test_outputs_and_recommendation(tmp_path):
         assert (out / name).read_bytes()[:8] == PNG_SIGNATURE
     assert json.loads((out / "recommendation.json").read_text())["format"] == sweep.RECOMMENDATION_FORMAT
     assert "[sweep]" in (out / "recipe.toml").read_text()
+    # the recipe saved beside the outputs is the one the sweep was given, unchanged
+    from snnconvert import recipe
+    assert recipe.dumps(_inputs(tmp_path, None, _settings()).recipe) == (out / "recipe.toml").read_text()
     lines = (out / "results.jsonl").read_text().splitlines()
     # first grid point w=2, p=1: fake_point's spikes_per_layer is [p, w] = [1, 2]
     assert len(lines) == 6 and json.loads(lines[0])["metrics"]["spikes_per_layer"] == [1, 2]
@@ -252,6 +267,45 @@ def test_parallel_run_keeps_finished_points_when_one_fails(tmp_path):
     assert res.computed == 3 - len(logged) and [r["params"]["weight_bits"] for r in res.records] == [2, 3, 4]
     again = _run(tmp_path / "again", jobs=1, weight_bits="2-4", payload_bits="1")
     assert [(r["params"], r["metrics"]) for r in res.records] == [(r["params"], r["metrics"]) for r in again.records]
+
+
+class ReversedInProcess:
+    """The smallest executor: every point in this process, the last first (results may come in any order)."""
+
+    def __init__(self):
+        self.ran = []
+
+    def start(self):
+        pass
+
+    def map_points(self, task, points):
+        for p in reversed(points):
+            self.ran.append(p["key"])
+            yield task(p)
+
+
+def test_executor_seam_any_engine_gives_the_pool_results(tmp_path):
+    mine = ReversedInProcess()
+    res = _run(tmp_path / "mine", executor=mine)
+    pool = _run(tmp_path / "pool", executor=sweep.LocalPool(2))
+    assert len(mine.ran) == 6 and sorted(mine.ran) == sorted(r["key"] for r in res.records)
+    logged = [json.loads(x)["key"] for x in (tmp_path / "mine" / "sw" / "results.jsonl").read_text().splitlines()]
+    assert logged == mine.ran                                  # each point logged as it comes back
+    assert [r["key"] for r in res.records] == [r["key"] for r in pool.records]   # grid order either way
+    assert [(r["params"], r["metrics"]) for r in res.records] == [(r["params"], r["metrics"]) for r in pool.records]
+    for name in ("sweep.csv", "recommendation.json"):
+        assert (tmp_path / "mine" / "sw" / name).read_bytes() == (tmp_path / "pool" / "sw" / name).read_bytes()
+
+
+def test_the_given_recipe_is_saved_unchanged(tmp_path):
+    settings = _settings(codings="")                   # empty: the [convert] coding is swept
+    inputs = _inputs(tmp_path, None, settings)
+    before = copy.deepcopy(inputs.recipe)
+    res = sweep.run_sweep(inputs, settings, tmp_path / "sw", point_fn=fake_point, progress=False)
+    assert {r["params"]["coding"] for r in res.records} == {"payload"}
+    assert inputs.recipe == before
+    from snnconvert import recipe
+    assert recipe.dumps(before) == (tmp_path / "sw" / "recipe.toml").read_text()   # codings stays []
 
 
 # --- plots ---------------------------------------------------------------------------------
@@ -352,7 +406,7 @@ def test_pareto_zooms_to_the_tolerance_band_and_labels_points():
 
 @pytest.mark.parametrize("x, text", [(30000, "30k"), (200000, "200k"), (1.5e6, "1.5M"), (500, "500")])
 def test_tick_labels_without_exponents(x, text):
-    assert sweep._si(x) == text
+    assert figures._si(x) == text
 
 
 def test_several_codings_add_latency_and_energy(tmp_path):

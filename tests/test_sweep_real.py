@@ -42,15 +42,20 @@ def trained(tmp_path_factory):
     return root / "train", ds
 
 
+def _settings(**kw):
+    return sweep.SweepSettings.from_section(kw)
+
+
 def _keyed(result):
     return {r["key"]: r["metrics"] for r in result.records}
 
 
 def test_one_and_two_jobs_give_identical_results(trained, tmp_path):
     train_dir, ds = trained
-    kw = dict(weight_bits="2,4", payload_bits="1,3", codings=["payload", "ttfs"], progress=False)
-    one = sweep.run_sweep(train_dir, jobs=1, out_dir=tmp_path / "one", **kw)
-    two = sweep.run_sweep(train_dir, jobs=2, out_dir=tmp_path / "two", **kw)
+    grid = dict(weight_bits="2,4", payload_bits="1,3", codings=["payload", "ttfs"])
+    inputs = sweep.load_inputs(train_dir, dataset=ds)
+    one = sweep.run_sweep(inputs, _settings(jobs=1, **grid), tmp_path / "one", progress=False)
+    two = sweep.run_sweep(inputs, _settings(jobs=2, **grid), tmp_path / "two", progress=False)
     assert one.computed == two.computed == 8            # 2 weight x 2 payload widths x 2 codings
     assert _keyed(one) == _keyed(two)
     assert (tmp_path / "one" / "sweep.csv").read_bytes() == (tmp_path / "two" / "sweep.csv").read_bytes()
@@ -63,11 +68,20 @@ def test_one_and_two_jobs_give_identical_results(trained, tmp_path):
             assert pay["spike_accuracy"] == tt["spike_accuracy"]
 
 
-def test_frame_accuracy_matches_scikit_learn(trained, tmp_path):
+def test_frame_accuracy_matches_scikit_learn(trained, tmp_path, monkeypatch):
     from sklearn.metrics import accuracy_score
-    from snnconvert import train
+    from snnconvert import data, recipe, train
     train_dir, ds = trained
-    res = sweep.run_sweep(train_dir, "3", "2", jobs=1, out_dir=tmp_path / "s", progress=False)
+    _, ckpt = train.load_checkpoint(train_dir)
+    given = {**ckpt["recipe"], "sweep": _settings(weight_bits="3", payload_bits="2", jobs=1).as_dict()}
+
+    def no_second_load(*args, **kw):
+        raise AssertionError("the sweep loaded the data set again")
+
+    monkeypatch.setattr(data, "load_dataset", no_second_load)
+    res = sweep.run_from_recipe(train_dir, given, tmp_path / "s", progress=False, dataset=ds)  # the pipeline's call
+    monkeypatch.undo()
+    assert recipe.dumps(given) == (tmp_path / "s" / "recipe.toml").read_text()   # saved as given
     model, _ = train.load_checkpoint(train_dir)
     with torch.no_grad():
         pred = model(torch.as_tensor(ds.test[0])).argmax(1).numpy()  # (N,)
@@ -103,9 +117,11 @@ def test_killed_sweep_process_resumes_without_loss(trained, tmp_path):
     after = _lines(out / "results.jsonl")
     assert after[:len(before)] == before
     keys = [json.loads(x)["key"] for x in after]
-    assert sorted(keys) == sorted(p["key"] for p in sweep.make_points("2-7", "1-5", ["payload"]))
+    grid = sweep.make_points(_settings(weight_bits="2-7", payload_bits="1-5"))
+    assert sorted(keys) == sorted(p["key"] for p in grid)
     # points from before and after the kill match a sweep run in one go
-    fresh = _keyed(sweep.run_sweep(train_dir, "2,7", "1,5", jobs=1, out_dir=tmp_path / "fresh", progress=False))
+    fresh = _keyed(sweep.run_sweep(train_dir, _settings(weight_bits="2,7", payload_bits="1,5", jobs=1),
+                                   tmp_path / "fresh", progress=False))
     resumed = {json.loads(x)["key"]: json.loads(x)["metrics"] for x in after}
     assert {k: resumed[k] for k in fresh} == fresh
     assert json.loads(before[0])["key"] == "payload/w2/p1/per-tensor/post-training"
@@ -141,14 +157,13 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
 def test_aware_point_fine_tunes_from_the_float_checkpoint(trained, tmp_path):
     from snnconvert import train
     train_dir, _ = trained
-    res = sweep.run_sweep(train_dir, "3", "2", aware=True, aware_epochs=1, jobs=1, out_dir=tmp_path / "aw",
-                          progress=False)
+    aware = _settings(weight_bits="3", payload_bits="2", aware=True, aware_epochs=1, jobs=1)
+    res = sweep.run_sweep(train_dir, aware, tmp_path / "aw", progress=False)
     (rec,) = res.records
     assert rec["key"] == "payload/w3/p2/per-tensor/aware1"
     _, ckpt = train.load_checkpoint(train_dir)
     # the recommendation compares with the float checkpoint, not with the fine-tuned model
     assert res.frame_accuracy == ckpt["metrics"]["frame_accuracy"]
     assert 0.0 <= rec["metrics"]["spike_accuracy"] <= 1.0 and rec["metrics"]["max_spikes_per_neuron"] <= 1
-    again = sweep.run_sweep(train_dir, "3", "2", aware=True, aware_epochs=1, jobs=1, out_dir=tmp_path / "aw2",
-                            progress=False)
+    again = sweep.run_sweep(train_dir, aware, tmp_path / "aw2", progress=False)
     assert again.records[0]["metrics"] == rec["metrics"]  # seeded: the same fine-tuning twice

@@ -29,13 +29,12 @@ def run(args) -> int:
     from snnconvert.errors import UsageError
     from snnconvert.files import check_output_path
 
-    # Grid typos are reported before the checkpoint and the data set are loaded.
-    for value, name, rng in ((args.weight_bits, "weight_bits", sweep.WEIGHT_BITS_RANGE),
-                             (args.payload_bits, "payload_bits", sweep.PAYLOAD_BITS_RANGE)):
-        if value is not None:
-            sweep.parse_grid(value, name, "sweep", *rng)
-    if args.coding:
-        sweep.parse_codings(",".join(args.coding))
+    given = {"weight_bits": args.weight_bits, "payload_bits": args.payload_bits,
+             "codings": ",".join(args.coding) if args.coding else None, "per_channel": args.per_channel,
+             "aware": args.aware, "aware_epochs": args.aware_epochs, "jobs": args.jobs,
+             "tolerance_pp": args.tolerance_pp}
+    given = {k: v for k, v in given.items() if v is not None}
+    flags = sweep.SweepSettings.from_section(given)   # typos are reported before the model and data load
     if args.out:
         check_output_path(args.out, "--out", "folder")
     path = Path(args.train_dir)
@@ -45,23 +44,16 @@ def run(args) -> int:
     log = (Path(args.out) if args.out else base.parent / "sweep") / "results.jsonl"
     if log.is_file():
         sweep.read_results(log)   # a damaged result line is named before the model and data are loaded
-    from snnconvert import data, train
+    from snnconvert import train
     model, ckpt = train.load_checkpoint(path)
-    recipe = ckpt["recipe"]
-    section = recipe["sweep"]   # a checked recipe: every key present
-
-    def pick(value, key):
-        return section[key] if value is None else value
-
-    codings = ",".join(args.coding) if args.coding else section["codings"]
-    sweep.start_workers(pick(args.jobs, "jobs"))  # workers start while the data set loads
-    context = (model, ckpt, data.load_dataset(recipe, progress=not args.quiet))
-    train.check_checkpoint_fits(model, ckpt, context[2], path)
-    result = sweep.run_sweep(
-        path, pick(args.weight_bits, "weight_bits"), pick(args.payload_bits, "payload_bits"), codings,
-        per_channel=pick(args.per_channel, "per_channel"), aware=pick(args.aware, "aware"),
-        aware_epochs=pick(args.aware_epochs, "aware_epochs"), jobs=pick(args.jobs, "jobs"), out_dir=args.out,
-        tolerance_pp=pick(args.tolerance_pp, "tolerance_pp"), progress=not args.quiet, context=context)
+    section = dict(ckpt["recipe"].get("sweep") or {})
+    section.update({k: getattr(flags, k) for k in given})
+    settings = sweep.SweepSettings.from_section(section)
+    recipe = {**ckpt["recipe"], "sweep": settings.as_dict()}   # the recipe of this sweep, saved beside it
+    executor = sweep.local_executor(settings.jobs)
+    executor.start()  # workers start while the data set loads
+    inputs = sweep.load_inputs(path, checkpoint=(model, ckpt), recipe=recipe, progress=not args.quiet)
+    result = sweep.run_sweep(inputs, settings, args.out, executor=executor, progress=not args.quiet)
     rows = sweep.table_rows(result.records, result.frame_accuracy, result.tolerance_pp)
     console.echo(sweep.format_table(rows, result.recommendation))
     console.echo(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
