@@ -155,6 +155,68 @@ def quantize_bias(b: np.ndarray, w_scale: np.ndarray, in_scale: float) -> np.nda
     return round_half_even(x)
 
 
+# ---- torch twins of the offline quantization, for conversion-aware training ----------------
+# Each grid is computed in float64 exactly as its numpy form computes it, so the aware model trains
+# on the very integers the converter stores (same s_w, W, B); the fake-quantized value W * s is
+# then formed in the weight's dtype.
+# Gradients pass straight through the rounding (Bengio et al. 2013); scales are not learned.
+# torch is imported inside them only, so arith still imports with numpy alone.
+
+def weight_scale_torch(w, bits: int, per_channel: bool, rule: str = "max", percentile: float = 99.99,
+                       floor: float | None = None):
+    """`weight_scale` of a torch weight tensor, as a float64 tensor (O,): the numpy rule applied to
+    the detached values, so both forms give the same scale bit for bit."""
+    import torch
+    return torch.from_numpy(weight_scale(w.detach().cpu().double().numpy(), bits, per_channel, rule, percentile,
+                                         floor))
+
+
+def quantize_weights_torch(w, scale, bits: int):
+    """`quantize_weights` of a torch weight tensor: W = clamp(round_half_even(w / s_w[o]), -qmax, qmax),
+    the same float64 division and rounding, as a float64 tensor of integers (no gradient)."""
+    import torch
+    s = torch.as_tensor(scale, dtype=torch.float64).reshape((-1,) + (1,) * (w.dim() - 1))
+    qm = weight_max(bits)
+    return torch.clamp(torch.round(w.detach().double() / s), -qm, qm)
+
+
+def fake_quantize_weights_torch(w, scale, bits: int):
+    """w_q = W * s_w[o] in w's dtype, W = `quantize_weights_torch`; d w_q / d w = 1 (straight through).
+
+    The product is formed in w's dtype, like torch.fake_quantize_per_channel_affine."""
+    import torch
+    s = torch.as_tensor(scale, dtype=torch.float64).reshape((-1,) + (1,) * (w.dim() - 1))
+    wq = quantize_weights_torch(w, scale, bits).to(w.dtype) * s.to(w.dtype)
+    return w + (wq - w).detach()
+
+
+def quantize_bias_torch(b, w_scale, in_scale: float):
+    """`quantize_bias` of a torch bias: B = round_half_even(b / (s_w[o] * s_in)) in float64, as a float64
+    tensor of integers (no gradient). No range check: the converter refuses |B| >= 2^62."""
+    import torch
+    s_acc = torch.as_tensor(w_scale, dtype=torch.float64) * float(in_scale)
+    return torch.round(b.detach().double() / s_acc)
+
+
+def fake_quantize_bias_torch(b, w_scale, in_scale: float):
+    """b_q = B * s_acc[o] in b's dtype, s_acc = s_w * s_in, B = `quantize_bias_torch`; straight through."""
+    import torch
+    s_acc = torch.as_tensor(w_scale, dtype=torch.float64) * float(in_scale)
+    bq = quantize_bias_torch(b, w_scale, in_scale).to(b.dtype) * s_acc.to(b.dtype)
+    return b + (bq - b).detach()
+
+
+def payload_grid(u, q: int):
+    """a = clamp(round_half_even(u), 0, Q) with u = x / s: the payload grid of an activation.
+
+    numpy: float64 integers. torch: u's dtype, and the rounding passes gradients straight through
+    (the clamp does not: zero outside 0..Q), as the clip-and-quantize activation needs."""
+    if _is_torch(u):
+        torch = _torch()
+        return torch.clamp(u + (torch.round(u) - u).detach(), 0, int(q))
+    return np.clip(np.rint(np.asarray(u, dtype=np.float64)), 0, int(q))
+
+
 def fixed_point_multiplier(m: np.ndarray, bits: int = 16, acc_bits: int | None = None
                            ) -> tuple[np.ndarray, np.ndarray]:
     """Split each real multiplier M >= 0 into integers (M0, n) with M ~ M0 * 2^-n, n >= 1.

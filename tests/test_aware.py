@@ -5,6 +5,7 @@ import torch
 
 from snnconvert import models as M
 from snnconvert import train as T
+from snnconvert.convert.calibrate import hidden_ranges
 from snnconvert.errors import UsageError
 from test_train import digits_frames, small_recipe
 
@@ -34,7 +35,7 @@ def float_run(ds, tmp_path_factory):
 def _naive(model, ds, wb, pb):
     """Post-training fake quantization at the same budget, with calibrated clip ranges, no fine-tuning."""
     folded = M.fold_batchnorm(model).eval()
-    act = M.activation_ranges(folded, ds.train[0], 99.9)
+    act = hidden_ranges(folded, ds.train[0], "percentile", 99.9)
     return M.make_aware(folded, wb, pb, False, act_max=act).eval()
 
 
