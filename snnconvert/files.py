@@ -61,14 +61,20 @@ def atomic_write_json(path, obj: Any) -> Path:
     return atomic_write_text(path, json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n")
 
 
-def atomic_save_npz(path, **arrays) -> Path:
-    """Uncompressed NPZ written atomically. Object arrays are refused (files are data, never code)."""
+def npz_bytes(arrays: dict) -> bytes:
+    """Uncompressed NPZ in memory; zip members carry numpy's fixed date, so equal arrays give equal bytes.
+    Object arrays are refused (files are data, never code)."""
     for k, a in arrays.items():
         if np.asarray(a).dtype == object:
             raise TypeError(f"array '{k}' has dtype object; NPZ artifacts hold plain numeric arrays only")
     buf = io.BytesIO()
     np.savez(buf, **arrays)
-    return atomic_write_bytes(path, buf.getvalue())
+    return buf.getvalue()
+
+
+def atomic_save_npz(path, **arrays) -> Path:
+    """Uncompressed NPZ (`npz_bytes`) written atomically."""
+    return atomic_write_bytes(path, npz_bytes(arrays))
 
 
 def atomic_torch_save(obj, path) -> Path:

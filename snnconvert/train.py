@@ -332,25 +332,8 @@ def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int
 
 
 def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
-    """PNG of a confusion matrix (rows = true class, columns = predicted), counts written in cells."""
-    plt = plots.pyplot()
-    cm = np.asarray(cm)
-    n = cm.shape[0]
-    fig, ax = plt.subplots(figsize=(1.2 + 0.45 * n, 1.0 + 0.45 * n), dpi=100)
-    ax.imshow(cm, cmap="Blues")
-    hi = cm.max() if cm.size else 0
-    for i in range(n):
-        for j in range(cm.shape[1]):
-            if cm[i, j]:
-                ax.text(j, i, str(int(cm[i, j])), ha="center", va="center", fontsize=8,
-                        color="white" if cm[i, j] > hi / 2 else "black")
-    labels = [str(c) for c in classes]
-    ax.set_xticks(range(cm.shape[1]), labels[:cm.shape[1]])
-    ax.set_yticks(range(n), labels[:n])
-    ax.set_xlabel("predicted")
-    ax.set_ylabel("true")
-    ax.set_title(title, fontsize=9)
-    return plots.save_png(fig, path)
+    """PNG file of a confusion matrix (`plots.confusion_figure`), written atomically."""
+    return plots.save_png(plots.confusion_figure(cm, classes, title), path)
 
 
 def plot_curves(history: list[dict], path, title: str = "training") -> Path:

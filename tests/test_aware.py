@@ -71,7 +71,8 @@ def test_train_with_aware_flag_writes_an_aware_checkpoint(float_run, ds, tmp_pat
     r = small_recipe("train.aware=true", "train.aware_epochs=1", "convert.weight_bits=4", "convert.payload_bits=3",
                      "convert.per_channel=true")
     aware, m = T.train(r, ds, tmp_path, init=out, quiet=True)
-    assert m["aware"] == {"weight_bits": 4, "payload_bits": 3, "per_channel": True, "learn_act_max": True}
+    assert m["aware"] == {"weight_bits": 4, "payload_bits": 3, "per_channel": True, "learn_act_max": True,
+                          "weight_scale": "max"}
     assert m["epochs"] == 0 and m["aware_epochs"] == 1
     assert m["float_frame_accuracy"] == pytest.approx(fm["frame_accuracy"])
     raw = torch.load(tmp_path / "model.pt", weights_only=True)
