@@ -4,7 +4,7 @@
 `quantized_forward` re-exported here) needs torch, so those names load it on first use only.
 """
 
-__all__ = ["SimResult", "simulate", "quantized_forward"]
+__all__ = ["SimResult", "quantized_forward", "simulate"]
 
 
 def __getattr__(name):
