@@ -27,13 +27,9 @@ Time-to-first-spike form of the same value (falling threshold):
 from __future__ import annotations
 
 import math
+import sys
 
 import numpy as np
-
-try:  # torch is a hard dependency of the package, but keep this module importable alone
-    import torch
-except ImportError:  # pragma: no cover
-    torch = None
 
 ROUNDING_WORDS = ("requantize the potential with an integer multiply and an arithmetic right shift; "
                   "exact halves round up (towards +infinity); clamp to 0..Q")
@@ -50,7 +46,16 @@ ZERO_RANGE = 1.0
 WORD_BITS = 64
 
 
+def _torch():
+    """The torch module if something has imported it already, else None.
+
+    arith never imports torch itself: it runs with numpy alone (checking an export needs no
+    torch), and a tensor can only exist once torch is loaded, so looking it up is enough."""
+    return sys.modules.get("torch")
+
+
 def _is_torch(x) -> bool:
+    torch = _torch()
     return torch is not None and isinstance(x, torch.Tensor)
 
 
@@ -121,6 +126,7 @@ def channel_ranges(r, floor: float | None = None):
     numpy (float64) or torch, like `r`; the rule of `weight_scale`, shared with the training twin."""
     f = CHANNEL_RANGE_FLOOR if floor is None else float(floor)
     if _is_torch(r):
+        torch = _torch()
         top = r.max()
         return torch.where(top > 0, torch.maximum(r, f * top), torch.full_like(r, ZERO_RANGE))
     r = np.asarray(r, dtype=np.float64)
@@ -147,6 +153,68 @@ def quantize_bias(b: np.ndarray, w_scale: np.ndarray, in_scale: float) -> np.nda
     if not np.all(np.abs(x) < 2.0 ** (WORD_BITS - 2)):
         raise ValueError(f"bias at the accumulator's scale reaches {np.max(np.abs(x)):.3g}, beyond 2^62")
     return round_half_even(x)
+
+
+# ---- torch twins of the offline quantization, for conversion-aware training ----------------
+# Each grid is computed in float64 exactly as its numpy form computes it, so the aware model trains
+# on the very integers the converter stores (same s_w, W, B); the fake-quantized value W * s is
+# then formed in the weight's dtype.
+# Gradients pass straight through the rounding (Bengio et al. 2013); scales are not learned.
+# torch is imported inside them only, so arith still imports with numpy alone.
+
+def weight_scale_torch(w, bits: int, per_channel: bool, rule: str = "max", percentile: float = 99.99,
+                       floor: float | None = None):
+    """`weight_scale` of a torch weight tensor, as a float64 tensor (O,): the numpy rule applied to
+    the detached values, so both forms give the same scale bit for bit."""
+    import torch
+    return torch.from_numpy(weight_scale(w.detach().cpu().double().numpy(), bits, per_channel, rule, percentile,
+                                         floor))
+
+
+def quantize_weights_torch(w, scale, bits: int):
+    """`quantize_weights` of a torch weight tensor: W = clamp(round_half_even(w / s_w[o]), -qmax, qmax),
+    the same float64 division and rounding, as a float64 tensor of integers (no gradient)."""
+    import torch
+    s = torch.as_tensor(scale, dtype=torch.float64).reshape((-1,) + (1,) * (w.dim() - 1))
+    qm = weight_max(bits)
+    return torch.clamp(torch.round(w.detach().double() / s), -qm, qm)
+
+
+def fake_quantize_weights_torch(w, scale, bits: int):
+    """w_q = W * s_w[o] in w's dtype, W = `quantize_weights_torch`; d w_q / d w = 1 (straight through).
+
+    The product is formed in w's dtype, like torch.fake_quantize_per_channel_affine."""
+    import torch
+    s = torch.as_tensor(scale, dtype=torch.float64).reshape((-1,) + (1,) * (w.dim() - 1))
+    wq = quantize_weights_torch(w, scale, bits).to(w.dtype) * s.to(w.dtype)
+    return w + (wq - w).detach()
+
+
+def quantize_bias_torch(b, w_scale, in_scale: float):
+    """`quantize_bias` of a torch bias: B = round_half_even(b / (s_w[o] * s_in)) in float64, as a float64
+    tensor of integers (no gradient). No range check: the converter refuses |B| >= 2^62."""
+    import torch
+    s_acc = torch.as_tensor(w_scale, dtype=torch.float64) * float(in_scale)
+    return torch.round(b.detach().double() / s_acc)
+
+
+def fake_quantize_bias_torch(b, w_scale, in_scale: float):
+    """b_q = B * s_acc[o] in b's dtype, s_acc = s_w * s_in, B = `quantize_bias_torch`; straight through."""
+    import torch
+    s_acc = torch.as_tensor(w_scale, dtype=torch.float64) * float(in_scale)
+    bq = quantize_bias_torch(b, w_scale, in_scale).to(b.dtype) * s_acc.to(b.dtype)
+    return b + (bq - b).detach()
+
+
+def payload_grid(u, q: int):
+    """a = clamp(round_half_even(u), 0, Q) with u = x / s: the payload grid of an activation.
+
+    numpy: float64 integers. torch: u's dtype, and the rounding passes gradients straight through
+    (the clamp does not: zero outside 0..Q), as the clip-and-quantize activation needs."""
+    if _is_torch(u):
+        torch = _torch()
+        return torch.clamp(u + (torch.round(u) - u).detach(), 0, int(q))
+    return np.clip(np.rint(np.asarray(u, dtype=np.float64)), 0, int(q))
 
 
 def fixed_point_multiplier(m: np.ndarray, bits: int = 16, acc_bits: int | None = None
@@ -215,6 +283,7 @@ def check_requantize_range(acc_bits: int, m0, n, q: int | None = None, ttfs: boo
 def _value_bits(v) -> int:
     """Signed width of the values of an int64 array: the least b with -2^(b-1) <= V < 2^(b-1)."""
     if _is_torch(v):
+        torch = _torch()
         if v.dtype != torch.int64:
             raise TypeError(f"requantize needs int64 potentials; got {v.dtype}")
         lo, hi = (int(v.min()), int(v.max())) if v.numel() else (0, 0)
@@ -264,6 +333,7 @@ def ttfs_crosses(v, m0, n, q: int, t: int, channel_axis: int = 1):
 def encode_time(a, q: int):
     """Spike step of a payload in ttfs coding: t = Q - a for a > 0, and -1 (no spike) for a = 0."""
     if _is_torch(a):
+        torch = _torch()
         return torch.where(a > 0, int(q) - a, torch.full_like(a, -1))
     a = np.asarray(a)
     return np.where(a > 0, int(q) - a, -1)
@@ -272,6 +342,7 @@ def encode_time(a, q: int):
 def decode_time(t, q: int):
     """Payload carried by a spike at step t: a = Q - t; no spike (-1) decodes to 0."""
     if _is_torch(t):
+        torch = _torch()
         return torch.where(t >= 0, int(q) - t, torch.zeros_like(t))
     t = np.asarray(t)
     return np.where(t >= 0, int(q) - t, 0)
@@ -304,6 +375,7 @@ def limit_accumulator(v, bits: int, mode: str):
 def argmax_first(v, axis: int = -1):
     """Decision readout: index of the largest potential; ties go to the lowest index."""
     if _is_torch(v):
+        torch = _torch()
         # torch.argmax does not promise the first index on ties; compute it explicitly
         mx = v.max(dim=axis, keepdim=True).values
         idx = torch.arange(v.shape[axis]).reshape([-1 if d == (axis % v.ndim) else 1 for d in range(v.ndim)])
@@ -314,6 +386,7 @@ def argmax_first(v, axis: int = -1):
 
 def _per_channel(v, m0, n, axis):
     if _is_torch(v):
+        torch = _torch()
         m0 = torch.as_tensor(np.asarray(m0), dtype=torch.int64)
         n = torch.as_tensor(np.asarray(n), dtype=torch.int64)
     else:
@@ -329,6 +402,7 @@ def _per_channel(v, m0, n, axis):
 def _shl(base: int, shift, like):
     """base << shift for scalar base and array shift, in the array library of `like`."""
     if _is_torch(like):
+        torch = _torch()
         return torch.as_tensor(base, dtype=torch.int64) << shift
     return np.left_shift(np.int64(base), shift)
 
@@ -340,6 +414,7 @@ def quantize_input(x, q: int):
     NaN frames are refused. Returns int64 (numpy or torch, like `x`).
     """
     if _is_torch(x):
+        torch = _torch()
         if torch.isnan(x).any():
             raise ValueError("frames contain NaN")
         return torch.round(x.double()).clamp(0, int(q)).to(torch.int64)
@@ -360,6 +435,7 @@ def requantize_float(v, m0, n, q: int, channel_axis: int = 1):
     shape = [1] * v.ndim
     shape[channel_axis] = -1
     if _is_torch(v):
+        torch = _torch()
         m0b = torch.as_tensor(np.asarray(m0, dtype=np.float64)).reshape(shape)
         sc = torch.as_tensor(np.ldexp(1.0, -np.asarray(n, dtype=np.int64))).reshape(shape)
         half = torch.as_tensor(np.ldexp(1.0, np.asarray(n, dtype=np.int64) - 1)).reshape(shape)

@@ -195,8 +195,8 @@ def simulate_cached(images: np.ndarray, labels: np.ndarray, stimulus: str, confi
 
     The cache file is looked for in `folder`, then in `read_also`; a new one is written to `folder` only.
     """
-    key = _digest(CACHE_VERSION, images.astype(np.float32), labels, stimulus, sorted(config.as_dict().items()),
-                  int(seed))
+    key = files.fingerprint(CACHE_VERSION, images.astype(np.float32), labels, stimulus,
+                            sorted(config.as_dict().items()), int(seed), nested=False)
     path = Path(folder) / f"recordings-{key}.npz"
     h, w = images.shape[1:]
     if not path.is_file() and read_also is not None and (Path(read_also) / path.name).is_file():
@@ -236,23 +236,6 @@ def _check_cache_arrays(z: dict, n: int, w: int, h: int) -> None:
         raise ValueError(f"offsets must rise from 0 to {size} over {n} recordings")
     if size and (z["x"].max() >= w or z["y"].max() >= h or z["p"].min() < -1 or z["p"].max() > 1):
         raise ValueError(f"events must lie on the {w}x{h} sensor with polarity -1, 0 or 1")
-
-
-def _digest(*items) -> str:
-    """16 hex digits of SHA-256 over arrays (dtype, shape, bytes) and the repr of everything else.
-
-    Kept here rather than files.fingerprint so that loading data never imports torch.
-    """
-    import hashlib
-    h = hashlib.sha256()
-    for item in items:
-        if isinstance(item, np.ndarray):
-            a = np.ascontiguousarray(item)
-            h.update(f"nd{a.dtype.str}{a.shape}".encode())
-            h.update(a.tobytes())
-        else:
-            h.update(repr(item).encode())
-    return h.hexdigest()[:16]
 
 
 # --- recordings folder -----------------------------------------------------------------------
@@ -544,7 +527,7 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     if len(X) and info["empty_frames"] > WARN_EMPTY_FRACTION * len(X):
         console.say(f"warning: {info['empty_frames']} of {len(X)} frames are empty; "
                     f"{_empty_frames_advice(recs, lens, fsec, dsec)}")
-    fp = _digest(X, y, tr, va, te, classes)
+    fp = files.fingerprint(X, y, tr, va, te, classes, nested=False)
     return Dataset(train=split(tr), val=split(va), test=split(te), classes=classes, input_shape=tuple(X.shape[1:]),
                    input_q=F.input_q(fsec["mode"], fsec["max_count"]), fingerprint=fp, info=info, recordings=recs,
                    windows=wins, split_index={"train": tr, "val": va, "test": te})

@@ -13,6 +13,7 @@ import json
 import os
 import pickle
 import re
+import sys
 import tempfile
 import warnings
 import zipfile
@@ -60,14 +61,20 @@ def atomic_write_json(path, obj: Any) -> Path:
     return atomic_write_text(path, json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n")
 
 
-def atomic_save_npz(path, **arrays) -> Path:
-    """Uncompressed NPZ written atomically. Object arrays are refused (files are data, never code)."""
+def npz_bytes(arrays: dict) -> bytes:
+    """Uncompressed NPZ in memory; zip members carry numpy's fixed date, so equal arrays give equal bytes.
+    Object arrays are refused (files are data, never code)."""
     for k, a in arrays.items():
         if np.asarray(a).dtype == object:
             raise TypeError(f"array '{k}' has dtype object; NPZ artifacts hold plain numeric arrays only")
     buf = io.BytesIO()
     np.savez(buf, **arrays)
-    return atomic_write_bytes(path, buf.getvalue())
+    return buf.getvalue()
+
+
+def atomic_save_npz(path, **arrays) -> Path:
+    """Uncompressed NPZ (`npz_bytes`) written atomically."""
+    return atomic_write_bytes(path, npz_bytes(arrays))
 
 
 def atomic_torch_save(obj, path) -> Path:
@@ -198,32 +205,37 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
-def fingerprint(*items: Any) -> str:
-    """A short stable hash of arrays, tensors, dicts and scalars (by value, not identity)."""
+def fingerprint(*items: Any, nested: bool = True) -> str:
+    """16 hex digits of SHA-256 over arrays, tensors, dicts and scalars (by value, not identity).
+
+    Arrays hash as dtype, shape and bytes; anything else as its repr. nested=True walks dicts
+    (by sorted key), lists and tuples item by item, so arrays inside them hash by value;
+    nested=False hashes top-level containers by their repr (the data set fingerprint and the
+    recordings cache key use that form, so stored checkpoints and caches keep matching).
+    Tensors are hashed as their numpy values; torch is never imported here: a tensor can only
+    exist once torch is loaded.
+    """
     h = hashlib.sha256()
     for item in items:
-        _feed(h, item)
+        _feed(h, item, nested)
     return h.hexdigest()[:16]
 
 
-def _feed(h, item) -> None:
-    try:
-        import torch
-        if isinstance(item, torch.Tensor):
-            item = item.detach().cpu().numpy()
-    except ImportError:  # pragma: no cover
-        pass
+def _feed(h, item, nested: bool = True) -> None:
+    torch = sys.modules.get("torch")
+    if torch is not None and isinstance(item, torch.Tensor):
+        item = item.detach().cpu().numpy()
     if isinstance(item, np.ndarray):
         a = np.ascontiguousarray(item)
         h.update(f"nd{a.dtype.str}{a.shape}".encode())
         h.update(a.tobytes())
-    elif isinstance(item, dict):
+    elif nested and isinstance(item, dict):
         h.update(b"{")
         for k in sorted(item, key=str):
             _feed(h, str(k))
             _feed(h, item[k])
         h.update(b"}")
-    elif isinstance(item, (list, tuple)):
+    elif nested and isinstance(item, (list, tuple)):
         h.update(b"[")
         for x in item:
             _feed(h, x)

@@ -133,24 +133,14 @@ class IntNetwork:
         arrays = load_npz(folder / "network.npz")
         if not isinstance(meta["layers"], list):
             fail("layers", str(path), "a list of layer objects", repr(type(meta["layers"]).__name__), "field", FormatError)
-        layers = []
         for i, d in enumerate(meta["layers"]):
             if not isinstance(d, dict):
                 fail(f"layers[{i}]", str(path), "a layer object", repr(d), "field", FormatError)
-            kw = {k: arrays.get(f"L{i}.{k}") for k in ("weight", "bias", "m0", "shift")}
-            layers.append(IntLayer(
-                name=d["name"], kind=d["kind"], in_shape=d["in_shape"], out_shape=d["out_shape"],
-                kernel=d["kernel"], stride=d["stride"], padding=d["padding"],
-                q_in=d["q_in"], q_out=d["q_out"], is_output=d["is_output"],
-                acc_bits=d["acc_bits"], info=d.get("info", {}), **kw))
-        net = cls(layers=layers, input_shape=meta["input_shape"], input_q=meta["input_q"],
-                  coding=meta["coding"], payload_bits=meta["payload_bits"],
-                  weight_bits=meta["weight_bits"], per_channel=meta["per_channel"],
-                  n_classes=meta["n_classes"], multiplier_bits=meta["multiplier_bits"],
-                  acc_limit_bits=meta["acc_limit_bits"], overflow=meta["overflow"], meta=meta.get("meta", {}))
-        if not isinstance(net.meta, dict):
-            fail("meta", str(path), "an object", repr(net.meta), "field", FormatError)
-        check_network(net, str(path), str(folder / "network.npz"))
+        if not isinstance(meta.get("meta", {}), dict):
+            fail("meta", str(path), "an object", repr(meta["meta"]), "field", FormatError)
+        layers = meta["layers"]
+        net = network_from_fields(meta, layers, [{k: arrays.get(f"L{i}.{k}") for k in ARRAYS} for i in range(len(layers))],
+                                  str(path), str(folder / "network.npz"), meta=meta.get("meta", {}))
         unknown = sorted(set(arrays) - {f"L{i}.{k}" for i in range(len(layers)) for k in ARRAYS})
         if unknown:
             raise FormatError(f"{folder / 'network.npz'}: array {unknown[0]!r} belongs to no layer of {path}")
@@ -168,6 +158,30 @@ MULTIPLIER_BITS = (2, 31)
 ACC_LIMIT_BITS = (0, 62)
 MAX_SHIFT = 62          # V * M0 + 2^(n-1) stays an int64 shift
 MAX_Q = 1 << 24         # largest payload or pooled sum a layer may declare
+
+
+# The network-wide fields of network.json (and of IntNetwork), and those of each layer.
+NETWORK_ATTRS = ("input_shape", "input_q", "coding", "payload_bits", "weight_bits", "per_channel", "n_classes",
+                  "multiplier_bits", "acc_limit_bits", "overflow")
+LAYER_ATTRS = ("name", "kind", "in_shape", "out_shape", "kernel", "stride", "padding", "q_in", "q_out",
+                "is_output", "acc_bits")
+
+
+def network_from_fields(fields: dict, layers: list[dict], arrays: list[dict], owner: str, arrays_owner: str,
+                        name=None, array_name=None, meta: dict | None = None) -> IntNetwork:
+    """The one builder of an IntNetwork read from a file: network.json and an export's manifest both
+    call it with their fields in network.json's spelling.
+
+    fields: NETWORK_ATTRS; layers: one dict of LAYER_ATTRS (and optionally "info") per layer;
+    arrays: one {weight, bias, m0, shift} dict per layer (missing = None). Every value then goes
+    through `check_network`, whose messages name fields with `name` and arrays with `array_name`
+    (default: network.json's and network.npz's spelling). A missing field raises KeyError; the
+    callers turn it into a FormatError naming their file.
+    """
+    built = [IntLayer(**{k: d[k] for k in LAYER_ATTRS}, info=d.get("info", {}),
+                      **{k: a.get(k) for k in ARRAYS}) for d, a in zip(layers, arrays)]
+    net = IntNetwork(layers=built, **{k: fields[k] for k in NETWORK_ATTRS}, meta=meta if meta is not None else {})
+    return check_network(net, owner, arrays_owner, name or _json_name, array_name or _npz_name)
 
 
 def _json_name(field: str, layer: int | None) -> str:

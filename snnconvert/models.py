@@ -219,20 +219,17 @@ def fold_batchnorm(model: nn.Sequential) -> nn.Sequential:
 
 # ---------------------------------------------------------------- conversion-aware modules
 
-def _round_ste(u: torch.Tensor) -> torch.Tensor:
-    """round half to even forward, identity gradient (straight-through; Bengio et al. 2013)."""
-    return u + (torch.round(u) - u).detach()
-
-
 class ClipQuant(nn.Module):
     """y = s * clamp(round(x * (1/s)), 0, L),  s = a_max / L,  L = levels = 2^p - 1.
 
     The ReLU of a conversion-aware model: clip to [0, a_max] then quantize to L levels, so the
-    float model sees exactly the payload grid of the spike network (clip-floor activation,
-    Bu et al. 2022; straight-through gradients, Bengio et al. 2013). With learn=True, a_max
-    gets the gradient of the clip (1 above a_max) and of the rounding residual (in range).
-    a_max is kept >= 1e-6 in the forward pass so the scale never reaches zero. Rounding is half to
-    even on x * (1/s) in float32, exactly like torch.fake_quantize_per_tensor_affine(x, s, 0, 0, L).
+    float model sees exactly the payload grid of the spike network (`arith.payload_grid`;
+    clip-floor activation, Bu et al. 2022; straight-through gradients, Bengio et al. 2013). With
+    learn=True, a_max gets the gradient of the clip (1 above a_max) and of the rounding residual
+    (in range). a_max is kept >= 1e-6 in the forward pass so the scale never reaches zero; a_max = 0
+    (the start value of a layer that calibration found dead) therefore passes nothing but values
+    below 1e-6. Rounding is half to even on x * (1/s) in float32, exactly like
+    torch.fake_quantize_per_tensor_affine(x, s, 0, 0, L).
     """
 
     def __init__(self, a_max: float = 1.0, levels: int = 1, learn: bool = True):
@@ -242,94 +239,81 @@ class ClipQuant(nn.Module):
 
     def forward(self, x):
         s = self.a_max.clamp_min(1e-6) / self.levels
-        q = torch.clamp(_round_ste(x * (1.0 / s)), 0, self.levels)
-        return q * s
+        return arith.payload_grid(x * (1.0 / s), self.levels) * s
 
     def extra_repr(self) -> str:
         return f"levels={self.levels}, a_max={float(self.a_max):.4g}, learn={self.a_max.requires_grad}"
 
 
-def weight_scale_of(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
-    """s_w per output channel, shape (O,): max|w| / (2^(k-1)-1) over the layer or each channel,
-    ranges floored as in `arith.weight_scale` (arith.channel_ranges)."""
-    flat = w.detach().abs().reshape(w.shape[0], -1)  # (O, fan_in)
-    r = flat.amax(dim=1) if per_channel else flat.amax().expand(w.shape[0])
-    return arith.channel_ranges(r) / arith.weight_max(bits)
-
-
-def weight_fake_quant(w: torch.Tensor, bits: int, per_channel: bool) -> torch.Tensor:
-    """w_q = s * clamp(round(w * (1/s)), -(2^(k-1)-1), 2^(k-1)-1),  s = max|w| / (2^(k-1)-1)
-    (max over the layer or over each output channel; the rule of `arith.weight_scale`;
-    Jacob et al. 2018). Rounds half to even and multiplies by 1/s in float32, like
-    torch.fake_quantize_per_tensor_affine. Gradients pass straight through; s is not learned.
-    An all-zero weight tensor gives s = 1 / qmax (arith.ZERO_RANGE) and w_q = 0.
-    """
-    qm = arith.weight_max(bits)
-    s = weight_scale_of(w, bits, per_channel).reshape(-1, *[1] * (w.dim() - 1))  # (O, 1, ...)
-    inv = 1.0 / s
-    wq = torch.clamp(torch.round(w.detach() * inv), -qm, qm) * s
-    return w + (wq - w).detach()
-
-
 class _WeightQuant:
-    """Shared part of QConv2d/QLinear: the k-bit fake-quantized weight used in forward."""
+    """Shared part of QConv2d/QLinear: weights and bias on the converter's integer grids in forward.
 
-    def _init_quant(self, weight_bits: int, per_channel: bool) -> None:
+    The scale is the converter's (`arith.weight_scale` with the same rule, percentile and
+    per-channel floor), so conversion-aware training sees the W and B the converter will store."""
+
+    def _init_quant(self, weight_bits: int, per_channel: bool, weight_rule=("max", 100.0)) -> None:
         self.weight_bits = check_int(weight_bits, "weight_bits", type(self).__name__, 2, 16)
         self.per_channel = check_bool(per_channel, "per_channel", type(self).__name__)
+        self.weight_rule = (str(weight_rule[0]), float(weight_rule[1]))
         # Where the input scale comes from, for the bias: [None] = integer frames (s_in = 1), or
         # [ClipQuant] whose a_max/levels is s_in; divided by the sum-pool size in between.
         # A plain list, so the ClipQuant is not registered twice as a submodule.
         self._bias_src, self._bias_div = [None], 1
 
+    def weight_scale(self) -> torch.Tensor:
+        """s_w per output channel, float64 (O,): `arith.weight_scale` of the current weights."""
+        return arith.weight_scale_torch(self.weight, self.weight_bits, self.per_channel, *self.weight_rule)
+
     def quantized_bias(self):
         """B_q = s_acc * round(b / s_acc), s_acc = s_w * s_in / n: the bias on the accumulator's
         grid, as the integer network stores it (`arith.quantize_bias`); straight-through gradients.
         With binary inputs (s_in = 1) that grid can be coarser than the output step, so training
-        has to see it."""
+        has to see it. s_in = a_max / L of the ClipQuant before, in float64 as the converter forms it."""
         if self.bias is None:
             return None
         src = self._bias_src[0]
-        s_in = 1.0 if src is None else src.a_max.detach().clamp_min(1e-6) / src.levels
-        s_acc = weight_scale_of(self.weight, self.weight_bits, self.per_channel) * s_in / self._bias_div  # (O,)
-        bq = torch.round(self.bias.detach() / s_acc) * s_acc
-        return self.bias + (bq - self.bias).detach()
+        s_in = 1.0 if src is None else float(src.a_max.detach().clamp_min(1e-6)) / src.levels
+        return arith.fake_quantize_bias_torch(self.bias, self.weight_scale(), s_in / self._bias_div)
 
     def quantized_weight(self) -> torch.Tensor:
-        return weight_fake_quant(self.weight, self.weight_bits, self.per_channel)
+        """w_q = s_w * W, W = `arith.quantize_weights(w, s_w, k)` (see arith.fake_quantize_weights_torch)."""
+        return arith.fake_quantize_weights_torch(self.weight, self.weight_scale(), self.weight_bits)
 
     def extra_repr(self) -> str:
-        return super().extra_repr() + f", weight_bits={self.weight_bits}, per_channel={self.per_channel}"
+        return super().extra_repr() + (f", weight_bits={self.weight_bits}, per_channel={self.per_channel}, "
+                                       f"weight_rule={self.weight_rule[0]}:{self.weight_rule[1]:g}")
 
 
 class QConv2d(_WeightQuant, nn.Conv2d):
-    """Conv2d whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
+    """Conv2d whose weight and bias are fake-quantized to the converter's grids (see _WeightQuant) in forward."""
 
-    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
+    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, weight_rule=("max", 100.0), **kwargs):
         super().__init__(*args, **kwargs)
-        self._init_quant(weight_bits, per_channel)
+        self._init_quant(weight_bits, per_channel, weight_rule)
 
     def forward(self, x):
         return self._conv_forward(x, self.quantized_weight(), self.quantized_bias())
 
 
 class QLinear(_WeightQuant, nn.Linear):
-    """Linear whose weight is fake-quantized to `weight_bits` (see weight_fake_quant) in forward."""
+    """Linear whose weight and bias are fake-quantized to the converter's grids (see _WeightQuant) in forward."""
 
-    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, **kwargs):
+    def __init__(self, *args, weight_bits: int = 8, per_channel: bool = False, weight_rule=("max", 100.0), **kwargs):
         super().__init__(*args, **kwargs)
-        self._init_quant(weight_bits, per_channel)
+        self._init_quant(weight_bits, per_channel, weight_rule)
 
     def forward(self, x):
         return nn.functional.linear(x, self.quantized_weight(), self.quantized_bias())
 
 
 def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_channel: bool,
-               act_max=None, learn_act_max: bool = True) -> nn.Sequential:
+               act_max=None, learn_act_max: bool = True, weight_rule=("max", 100.0)) -> nn.Sequential:
     """The conversion-aware twin of `model`: BN folded, Conv2d/Linear -> QConv2d/QLinear,
-    ReLU -> ClipQuant(a_max, 2^p - 1). `act_max` gives one a_max per ReLU (in order); None
-    starts every a_max at 1.0 (calibrate with `activation_ranges` for a better start).
-    The input model is not modified.
+    ReLU -> ClipQuant(a_max, 2^p - 1). `act_max` gives one a_max >= 0 per ReLU (in order; 0 is
+    the range of a dead layer, see `convert.calibrate.range_statistic`); None starts every a_max
+    at 1.0 (`convert.calibrate.hidden_ranges` gives the converter's calibrated start).
+    `weight_rule` is the converter's weight scale rule, ("max", 100) or ("percentile", Q), as
+    `convert.parse_range_rule` returns it. The input model is not modified.
     """
     weight_bits = check_int(weight_bits, "weight_bits", "convert", 2, 16)
     payload_bits = check_int(payload_bits, "payload_bits", "convert", 1, 16)
@@ -341,19 +325,20 @@ def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_ch
         if len(act_max) != n_act:
             raise UsageError(f"act_max has {len(act_max)} values but the model has {n_act} activations")
         for j, a in enumerate(act_max):
-            check_float(a, f"act_max[{j}]", "make_aware", 0.0, None, lo_open=True)
+            check_float(a, f"act_max[{j}]", "make_aware", 0.0, None)
     levels = arith.payload_max(payload_bits)
     out, j = [], 0
     src, div = None, 1      # the input scale seen by the next weighted layer's bias
     for m in folded:
         if isinstance(m, nn.Conv2d):
             q = QConv2d(m.in_channels, m.out_channels, m.kernel_size, m.stride, m.padding, m.dilation, m.groups,
-                        m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
+                        m.bias is not None, weight_bits=weight_bits, per_channel=per_channel, weight_rule=weight_rule)
             q.load_state_dict(m.state_dict())
             q._bias_src, q._bias_div = [src], div
             out.append(q)
         elif isinstance(m, nn.Linear):
-            q = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits, per_channel=per_channel)
+            q = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits,
+                        per_channel=per_channel, weight_rule=weight_rule)
             q.load_state_dict(m.state_dict())
             q._bias_src, q._bias_div = [src], div
             out.append(q)
@@ -370,32 +355,3 @@ def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_ch
     aware = nn.Sequential(*out)
     aware.train(model.training)
     return aware
-
-
-def activation_ranges(model: nn.Sequential, x: torch.Tensor, percentile: float = 99.99,
-                      batch_size: int = 512) -> list[float]:
-    """r_l = the given percentile of the float activation after each ReLU/ClipQuant over `x`
-    (robust normalisation, Rueckauer et al. 2017; 100 = the maximum). Zero-only layers give
-    a small positive range (1e-3) so a scale can still be formed.
-    """
-    check_float(percentile, "percentile", "activation_ranges", 0.0, 100.0, lo_open=True)
-    acts = [m for m in model if isinstance(m, (nn.ReLU, ClipQuant))]
-    bufs: list[list[torch.Tensor]] = [[] for _ in acts]
-    hooks = [m.register_forward_hook(lambda mod, inp, out, j=j: bufs[j].append(inp[0].detach().clamp_min(0).flatten()))
-             for j, m in enumerate(acts)]
-    was_training = model.training
-    model.eval()
-    try:
-        with torch.no_grad():
-            for i in range(0, len(x), batch_size):
-                model(x[i:i + batch_size])  # (B, C, H, W)
-    finally:
-        for h in hooks:
-            h.remove()
-        model.train(was_training)
-    out = []
-    for b in bufs:
-        v = torch.cat(b).double().numpy()
-        r = float(np.percentile(v, percentile)) if v.size else 0.0
-        out.append(r if r > 0 else 1e-3)
-    return out

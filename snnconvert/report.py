@@ -218,22 +218,9 @@ def _layer_dict(m: dict, key: str, run: Path | None = None) -> dict:
     return dict(sorted(v.items(), key=lambda kv: order.get(kv[0], len(order))))
 
 
-def _confusion_png(cm, title: str) -> str:
-    """Draw a confusion matrix (rows = true class) when its PNG is missing but the numbers exist."""
-    plt = plots.pyplot()
-    import numpy as np
-    cm = np.asarray(cm)  # (classes, classes)
-    fig, ax = plt.subplots(figsize=(4.2, 3.8))
-    ax.imshow(cm, cmap="Blues")
-    for i in range(cm.shape[0]):
-        for j in range(cm.shape[1]):
-            if cm[i, j]:
-                ax.text(j, i, str(cm[i, j]), ha="center", va="center", fontsize=7,
-                        color="white" if cm[i, j] > cm.max() / 2 else "black")
-    ax.set_xlabel("predicted")
-    ax.set_ylabel("true")
-    ax.set_title(title, fontsize=9)
-    return f'<img alt="chart" src="{plots.png_data_uri(fig)}">'
+def _confusion_png(cm, classes, title: str) -> str:
+    """Draw a confusion matrix (`plots.confusion_figure`) when its PNG is missing but the numbers exist."""
+    return f'<img alt="chart" src="{plots.png_data_uri(plots.confusion_figure(cm, classes, title))}">'
 
 
 # --- sections ------------------------------------------------------------------------------
@@ -506,7 +493,8 @@ def _confusion(run: Path) -> str:
             return _figure(png, caption, "")
         m = _json(metrics)
         if m and isinstance(m.get("confusion"), list):
-            return f'<figure>{_confusion_png(m["confusion"], caption)}<figcaption class="note">{_e(caption)}' \
+            classes = m.get("classes") if isinstance(m.get("classes"), list) else range(len(m["confusion"]))
+            return f'<figure>{_confusion_png(m["confusion"], classes, caption)}<figcaption class="note">{_e(caption)}' \
                    "</figcaption></figure>"
         return _missing(f"No confusion matrix ({png.relative_to(run)} and {metrics.relative_to(run)} are missing).")
     try:

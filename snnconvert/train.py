@@ -77,14 +77,15 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
         if cfg["aware"]:
             float_acc = evaluate(model, *dataset.test)["accuracy"]
             conv = recipe.get("convert", {})
-            for k in ("weight_bits", "payload_bits", "per_channel"):
+            for k in ("weight_bits", "payload_bits", "per_channel", "weight_scale"):
                 if k not in conv:
                     raise UsageError(f"aware training needs '{k}' in the [convert] section of the recipe")
             model, act_max, hist = _finetune(model, dataset, recipe, conv["weight_bits"], conv["payload_bits"],
                                              conv["per_channel"], cfg["aware_epochs"], aware_seed, quiet)
             history += hist
             aware_info = {"weight_bits": int(conv["weight_bits"]), "payload_bits": int(conv["payload_bits"]),
-                          "per_channel": bool(conv["per_channel"]), "learn_act_max": bool(cfg["learn_act_max"])}
+                          "per_channel": bool(conv["per_channel"]), "learn_act_max": bool(cfg["learn_act_max"]),
+                          "weight_scale": str(conv["weight_scale"])}
         train_seconds = time.perf_counter() - t0
         ev = evaluate(model, *dataset.test)
 
@@ -141,18 +142,21 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
 
 
 def finetune_aware(model: nn.Sequential, dataset, recipe: dict, weight_bits: int, payload_bits: int,
-                   per_channel: bool, epochs: int, seed: int, quiet: bool = True) -> tuple[nn.Sequential, list]:
+                   per_channel: bool, epochs: int, seed: int, quiet: bool = True,
+                   weight_scale: str | None = None) -> tuple[nn.Sequential, list]:
     """Conversion-aware fine-tuning of a float model for one (k, p) budget.
 
-    a_max starts at the `[train] act_percentile` of each float activation on the training split,
-    then (if `learn_act_max`) trains with the weights. Uses the recipe's [train] optimiser,
+    The weights train on the converter's grid: `weight_scale` is its rule ("max" or
+    "percentile:Q"; None = the recipe's [convert] weight_scale). a_max starts at the converter's
+    range statistic (`convert.calibrate.hidden_ranges`, rule percentile `[train] act_percentile`)
+    of each float activation on the training split, then (if `learn_act_max`) trains with the weights. Uses the recipe's [train] optimiser,
     batch size, augmentation and `aware_lr` (cosine to zero). Keeps the best-validation epoch.
     Returns (aware model in eval mode, act_max list of floats, one per activation).
     Deterministic for a given seed and thread count; the input model is not modified. The torch
     thread count is left as the caller set it (parallel sweep workers run one thread each).
     """
     aware, act_max, _ = _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel,
-                                  epochs, int(seed), quiet)
+                                  epochs, int(seed), quiet, weight_scale)
     return aware, act_max
 
 
@@ -181,7 +185,8 @@ def load_checkpoint(path) -> tuple[nn.Sequential, dict]:
         if ckpt["aware"]:
             a = ckpt["aware"]
             model = models.make_aware(model, a["weight_bits"], a["payload_bits"], a["per_channel"],
-                                      act_max=ckpt["act_max"], learn_act_max=a.get("learn_act_max", True))
+                                      act_max=ckpt["act_max"], learn_act_max=a.get("learn_act_max", True),
+                                      weight_rule=aware_weight_rule(a, str(path)))
         model.load_state_dict(ckpt["state_dict"])
     except (UsageError, KeyError, TypeError, RuntimeError) as exc:
         raise FormatError(f"{path}: model_spec does not match state_dict ({type(exc).__name__}: "
@@ -218,6 +223,7 @@ def _check_checkpoint_fields(ckpt: dict, owner: str) -> None:
         check_int(aware.get("weight_bits"), "aware.weight_bits", owner, 2, 16, "field", E)
         check_int(aware.get("payload_bits"), "aware.payload_bits", owner, 1, 8, "field", E)
         check_bool(aware.get("per_channel"), "aware.per_channel", owner, "field", E)
+        aware_weight_rule(aware, owner)
     act = ckpt["act_max"]
     if act is not None:
         if not isinstance(act, (list, tuple)):
@@ -226,6 +232,18 @@ def _check_checkpoint_fields(ckpt: dict, owner: str) -> None:
             v = check_float(a, f"act_max[{i}]", owner, 0.0, None, lo_open=True, what="field", error=E)
             if not math.isfinite(v):
                 fail(f"act_max[{i}]", owner, "a finite float > 0", repr(a), "field", E)
+
+
+def aware_weight_rule(aware: dict, owner: str) -> tuple[str, float]:
+    """The weight scale rule an aware checkpoint trained on, parsed (FormatError if unreadable).
+    Checkpoints written before the rule was recorded trained on the max rule."""
+    from snnconvert.convert import parse_range_rule
+    rule = aware.get("weight_scale", "max")
+    try:
+        return parse_range_rule(rule, "aware.weight_scale", owner)
+    except UsageError:
+        fail("aware.weight_scale", owner, "'max' or 'percentile:Q' with Q in (0, 100]", repr(rule), "field",
+             FormatError)
 
 
 def check_model_fits(model: nn.Module, input_shape, n_classes: int, name: str, trained_shape=None) -> None:
@@ -279,25 +297,8 @@ def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int
 
 
 def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
-    """PNG of a confusion matrix (rows = true class, columns = predicted), counts written in cells."""
-    plt = plots.pyplot()
-    cm = np.asarray(cm)
-    n = cm.shape[0]
-    fig, ax = plt.subplots(figsize=(1.2 + 0.45 * n, 1.0 + 0.45 * n), dpi=100)
-    ax.imshow(cm, cmap="Blues")
-    hi = cm.max() if cm.size else 0
-    for i in range(n):
-        for j in range(cm.shape[1]):
-            if cm[i, j]:
-                ax.text(j, i, str(int(cm[i, j])), ha="center", va="center", fontsize=8,
-                        color="white" if cm[i, j] > hi / 2 else "black")
-    labels = [str(c) for c in classes]
-    ax.set_xticks(range(cm.shape[1]), labels[:cm.shape[1]])
-    ax.set_yticks(range(n), labels[:n])
-    ax.set_xlabel("predicted")
-    ax.set_ylabel("true")
-    ax.set_title(title, fontsize=9)
-    return plots.save_png(fig, path)
+    """PNG file of a confusion matrix (`plots.confusion_figure`), written atomically."""
+    return plots.save_png(plots.confusion_figure(cm, classes, title), path)
 
 
 def plot_curves(history: list[dict], path, title: str = "training") -> Path:
@@ -474,15 +475,20 @@ def augment(x: torch.Tensor, shift: int, event_dropout: float, gen: torch.Genera
     return x
 
 
-def _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel, epochs, seed, quiet):
+def _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel, epochs, seed, quiet,
+              weight_scale=None):
+    from snnconvert.convert import parse_range_rule
+    from snnconvert.convert.calibrate import hidden_ranges
     cfg = recipe["train"]
     check_int(epochs, "aware_epochs", "train", 1, 100000)
     check_bool(per_channel, "per_channel", "convert")
-    xtr = torch.as_tensor(dataset.train[0])
+    weight_rule = parse_range_rule(recipe["convert"]["weight_scale"] if weight_scale is None else weight_scale,
+                                   "weight_scale", "convert")
     folded = models.fold_batchnorm(model).eval()
-    act0 = models.activation_ranges(folded, xtr, cfg["act_percentile"])
+    # a_max starts at the converter's range statistic (0 for a dead layer), with the act_percentile rule
+    act0 = hidden_ranges(folded, dataset.train[0], "percentile", cfg["act_percentile"])
     aware = models.make_aware(folded, weight_bits, payload_bits, per_channel, act_max=act0,
-                              learn_act_max=cfg["learn_act_max"])
+                              learn_act_max=cfg["learn_act_max"], weight_rule=weight_rule)
     torch.manual_seed(int(seed))
     aware, hist = _fit(aware, dataset, cfg, epochs, cfg["aware_lr"], int(seed) ^ 0x5EED, quiet, "aware")
     act_max = [float(m.a_max.detach().clamp_min(1e-6)) for m in aware if isinstance(m, models.ClipQuant)]

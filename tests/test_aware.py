@@ -5,6 +5,7 @@ import torch
 
 from snnconvert import models as M
 from snnconvert import train as T
+from snnconvert.convert.calibrate import hidden_ranges
 from snnconvert.errors import UsageError
 from test_train import digits_frames, small_recipe
 
@@ -34,7 +35,7 @@ def float_run(ds, tmp_path_factory):
 def _naive(model, ds, wb, pb):
     """Post-training fake quantization at the same budget, with calibrated clip ranges, no fine-tuning."""
     folded = M.fold_batchnorm(model).eval()
-    act = M.activation_ranges(folded, ds.train[0], 99.9)
+    act = hidden_ranges(folded, ds.train[0], "percentile", 99.9)
     return M.make_aware(folded, wb, pb, False, act_max=act).eval()
 
 
@@ -70,7 +71,8 @@ def test_train_with_aware_flag_writes_an_aware_checkpoint(float_run, ds, tmp_pat
     r = small_recipe("train.aware=true", "train.aware_epochs=1", "convert.weight_bits=4", "convert.payload_bits=3",
                      "convert.per_channel=true")
     aware, m = T.train(r, ds, tmp_path, init=out, quiet=True)
-    assert m["aware"] == {"weight_bits": 4, "payload_bits": 3, "per_channel": True, "learn_act_max": True}
+    assert m["aware"] == {"weight_bits": 4, "payload_bits": 3, "per_channel": True, "learn_act_max": True,
+                          "weight_scale": "max"}
     assert m["epochs"] == 0 and m["aware_epochs"] == 1
     assert m["float_frame_accuracy"] == pytest.approx(fm["frame_accuracy"])
     raw = torch.load(tmp_path / "model.pt", weights_only=True)

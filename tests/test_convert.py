@@ -205,17 +205,26 @@ def test_percentile_weight_scale_clips_the_largest_weights():
     assert (np.abs(net.layers[0].weight) == 7).mean() >= 0.05          # ~10% of the weights clip to +-7
 
 
-@pytest.mark.parametrize("kind,wb,pb,per_channel", [("conv_max", 3, 3, False), ("conv_avg", 4, 2, True),
-                                                    ("mlp", 2, 2, False)])
-def test_aware_model_and_its_integer_network_agree_neuron_for_neuron(kind, wb, pb, per_channel):
+@pytest.mark.parametrize("kind,wb,pb,per_channel,wscale", [("conv_max", 3, 3, False, "max"),
+                                                            ("conv_avg", 4, 2, True, "max"),
+                                                            ("mlp", 2, 2, False, "max"),
+                                                            ("conv_max", 3, 3, True, "percentile:90"),
+                                                            ("mlp", 3, 2, False, "percentile:99")])
+def test_aware_model_and_its_integer_network_agree_neuron_for_neuron(kind, wb, pb, per_channel, wscale):
     # The aware model fake-quantizes weights, activations and the bias on the accumulator grid, so the
     # integer network is the same function: every ClipQuant output / s_out equals the payload.
-    from snnconvert.models import ClipQuant, activation_ranges
+    from snnconvert.convert.calibrate import hidden_ranges
+    from snnconvert.models import ClipQuant
     base = trained(kind)
     (xtr, _), (xte, _) = split()
-    ranges = activation_ranges(base, torch.from_numpy(xtr[:256]))
-    aware = make_aware(base, wb, pb, per_channel, act_max=ranges).eval()
-    net = convert(aware, xtr[:64], weight_bits=wb, payload_bits=pb, coding="payload", per_channel=per_channel)
+    ranges = hidden_ranges(base, xtr[:256], "percentile", 99.99)
+    aware = make_aware(base, wb, pb, per_channel, act_max=ranges, weight_rule=parse_range_rule(wscale)).eval()
+    net = convert(aware, xtr[:64], weight_bits=wb, payload_bits=pb, coding="payload", per_channel=per_channel,
+                  weight_scale=wscale)
+    # the aware layers train on the converter's integers: same weight and bias grids
+    weighted = [m for m in aware if hasattr(m, "quantized_weight")]
+    for m, L in zip(weighted, [L for L in net.layers if L.kind in ("conv", "dense")]):
+        assert np.array_equal(arith.quantize_weights_torch(m.weight, m.weight_scale(), wb).numpy(), L.weight)
     acts = []
     hooks = [m.register_forward_hook(lambda m_, i_, o_: acts.append(o_.detach())) for m in aware
              if isinstance(m, ClipQuant)]

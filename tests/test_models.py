@@ -143,6 +143,11 @@ def _tie_tensor(qmax, scale, n=400, seed=0):
     return w
 
 
+def _fake_quant(w, bits, per_channel):
+    """The aware layers' weight path: arith's scale rule, then its fake quantizer (max rule)."""
+    return arith.fake_quantize_weights_torch(w, arith.weight_scale_torch(w, bits, per_channel), bits)
+
+
 @pytest.mark.parametrize("bits", [2, 3, 4, 8])
 @pytest.mark.parametrize("kind", ["random", "ties"])
 def test_weight_fake_quant_equals_torch_per_tensor(bits, kind):
@@ -155,7 +160,7 @@ def test_weight_fake_quant_equals_torch_per_tensor(bits, kind):
     s = float(w.abs().max() / qm)
     # reference: torch.fake_quantize_per_tensor_affine (x * (1/s), round half to even; REFERENCES.md)
     ref = torch.fake_quantize_per_tensor_affine(w, s, 0, -qm, qm)
-    assert torch.equal(M.weight_fake_quant(w, bits, per_channel=False), ref)
+    assert torch.equal(_fake_quant(w, bits, per_channel=False), ref)
 
 
 @pytest.mark.parametrize("bits", [2, 4, 6])
@@ -167,7 +172,7 @@ def test_weight_fake_quant_equals_torch_per_channel(bits):
     # the all-zero channel takes the floor of the scale rule: 2^-8 of the layer's widest channel
     scales = torch.maximum(r, r.max() * 2.0**-8) / qm
     ref = torch.fake_quantize_per_channel_affine(w, scales, torch.zeros(7, dtype=torch.int32), 0, -qm, qm)
-    got = M.weight_fake_quant(w, bits, per_channel=True)
+    got = _fake_quant(w, bits, per_channel=True)
     assert torch.equal(got, ref)
     assert torch.equal(got[2], torch.zeros_like(got[2]))
     # the scale rule is arith.weight_scale's (max-abs over 2^(k-1)-1 levels)
@@ -220,12 +225,13 @@ def test_make_aware_structure_and_values():
         M.make_aware(m, 4, 0, False)
 
 
-def test_activation_ranges_max_is_the_largest_relu_output():
+def test_hidden_ranges_max_is_the_largest_relu_output():
+    from snnconvert.convert.calibrate import hidden_ranges
     torch.manual_seed(3)
     m = M.build_model([{"type": "conv", "out": 3}, {"type": "dense", "units": 5}, {"type": "dense"}], (1, 5, 5), 2,
                       quiet=True).eval()
     x = torch.rand(40, 1, 5, 5)
-    r = M.activation_ranges(m, x, percentile=100.0)
+    r = hidden_ranges(m, x.numpy(), "max", 100.0)
     with torch.no_grad():
         h1 = m[1](m[0](x))
         h2 = m[4](m[3](m[2](h1)))

@@ -3,6 +3,9 @@
 Each command lives in its own module `snnconvert/cli/<command>.py` exposing
 `HELP` (one line), `add_arguments(parser)` and `run(args) -> int`.
 
+Only `verify` runs on the base install (numpy alone); the other commands need the "full" extra,
+and say so in one line (exit 1) when one of its packages is missing.
+
 Exit codes: 0 success, 1 unexpected failure (or a failed check such as verify), 2 usage error
 (bad argument, bad file, bad recipe value), 130 interrupted.
 """
@@ -18,6 +21,9 @@ import warnings
 
 from snnconvert import console
 from snnconvert.errors import UsageError
+
+# Packages of the "full" extra (pyproject.toml); the base install runs `verify` without them.
+FULL_ONLY = ("torch", "scipy", "sklearn", "matplotlib", "joblib", "threadpoolctl")
 
 # Order is the order of the job; `run` chains them all.
 COMMANDS = ["events", "train", "convert", "simulate", "sweep", "export", "verify", "report", "run"]
@@ -66,20 +72,30 @@ def main(argv: list[str] | None = None) -> int:
     except UsageError as exc:
         console.error(_one_line(str(exc)))
         return 2
+    except ModuleNotFoundError as exc:
+        if (exc.name or "").split(".")[0] not in FULL_ONLY:
+            return _unexpected(exc)
+        console.error(f"this command needs {exc.name.split('.')[0]}, which this install lacks (only "
+                      f"`snnconvert verify` runs without it); install the full set: pip install 'snnconvert[full]'")
+        return 1
     except KeyboardInterrupt:
         console.error("interrupted; finished stages and files are intact")
         return 130
     except SystemExit as exc:  # --help / --version
         return int(exc.code or 0) if isinstance(exc.code, int) else 0
     except Exception as exc:  # a bug, not a user error
-        console.error(f"unexpected failure: {type(exc).__name__}: {_one_line(str(exc))}")
-        if os.environ.get("SNNCONVERT_DEBUG"):
-            console.say(traceback.format_exc().rstrip("\n"))
-        else:
-            console.say("(set SNNCONVERT_DEBUG=1 for the traceback)")
-        return 1
+        return _unexpected(exc)
     finally:
         console.set_quiet(False)
+
+
+def _unexpected(exc: BaseException) -> int:
+    console.error(f"unexpected failure: {type(exc).__name__}: {_one_line(str(exc))}")
+    if os.environ.get("SNNCONVERT_DEBUG"):
+        console.say(traceback.format_exc().rstrip("\n"))
+    else:
+        console.say("(set SNNCONVERT_DEBUG=1 for the traceback)")
+    return 1
 
 
 def _one_line(msg: str) -> str:

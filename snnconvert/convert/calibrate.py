@@ -3,11 +3,15 @@
     r_l = max(x_l)                 rule "max"
     r_l = percentile_Q(x_l)        rule "percentile:Q" (99.9 by default; Rueckauer et al. 2017)
 
+This is the one range statistic of the project: the converter calibrates with it, and
+conversion-aware training starts its clip ranges from it (`hidden_ranges`).
 The statistic is taken over the positive activations only: zeros send no spike and carry no
 range information, and ReLU layers are often more than half zeros, which would pull a percentile
 down to values that clip ordinary activity. The output layer's range is taken over its positive
-logits (it only matters for the ttfs early decision). A layer with no positive value has r = 0;
-quantize.py turns it into a silent layer.
+logits (it only matters for the ttfs early decision).
+Dead layer: a layer with no positive value has r = 0, for both users. quantize.py turns it into a
+silent layer (M = 0); conversion-aware training starts its clip range at 0, so its ClipQuant passes
+nothing either (its scale is floored at 1e-6 / L, models.ClipQuant).
 """
 
 from __future__ import annotations
@@ -16,7 +20,7 @@ import numpy as np
 import torch
 
 from snnconvert import console
-from snnconvert.convert.fold import FoldedOp, apply_op
+from snnconvert.convert.fold import FoldedOp, apply_op, fold
 from snnconvert.errors import UsageError
 
 
@@ -28,7 +32,8 @@ def calibration_subset(n_total: int, n: int) -> np.ndarray:
 
 
 def range_statistic(values: np.ndarray, rule: str, q: float) -> float:
-    """max or the q-th percentile (linear interpolation, numpy's default) of the positive values; 0 if none."""
+    """max or the q-th percentile (linear interpolation, numpy's default) of the positive values; 0 if none
+    (a dead layer, see the module docstring)."""
     v = values[values > 0]
     if v.size == 0:
         return 0.0
@@ -67,3 +72,13 @@ def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max
         elif ops[i].a_max is not None:
             ranges[i] = ops[i].a_max
     return ranges
+
+
+def hidden_ranges(model, x, rule: str, q: float, quiet: bool = True) -> list[float]:
+    """The calibrated range r_l of each hidden activation of a float `model` over frames `x`, in
+    order: `activation_ranges` of its folded ops, one value per ReLU (0 for a dead layer).
+    Conversion-aware training starts its clip ranges a_max here, so it starts where the converter
+    would calibrate a float model with the same rule."""
+    ops = fold(model)
+    ranges = activation_ranges(ops, x, rule, q, quiet=quiet)
+    return [float(ranges[i]) for i, op in enumerate(ops) if op.kind in ("conv", "dense") and op.act is not None]

@@ -31,7 +31,6 @@ from __future__ import annotations
 from dataclasses import dataclass, fields
 
 import numpy as np
-from scipy import ndimage
 
 from snnconvert.errors import UsageError, check_choice
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
@@ -149,6 +148,8 @@ def _simulate_chunk(images, stimulus, config, rng, c_on, c_off):
         py = vy[seg] + (vy[seg + 1] - vy[seg]) * frac
         times = np.rint(s * config.saccade_segment_us).astype(np.int64)
         end = int(times[-1])
+
+        from scipy import ndimage   # only the saccade stimulus needs it; the CLI loads without scipy
 
         def gen():
             for ti, dx, dy in zip(times, px, py):

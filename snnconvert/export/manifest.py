@@ -14,7 +14,7 @@ import numpy as np
 from snnconvert import arith
 from snnconvert.errors import FormatError, fail
 from snnconvert.export.memfile import hex_digits, signed_bits, unsigned_bits
-from snnconvert.intnet import IntLayer, IntNetwork, check_network
+from snnconvert.intnet import LAYER_ATTRS, NETWORK_ATTRS, IntLayer, IntNetwork, network_from_fields
 
 FORMAT = "snnconvert-export"
 VERSION = 1
@@ -266,26 +266,20 @@ def network_from_manifest(man: dict, arrays: dict, name: str = "manifest.json", 
             raise FormatError(f"{name}: format version {man.get('version')!r} is not supported (this build reads {VERSION})")
         if not isinstance(man["layers"], list):
             fail("layers", name, "a list of layer objects", repr(man["layers"]), "field", FormatError)
-        layers, ids = [], []
+        layers, tables, ids = [], [], []
         for i, d in enumerate(man["layers"]):
             _dict(d, f"layers[{i}]", name)
-            t = arrays.get(d["id"], {})
             ids.append(d["id"])
-            layers.append(IntLayer(
-                name=d["name"], kind=d["type"], in_shape=d["input_shape"], out_shape=d["output_shape"],
-                kernel=d["kernel"], stride=d["stride"], padding=d["padding"],
-                weight=t.get("weight"), bias=t.get("bias"), m0=t.get("m0"), shift=t.get("shift"),
-                q_in=d["q_in"], q_out=d["q_out"], is_output=d["is_output"],
-                acc_bits=d.get("accumulator_bits", 0)))
+            tables.append(arrays.get(d["id"], {}))
+            layers.append({k: d.get("accumulator_bits", 0) if k == "acc_bits" else d[_LAYER_NAMES.get(k, k)]
+                           for k in LAYER_ATTRS})
         lim = _dict(man["accumulator_limit"], "accumulator_limit", name)
         inp = _dict(man["input"], "input", name)
-        net = IntNetwork(layers=layers, input_shape=inp["shape"], input_q=inp["q"],
-                         coding=man["coding"], payload_bits=man["payload_bits"], weight_bits=man["weight_bits"],
-                         per_channel=man["per_channel"], n_classes=man["n_classes"],
-                         multiplier_bits=man["multiplier_bits"], acc_limit_bits=lim["bits"],
-                         overflow=lim["overflow"])
+        fields = {k: man[k] for k in NETWORK_ATTRS if k not in _TOP_NAMES}
+        fields.update(input_shape=inp["shape"], input_q=inp["q"], acc_limit_bits=lim["bits"], overflow=lim["overflow"])
+        return network_from_fields(fields, layers, tables, name, tables_name, _field_name,
+                                   lambda i, kind: f"{ids[i]}.{kind}")
     except (KeyError, TypeError, ValueError) as exc:
         if isinstance(exc, FormatError):
             raise
         raise FormatError(f"{name}: missing or invalid field ({type(exc).__name__}: {exc})") from None
-    return check_network(net, name, tables_name, _field_name, lambda i, kind: f"{ids[i]}.{kind}")

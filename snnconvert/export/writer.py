@@ -7,7 +7,6 @@ JSON with sorted keys, NPZ members with the fixed zip date, no timestamps in tab
 
 from __future__ import annotations
 
-import io
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -18,7 +17,7 @@ from snnconvert.export import fpga
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
-from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, resolve_inside, sha256_bytes
+from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, npz_bytes, resolve_inside, sha256_bytes
 from snnconvert.intnet import IntNetwork
 
 MANIFEST = "manifest.json"
@@ -26,16 +25,6 @@ TABLES_NPZ = "tables.npz"
 VECTORS_NPZ = "vectors.npz"
 # File suffix of each table kind: <layer id>_<suffix>.mem / .csv
 TABLE_SUFFIX = {"weight": "weights", "bias": "bias", "m0": "m0", "shift": "shift"}
-
-
-def npz_bytes(arrays: dict[str, np.ndarray]) -> bytes:
-    """Uncompressed NPZ in memory (zip members carry numpy's fixed date, so equal arrays give equal bytes)."""
-    for k, a in arrays.items():
-        if np.asarray(a).dtype == object:
-            raise TypeError(f"array '{k}' has dtype object; NPZ artifacts hold plain numeric arrays only")
-    buf = io.BytesIO()
-    np.savez(buf, **arrays)
-    return buf.getvalue()
 
 
 def mem_header(lid: str, layer_type: str, kind: str, spec: dict, file: str) -> list[str]:

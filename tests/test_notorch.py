@@ -1,0 +1,112 @@
+"""Checking an export needs numpy alone: verify, the reference simulator, the export readers and
+arith import and run in a Python where torch (and the training/plotting libraries) cannot be imported."""
+
+import json
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pytest
+from test_export import small_inputs, small_net
+
+from snnconvert.export import export_network
+
+ROOT = Path(__file__).resolve().parents[1]
+
+# Makes every import of these packages fail, as on a machine where they are not installed.
+PRELUDE = textwrap.dedent("""
+    import sys
+    BLOCKED = ("torch", "scipy", "sklearn", "matplotlib", "joblib", "threadpoolctl")
+    class _Blocked:
+        def find_spec(self, name, path=None, target=None):
+            if name.split(".")[0] in BLOCKED:
+                raise ModuleNotFoundError(f"No module named {name!r} (blocked for this test)", name=name)
+    sys.meta_path.insert(0, _Blocked())
+""")
+
+
+def _python(code: str, *args: str) -> subprocess.CompletedProcess:
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin", "OMP_NUM_THREADS": "1"}
+    return subprocess.run([sys.executable, "-c", PRELUDE + textwrap.dedent(code), *args], capture_output=True,
+                          text=True, env=env, cwd=ROOT, timeout=120, check=False)
+
+
+@pytest.fixture(scope="module")
+def exports(tmp_path_factory):
+    root = tmp_path_factory.mktemp("notorch")
+    x, y = small_inputs()
+    for coding in ("payload", "ttfs"):
+        export_network(small_net(coding), root / coding, x, y, vectors=4, progress=False)
+    return root
+
+
+def test_the_blocker_really_blocks():
+    r = _python("""
+        try:
+            import torch
+        except ImportError as exc:
+            print("blocked:", exc)
+    """)
+    assert r.returncode == 0 and r.stdout.startswith("blocked:"), r.stderr
+
+
+def test_readers_reference_and_arith_import_and_run_without_torch():
+    r = _python("""
+        import numpy as np
+        import snnconvert.export.verify, snnconvert.sim.reference
+        from snnconvert import arith, files
+        from snnconvert.export import manifest, memfile
+        from snnconvert.intnet import IntNetwork
+        # requantize with numpy alone: 2.5 rounds up to 3 (M = 1/2: M0 = 2^15, n = 16), -2.5 clamps to 0
+        m0, n = arith.fixed_point_multiplier(np.array([0.5]), bits=16)
+        print(arith.requantize(np.array([[5], [-5]], dtype=np.int64), m0, n, 15).ravel().tolist())
+        print(files.fingerprint(np.arange(3), {"a": [1, 2]}) != "")
+        print(sorted(m for m in sys.modules if m.split(".")[0] in BLOCKED))
+    """)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.split("\n")[:3] == ["[3, 0]", "True", "[]"]
+
+
+@pytest.mark.parametrize("coding", ["payload", "ttfs"])
+def test_cli_verify_passes_without_torch(exports, tmp_path, coding):
+    res = tmp_path / "verify.json"
+    r = _python("""
+        import runpy
+        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
+    """, "verify", str(exports / coding), "--json", str(res), "--quiet")
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.startswith("verify: passed: 4 samples, 4 layers")
+    assert json.loads(res.read_text())["passed"] is True
+
+
+def test_cli_verify_names_a_corrupt_table_word_without_torch(exports, tmp_path):
+    import shutil
+    folder = shutil.copytree(exports / "payload", tmp_path / "export")
+    man = json.loads((folder / "manifest.json").read_text())
+    spec = man["layers"][2]["tables"]["weight"]                       # conv2 weights, 4-bit
+    orig = int(np.load(folder / "tables.npz")[spec["npz_key"]].reshape(-1)[0])
+    new = orig - 1 if orig > -7 else orig + 1
+    path = folder / spec["file"]
+    lines = path.read_text().split("\n")
+    lines[4] = format(new & 0xF, "x")          # word 0 follows the 4 '//' header lines; 4-bit two's complement
+    path.write_text("\n".join(lines))
+    r = _python("""
+        import runpy
+        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
+    """, "verify", str(folder), "--quiet")
+    assert r.returncode == 1, r.stderr
+    assert r.stdout.startswith(f"verify: FAILED: table mismatch in {spec['file']} line 5: layer L2_conv2, "
+                               f"word 0 [0, 0, 0, 0]: expected {orig}, got {new} (")
+
+
+def test_a_command_needing_torch_names_the_missing_extra(tmp_path):
+    r = _python("""
+        import runpy
+        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
+    """, "train", "recipes/default.toml", "--out", str(tmp_path / "t"), "--quiet")
+    assert r.returncode == 1
+    assert r.stderr.splitlines()[-1] in {
+        f"error: this command needs {m}, which this install lacks (only `snnconvert verify` runs without it); "
+        f"install the full set: pip install 'snnconvert[full]'" for m in ("torch", "scipy", "sklearn", "matplotlib")}
