@@ -20,7 +20,7 @@ from snnconvert import console
 from snnconvert.errors import UsageError
 
 # Order is the order of the job; `run` chains them all.
-COMMANDS = ["events", "train", "convert", "simulate", "sweep", "export", "verify", "report", "run"]
+COMMANDS = ["events", "train", "convert", "simulate", "sweep", "export", "verify", "cmodel", "compare", "report", "run"]
 
 
 class _Parser(argparse.ArgumentParser):
