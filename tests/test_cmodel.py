@@ -381,3 +381,41 @@ def test_compare_refuses_a_malformed_trace(built, tmp_path, capsys, write, messa
     assert main(["compare", str(out), str(trace), "--quiet"]) == 2
     err = capsys.readouterr().err
     assert err.startswith("error: ") and message in err and err.count("\n") == 1
+
+
+# --------------------------------------------------------------------------------------- manifest facts
+
+@pytest.mark.parametrize("coding", ["payload", "ttfs"])
+def test_manifest_states_timing_widths_and_event_facts(tmp_path, coding):
+    net = small_net(coding)
+    x, y = small_inputs(6)
+    export_network(net, tmp_path / "e", x, y, vectors=6, progress=False)
+    man = json.loads((tmp_path / "e" / "manifest.json").read_text())
+    L = man["layers"]
+    # small_net: conv1 (3, 6, 6) = 108 neurons, pool1 (3, 3, 3) = 27, conv2 (4, 2, 2) = 16, fc 3 (hand-counted);
+    # address bits = bits of neurons - 1: 107 -> 7, 26 -> 5, 15 -> 4, 2 -> 2; input 36 -> 35 -> 6
+    assert [d["address_bits"] for d in L] == [7, 5, 4, 2] and man["input"]["address_bits"] == 6
+    assert [d["emits_events"] for d in L] == [True, True, True, coding == "ttfs"]
+    if coding == "ttfs":
+        # input window: Q_in = 1 step; conv1's window follows it; the pool passes spikes in that same window;
+        # conv2 and fc each follow their input's window of Q = 7 steps (payload bits 3)
+        assert [d["window_start"] for d in L] == [1, 0, 7, 7]
+        assert [d["window_start_absolute"] for d in L] == [1, 1, 8, 15]
+        assert [d["time_bits"] for d in L] == [3, 3, 3, 3]
+    else:
+        assert all(d["window_start"] is None and d["time_bits"] is None for d in L)
+    z = np.load(tmp_path / "e" / "vectors.npz")
+    for d in L:
+        if d["golden"]["events_npz"]:
+            ev = z[d["golden"]["events_npz"]]
+            assert d["peak_events"] == max(int((ev[:, 0] == s).sum()) for s in range(len(z["x"])))
+        if d.get("tables"):                          # brute force over every V the accumulator can hold
+            vs = np.arange(-(1 << (d["accumulator_bits"] - 1)), 1 << (d["accumulator_bits"] - 1), dtype=np.int64)
+            p = vs[:, None] * np.asarray(d["m0"]) + (1 << (np.asarray(d["shift"]) - 1))
+            lo, hi = int(p.min()), int(p.max())
+            b = d["requantize_bits"]
+            assert -(1 << (b - 1)) <= lo and hi < 1 << (b - 1) and not (-(1 << (b - 2)) <= lo and hi < 1 << (b - 2))
+            assert z[d["golden"]["potentials_npz"]].shape == (len(z["x"]), int(np.prod(d["output_shape"])))
+            assert (tmp_path / "e" / d["golden"]["potentials_csv"].replace("NNNN", "0000")).is_file()
+    assert "not a saturating adder" in man["accumulator_limit"]["words"] or not man["accumulator_limit"]["bits"]
+    assert "early_decision" in man["decision"] and "-1" in man["decision"]

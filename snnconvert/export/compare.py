@@ -24,6 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError
+from snnconvert.export.memfile import parse_csv_rows
 from snnconvert.files import load_json, load_npz, resolve_inside
 
 EVENT_HEADER = ["addr", "t", "payload"]
@@ -84,18 +85,8 @@ def _read_csv(path: Path, header: list[str], exact: bool = True) -> tuple[list[s
     cols = [c.strip() for c in lines[0].split(",")] if lines else []
     if (cols != header) if exact else not set(header) <= set(cols):
         raise FormatError(f"{path} line 1: header must be {','.join(header)!r}" + ("" if exact else " (at least)"))
-    rows = []
-    for no, row in enumerate(lines[1:], start=2):
-        if not row.strip():
-            continue
-        try:
-            nums = [int(p) for p in row.split(",")]
-        except ValueError:
-            raise FormatError(f"{path} line {no}: {row!r} is not a row of integers") from None
-        if len(nums) != len(cols):
-            raise FormatError(f"{path} line {no}: expected {len(cols)} columns, got {len(nums)}")
-        rows.append(nums)
-    return cols, np.asarray(rows, dtype=np.int64).reshape(-1, len(cols))
+    rows, _ = parse_csv_rows("\n".join([",".join(cols)] + lines[1:]), cols, str(path))
+    return cols, rows
 
 
 def _ev(e) -> str:

@@ -17,7 +17,8 @@ from snnconvert.errors import FormatError, UsageError, check_bool, check_int, fa
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.directed import KINDS as DIRECTED_KINDS
-from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
+from snnconvert.export.hwfacts import peak_events
+from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, event_streams, golden_vectors, pick_samples
 from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, resolve_inside, sha256_bytes
 from snnconvert.intnet import IntNetwork
 
@@ -124,6 +125,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     if idx.size:
         arrays = golden_vectors(net, xs, idx, lab, progress=progress, directed=codes)
         files[VECTORS_NPZ] = npz_bytes(arrays)
+        vec_info["peak_events"] = peak_events(arrays, [sid for sid, _ in event_streams(net)], int(idx.size))
         vec_info.update(npz=VECTORS_NPZ, npz_keys=sorted(arrays), npz_event_columns=["sample"] + EVENT_COLUMNS)
         if csv:
             files.update(csv_files(net, arrays))
