@@ -157,6 +157,8 @@ QUIET_CASES = [
     (["sweep", "missing"], "training folder not found: missing"),
     (["export", "missing", "out"], "network folder missing holds no network.json (run `snnconvert convert` first)"),
     (["verify", "missing"], "export folder not found: missing"),
+    (["cmodel", "missing"], "export folder missing holds no manifest.json (run `snnconvert export` first)"),
+    (["compare", "missing", "trace"], "export folder missing holds no manifest.json (run `snnconvert export` first)"),
     (["report", "missing"], "run folder not found: missing"),
     (["run", "missing"], "recipe file not found: missing"),
 ]

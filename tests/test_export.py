@@ -252,8 +252,9 @@ def test_golden_vectors_match_torch(tmp_path, coding, pool):
     x, y = small_inputs(8)
     export_network(net, tmp_path / "e", x, y, vectors=8, progress=False)
     z = np.load(tmp_path / "e" / "vectors.npz", allow_pickle=False)
-    idx = z["sample_index"]
-    outs, pot = _torch_forward(net, x[idx])
+    idx = z["sample_index"]                                         # -1: a directed vector after the test samples
+    assert np.array_equal(z["x"][idx >= 0], x[idx[idx >= 0]])
+    outs, pot = _torch_forward(net, z["x"])                         # every golden input, directed ones included
     assert np.array_equal(z["potentials"], pot)
     assert np.array_equal(z["decision"], np.argmax(pot, axis=1))    # numpy argmax: first maximum on ties
     for i, L in enumerate(net.layers):
@@ -281,8 +282,11 @@ def test_vectors_pick_every_class_round_robin(exported):
     _, x, y, out = exported
     z = np.load(out / "vectors.npz", allow_pickle=False)
     # labels of the first 12 seeded samples; 6 vectors take each class's first, then second sample
-    assert sorted(set(y[z["sample_index"]].tolist())) == sorted(set(y.tolist()))
-    assert np.array_equal(z["label"], y[z["sample_index"]]) and np.array_equal(z["x"], x[z["sample_index"]])
+    test = z["directed"] == 0                                       # the test samples come first, then directed ones
+    assert test.sum() == 6 and test[:6].all() and np.all(z["sample_index"][~test] == -1)
+    idx = z["sample_index"][test]
+    assert sorted(set(y[idx].tolist())) == sorted(set(y.tolist()))
+    assert np.array_equal(z["label"][test], y[idx]) and np.array_equal(z["x"][test], x[idx])
     rows = (out / "vectors/sample_0002/L0_conv1.csv").read_text().split("\n")
     ev = z["L0_conv1.events"]
     assert rows[0] == "addr,t,payload" and len(rows) - 2 == int((ev[:, 0] == 2).sum())
@@ -353,8 +357,11 @@ def test_cli_export_with_inputs_file(tmp_path, capsys):
     code = main(["export", str(tmp_path / "net"), str(tmp_path / "out"), "--inputs", str(tmp_path / "in.npz"),
                  "--vectors", "3", "--no-csv", "--quiet"])
     assert code == 0
-    # 4 tables for each of 3 weighted layers, each as .mem, .coe and .mif, + tables.npz + vectors.npz
-    assert capsys.readouterr().out == f"export: 4 layers, 38 files, 3 golden vectors -> {tmp_path / 'out'}\n"
+    # 4 tables for each of 3 weighted layers, each as .mem, .coe and .mif, + tables.npz + vectors.npz;
+    # small_net (binary input, M0 of 12 significant bits, no declared width) has no reachable tie and no
+    # overflow: directed max, min, zero
+    assert capsys.readouterr().out == (f"export: 4 layers, 38 files, 3 golden vectors and 3 directed vectors "
+                                       f"-> {tmp_path / 'out'}\n")
     assert not (tmp_path / "out" / "vectors").exists()
 
 

@@ -43,8 +43,9 @@ def test_clean_export_passes_and_verify_writes_nothing(pristine, coding, capsys)
     folder = pristine / coding
     before = _snapshot(folder)
     res = verify(folder, progress=False)
-    # small_net has 4 layers (conv1, pool1, conv2, fc); 5 vectors were exported
-    assert res.passed and res.samples == 5 and res.layers == 4 and res.first_mismatch is None
+    # small_net has 4 layers (conv1, pool1, conv2, fc); 5 test vectors were exported, then the directed ones
+    directed = json.loads((folder / "manifest.json").read_text())["vectors"]["directed"]
+    assert res.passed and res.samples == 5 + len(directed) and res.layers == 4 and res.first_mismatch is None
     # hand-computed from small_net's shapes: weights O*I*kH*kW (3*1*3*3, 4*3*2*2, 3*16) + bias/m0/shift O each
     assert res.words == 3 * 9 + 3 * 3 + 4 * 12 + 4 * 3 + 3 * 16 + 3 * 3
     assert main(["verify", str(folder), "--quiet"]) == 0
@@ -210,7 +211,8 @@ def test_manifest_of_another_format_is_refused(exp):
 def test_cli_json_result_outside_the_folder_only(exp, tmp_path, capsys):
     assert main(["verify", str(exp), "--quiet", "--json", str(tmp_path / "verify.json")]) == 0
     d = json.loads((tmp_path / "verify.json").read_text())
-    assert d["passed"] is True and d["samples"] == 5 and d["first_mismatch"] is None
+    # 5 test vectors + the directed max, min and all-zero windows of small_net
+    assert d["passed"] is True and d["samples"] == 5 + 3 and d["first_mismatch"] is None
     assert main(["verify", str(exp), "--json", str(exp / "v.json")]) == 2
     assert "verify writes nothing inside the export folder" in capsys.readouterr().err
     with pytest.raises(UsageError, match="export folder not found"):

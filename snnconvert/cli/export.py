@@ -26,17 +26,21 @@ def add_arguments(p) -> None:
     p.add_argument("--verilog", action=argparse.BooleanOptionalAction, default=None,
                    help="also write the behavioural Verilog model and its self-checking testbench under verilog/ "
                         "(default: recipe [export] verilog, off)")
+    p.add_argument("--c", action="store_true",
+                   help="also write the C99 reference model to OUT_DIR/c (the same as `snnconvert cmodel OUT_DIR`)")
 
 
 def run(args) -> int:
     from pathlib import Path
 
     from snnconvert import console
-    from snnconvert.errors import check_int
+    from snnconvert.errors import UsageError, check_int
     from snnconvert.export import export_from_run
     from snnconvert.files import check_output_path, load_json
 
     check_output_path(args.out_dir, "OUT_DIR", "folder")
+    if args.c and args.vectors == 0:
+        raise UsageError("--c needs golden vectors (the C model's main checks them); give --vectors N with N > 0")
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
     if args.pack_bits is not None:
@@ -46,6 +50,11 @@ def run(args) -> int:
                                pack_bits=args.pack_bits, verilog=args.verilog)
     man = load_json(man_path)
     out = Path(args.out_dir)
+    vec = man["vectors"]
+    directed = len(vec.get("directed", []))
     console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
-                 f"{man['vectors']['count']} golden vectors -> {out}")
+                 f"{vec['count'] - directed} golden vectors and {directed} directed vectors -> {out}")
+    if args.c:
+        from snnconvert.export.cmodel import write_c_model
+        console.echo(f"export: C model -> {write_c_model(out)}")
     return 0

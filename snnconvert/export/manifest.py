@@ -13,6 +13,8 @@ import numpy as np
 
 from snnconvert import arith
 from snnconvert.errors import FormatError, fail
+from snnconvert.export.hwfacts import FIELDS as HW_FIELDS
+from snnconvert.export.hwfacts import layer_facts
 from snnconvert.export.memfile import hex_digits, signed_bits, unsigned_bits
 from snnconvert.intnet import LAYER_ATTRS, NETWORK_ATTRS, IntLayer, IntNetwork, network_from_fields
 
@@ -31,7 +33,8 @@ MANIFEST_FIELDS = {
     "multiplier_bits": "width of the requantization multiplier M0 (unsigned)",
     "time_steps": "ttfs only: steps T = 2^p of each layer's window (null otherwise)",
     "n_classes": "number of output neurons (classes)",
-    "input": "the input layer: shape [C, H, W], largest payload q, payload bits, address formula and how its events are coded",
+    "input": "the input layer: shape [C, H, W], largest payload q, payload bits, address formula, address bus bits, "
+             "peak events in one window over the vectors, and how its events are coded",
     "addressing": "how a neuron (channel c, row y, column x) of a (C, H, W) map maps to a flat address; dense layers use the index",
     "rounding": "the requantization rule in words and as formulas (payload and ttfs forms), identical in every layer",
     "accumulator_limit": "declared accumulator width (0 = unlimited) and the overflow mode (saturate or wrap) applied to the potential at window close",
@@ -40,7 +43,10 @@ MANIFEST_FIELDS = {
     "event_columns": "columns of every event table: addr (flat neuron address), t (time step; 0 in payload coding), payload (value carried)",
     "layers": "the layers in execution order; each entry's fields are described in LAYER_FIELDS",
     "tables_npz": "NPZ holding every table (keys '<id>.weight', '<id>.bias', '<id>.m0', '<id>.shift'), same values as the memory files",
-    "vectors": "golden vectors: sample count, NPZ file and its keys, columns of the NPZ event tables, CSV folder",
+    "vectors": "golden vectors: count (test samples then directed vectors), test_samples, directed (one entry per "
+               "directed vector: sample, kind, layer, neuron, words), directed_kinds (code in the summary's "
+               "directed column; 0 = test sample), peak_events per stream, NPZ file and its keys, columns of the "
+               "NPZ event tables, CSV folder; each layer's golden file names are in its golden field",
     "files": "sha256 of every other file in the folder, keyed by path relative to the folder",
 }
 
@@ -52,7 +58,10 @@ LAYER_FIELDS = {
     "rule": "what the layer computes, in words",
     "input_shape": "shape of the layer's input: [C, H, W] or [F]",
     "output_shape": "shape of the layer's output",
-    "neurons": "number of output neurons (addresses 0..neurons-1)",
+    "neurons": "number of output neurons (addresses 0..neurons-1); 0 for a sumpool, which has no neurons: each "
+               "event entering it is re-addressed to the pool unit c*Ho*Wo + y*Wo + x it falls in (several units "
+               "when pools overlap) with its payload and step unchanged, and the next layer adds W * payload for "
+               "each, which sums the pool",
     "address": "flat output address formula with this layer's sizes",
     "kernel": "[kh, kw] (conv, pools)",
     "stride": "[sy, sx] (conv, pools)",
@@ -60,7 +69,7 @@ LAYER_FIELDS = {
     "q_in": "largest input value this layer receives (after a sumpool: n * Q)",
     "q_out": "largest payload this layer emits (0: a sumpool emits nothing, it routes sums)",
     "payload_bits": "bits of an emitted payload (enough for q_out)",
-    "is_output": "true for the output layer, whose potentials are read out",
+    "is_output": "true for the output layer, whose potentials are read out (it emits events only in ttfs; see emits_events)",
     "weight_bits": "width of a weight word (two's complement)",
     "bias": "bias B per output channel, added once to the potential",
     "bias_bits": "two's complement width of the bias words",
@@ -68,6 +77,7 @@ LAYER_FIELDS = {
     "shift": "requantization right shift n per output channel",
     "threshold": "equivalent threshold theta = 2^n / M0 per output channel (information only; null where M0 = 0)",
     "accumulator_bits": "signed width that can never overflow: ceil(log2(F * max|W| * Q_in + |B| + 1)) + 1",
+    **HW_FIELDS,
     "time_steps": "ttfs only: steps of this layer's output window",
     "tables": "memory tables of this layer (weight, bias, m0, shift); each entry's fields are in TABLE_FIELDS",
 }
@@ -98,10 +108,14 @@ _CODING_WORDS = {
     "binary": "each active neuron emits one event (payload 1); p = 1 so the value is 0 or 1",
     "ttfs": "each active neuron emits one spike at step t = Q - a of its window, so larger values come earlier; "
             "zero sends nothing; the payload column repeats the decoded value a. An input spike at step t "
-            "injects a constant current W on steps t..Q_in-1 of the input window, so at its end "
-            "V = B + sum W * (Q_in - t) = B + sum W * a; the neuron then fires at the first step where "
-            "the falling threshold of rounding.ttfs_formula is crossed",
+            "injects a constant current W on steps t..Q_s-1 of the window it was sent in, where Q_s is the Q "
+            "of the layer that sent it (after a sumpool: still the sending layer's Q, not the sumpool's q_in "
+            "n * Q), so at the window's end V = B + sum W * (Q_s - t) = B + sum W * a; the neuron then fires "
+            "at the first step where the falling threshold of rounding.ttfs_formula is crossed",
 }
+
+
+_LIMIT_WORDS = {"saturate": "saturation (a clip to [-2^(b-1), 2^(b-1)-1])", "wrap": "two's complement wrap-around"}
 
 
 def fields_markdown() -> str:
@@ -178,7 +192,9 @@ def _rule(L: IntLayer, coding: str) -> str:
     if L.kind == "maxpool":
         first = "the first spike in the pool passes, later ones are blocked" if coding == "ttfs" else "passes the largest payload in the pool"
         return f"max pool, no weights: {first}"
-    return "sum pool, routing only: the next layer receives the integer sum of the pool's payloads (no events of its own)"
+    return ("sum pool, routing only: each event is re-addressed to its pool unit (c*Ho*Wo + y*Wo + x) with payload "
+            "and step unchanged; the next layer adds W * payload for each, i.e. receives the integer sum of the "
+            "pool's payloads (no neurons, no events of its own)")
 
 
 def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors: dict,
@@ -186,6 +202,8 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
     """The manifest dict. `tables`: {layer index: {kind: spec with file names}}; `files`: path -> sha256."""
     ttfs = net.coding == "ttfs"
     layers = []
+    facts = layer_facts(net, [layer_id(i, L.name) for i, L in enumerate(net.layers)], vectors.get("peak_events"),
+                        bool(vectors.get("csv_folder")))
     for i, L in enumerate(net.layers):
         d = {"index": i, "id": layer_id(i, L.name), "name": L.name, "type": L.kind, "rule": _rule(L, net.coding),
              "input_shape": list(L.in_shape), "output_shape": list(L.out_shape),
@@ -203,6 +221,7 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
                      bias_bits=t["bias"]["bits"], m0=m0.tolist(), shift=sh.tolist(),
                      threshold=[float(2.0 ** int(n) / int(m)) if m > 0 else None for m, n in zip(m0, sh)],
                      accumulator_bits=int(L.acc_bits), tables=t)
+        d.update(facts[i])
         layers.append(d)
     c, h, w = net.input_shape
     return {
@@ -213,6 +232,8 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
         "time_steps": net.time_steps if ttfs else None, "n_classes": int(net.n_classes),
         "input": {"shape": list(net.input_shape), "q": int(net.input_q), "payload_bits": int(net.input_q).bit_length(),
                   "address": address_formula(net.input_shape),
+                  "address_bits": max(1, (int(np.prod(net.input_shape)) - 1).bit_length()),
+                  "peak_events": (vectors.get("peak_events") or {}).get("input"),
                   "events": ("one spike per nonzero input at step t = q - a" if ttfs
                              else "one event per nonzero input carrying its value a")},
         "addressing": "flat address of neuron (c, y, x) in a (C, H, W) map: c*H*W + y*W + x (the order of a "
@@ -221,13 +242,17 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
         "accumulator_limit": {"bits": int(net.acc_limit_bits), "overflow": net.overflow,
                               "words": ("unlimited: the potential never overflows (see each layer's accumulator_bits)"
                                         if not net.acc_limit_bits else
-                                        f"the potential at window close is limited to {net.acc_limit_bits} bits by "
-                                        f"{net.overflow}; every overflow is counted")},
+                                        f"the full-width potential at window close is limited to {net.acc_limit_bits} "
+                                        f"bits by {_LIMIT_WORDS[net.overflow]}, applied once after the last addition; "
+                                        "not a saturating adder: partial sums may leave the range and come back; "
+                                        "every overflow is counted")},
         "decision": "argmax of the output layer's potentials V at window close (bias included, after the declared "
                     "accumulator limit, before requantization); "
                     "ties go to the lowest class index"
-                    + ("; early decision: the class of the first output spike (ties: lowest address), -1 if none"
-                       if ttfs else ""),
+                    + ("; early decision: the class of the first output spike (ties: lowest address); "
+                       "early_decision = -1 in the golden vectors means no output neuron spiked in the window"
+                       if ttfs else "; payload coding has no early decision: early_decision is always -1 in the "
+                       "golden vectors"),
         "event_order": ("by time step, then by address" if ttfs else "by address, all at window end (t = 0)"),
         "event_columns": ["addr", "t", "payload"],
         "layers": layers, "tables_npz": tables_npz, "vectors": vectors, "files": files,

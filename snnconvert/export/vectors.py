@@ -8,11 +8,15 @@ In vectors.npz the tables of all samples are stacked with a leading `sample` col
     label             (N,)   true class, -1 when unknown
     input.events      (K, 4) sample, addr, t, payload of the input layer's events
     <layer id>.events (K, 4) same, for every layer that emits events (not sumpool)
+    <layer id>.potentials (N, neurons) every conv/dense layer's potentials at window close (after the
+                      declared accumulator limit), flat address order
+    directed          (N,)   0 for a test sample, else the code of a directed vector (manifest vectors.directed_kinds)
     potentials        (N, n_classes) output potentials at window close
     decision          (N,)   argmax of the potentials, ties to the lowest class
     early_decision    (N,)   ttfs: class of the first output spike; -1 if none or not ttfs
 CSV (optional): vectors/sample_0003/<stream>.csv with header addr,t,payload,
-vectors/sample_0003/potentials.csv (class,potential) and vectors/summary.csv.
+vectors/sample_0003/<layer id>.potentials.csv (addr,potential), vectors/sample_0003/potentials.csv
+(class,potential) and vectors/summary.csv.
 """
 
 from __future__ import annotations
@@ -26,7 +30,8 @@ from snnconvert.export.manifest import layer_id
 from snnconvert.intnet import IntNetwork
 
 EVENT_COLUMNS = ["addr", "t", "payload"]
-SUMMARY_COLUMNS = ["sample", "index", "label", "decision", "early_decision"]
+SUMMARY_COLUMNS = ["sample", "index", "label", "decision", "early_decision", "directed"]
+POTENTIAL_COLUMNS = ["addr", "potential"]
 INPUT = "input"
 
 
@@ -73,16 +78,23 @@ def trace_streams(net: IntNetwork, trace) -> dict[str, np.ndarray]:
     return out
 
 
+def potential_layers(net: IntNetwork) -> list[tuple[str, int]]:
+    """(layer id, layer index) of every layer with potentials (conv, dense) in layer order."""
+    return [(layer_id(i, L.name), i) for i, L in enumerate(net.layers) if L.weight is not None]
+
+
 def simulate(net: IntNetwork, x_int: np.ndarray, progress: bool = True, desc: str = "golden vectors") -> list:
-    """Run the event-by-event reference simulator on each sample: one RefTrace per sample."""
+    """Run the event-by-event reference simulator on each sample: one RefTrace per sample (with every
+    layer's potentials)."""
     from snnconvert.sim.reference import Tables, run_sample
     tables = Tables(net)  # fan-out index tables, built once for all samples
-    return [run_sample(net, x, tables) for x in console.bar(x_int, desc=desc, enabled=progress)]
+    return [run_sample(net, x, tables, keep_potentials=True) for x in console.bar(x_int, desc=desc, enabled=progress)]
 
 
 def golden_vectors(net: IntNetwork, x_int: np.ndarray, sample_index: np.ndarray, labels=None,
-                   progress: bool = True) -> dict[str, np.ndarray]:
-    """The vectors.npz arrays for input payloads `x_int` (N, C, H, W) int64."""
+                   progress: bool = True, directed=None) -> dict[str, np.ndarray]:
+    """The vectors.npz arrays for input payloads `x_int` (N, C, H, W) int64; `directed` (N,) codes
+    (0 = test sample)."""
     x_int = np.asarray(x_int, dtype=np.int64)
     n = x_int.shape[0]
     traces = simulate(net, x_int, progress)
@@ -92,6 +104,9 @@ def golden_vectors(net: IntNetwork, x_int: np.ndarray, sample_index: np.ndarray,
     for sid, _ in event_streams(net):
         rows = [np.column_stack([np.full(len(p[sid]), s, dtype=np.int64), p[sid]]) for s, p in enumerate(per)]
         arrays[f"{sid}.events"] = np.concatenate(rows, axis=0) if rows else np.zeros((0, 4), np.int64)  # (K, 4)
+    for lid, i in potential_layers(net):
+        arrays[f"{lid}.potentials"] = np.stack([t.layer_potentials[i] for t in traces]).reshape(n, -1)
+    arrays["directed"] = np.zeros(n, np.int64) if directed is None else np.asarray(directed, np.int64).reshape(n)
     arrays["potentials"] = np.stack([np.asarray(t.potentials, dtype=np.int64) for t in traces]).reshape(n, -1)
     arrays["decision"] = np.asarray([t.decision for t in traces], dtype=np.int64).reshape(n)
     arrays["early_decision"] = np.asarray([t.early_decision for t in traces], dtype=np.int64).reshape(n)
@@ -118,12 +133,18 @@ def csv_files(net: IntNetwork, arrays: dict[str, np.ndarray]) -> dict[str, bytes
         ev = arrays[f"{sid}.events"]
         for s in range(n):
             out[f"{sample_folder(s)}/{sid}.csv"] = _csv(EVENT_COLUMNS, ev[ev[:, 0] == s, 1:])
+    for lid, _ in potential_layers(net):
+        v = arrays[f"{lid}.potentials"]
+        for s in range(n):
+            out[f"{sample_folder(s)}/{lid}.potentials.csv"] = _csv(POTENTIAL_COLUMNS,
+                                                                   np.column_stack([np.arange(v.shape[1]), v[s]]))
     for s in range(n):
         pot = arrays["potentials"][s]
         out[f"{sample_folder(s)}/potentials.csv"] = _csv(["class", "potential"],
                                                          np.column_stack([np.arange(pot.size), pot]))
     out["vectors/summary.csv"] = _csv(SUMMARY_COLUMNS, np.column_stack(
-        [np.arange(n), arrays["sample_index"], arrays["label"], arrays["decision"], arrays["early_decision"]]))
+        [np.arange(n), arrays["sample_index"], arrays["label"], arrays["decision"], arrays["early_decision"],
+         arrays["directed"]]))
     return out
 
 

@@ -35,7 +35,7 @@ class Mismatch:
     table: `expected` is the value the other copies of the table agree on, `got` what `file` holds.
     sha256: `expected` is the manifest's digest, `got` the file's.
     """
-    kind: str                      # table | event | potential | decision | early_decision | sha256
+    kind: str                      # table | event | layer_potential | potential | decision | early_decision | directed | sha256
     file: str                      # file (relative to the folder) holding the wrong or disagreeing value
     line: int | None = None        # 1-based line in `file`, when it is a text file
     sample: int | None = None
@@ -56,6 +56,10 @@ class Mismatch:
         if self.kind == "event":
             nidx = f" {tuple(self.index)}" if self.index else ""
             return (f"first mismatch: {where}, neuron {self.neuron}{nidx}: expected {self.expected}, "
+                    f"got {self.got} [{at}]")
+        if self.kind == "layer_potential":
+            nidx = f" {tuple(self.index)}" if self.index else ""
+            return (f"first mismatch: {where}, potential of neuron {self.neuron}{nidx}: expected {self.expected}, "
                     f"got {self.got} [{at}]")
         if self.kind == "potential":
             return (f"first mismatch: {where}, potential of class {self.neuron}: expected {self.expected}, "
@@ -231,6 +235,25 @@ def _compare_stream(ck, s, sid, shape, expected, got, file, lines):
                      expected=_fmt_event(exp), got=_fmt_event(gt)))
 
 
+def _check_layer_potentials(ck, s, lid, shape, golden, got, npz_name, csv) -> None:
+    """One sample's potentials of layer `lid`: vectors.npz row (and the CSV file) against the re-simulation."""
+    got = np.asarray(got, dtype=np.int64).reshape(-1)
+    sources = [(npz_name, np.asarray(golden[s], dtype=np.int64).reshape(-1), None)]
+    if csv:
+        rel = f"{V.sample_folder(s)}/{lid}.potentials.csv"
+        rows, lines = parse_csv_rows(ck.text(rel), V.POTENTIAL_COLUMNS, str(ck.folder / rel))
+        if not np.array_equal(rows[:, 0], np.arange(len(rows))):
+            raise FormatError(f"{ck.folder / rel}: column addr must run 0, 1, 2, ...")
+        sources.append((rel, rows[:, 1], lines))
+    for file, exp, lines in sources:
+        k = V.first_difference(exp.reshape(-1, 1), got.reshape(-1, 1))
+        if k is not None:
+            ck.fail(Mismatch("layer_potential", file, int(lines[k]) if lines is not None and k < len(lines) else None,
+                             sample=s, layer=lid, neuron=k, index=_neuron_index(shape, k),
+                             expected=int(exp[k]) if k < exp.size else None,
+                             got=int(got[k]) if k < got.size else None))
+
+
 def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
     owner = str(ck.folder / MANIFEST)
     vec = man["vectors"]
@@ -253,11 +276,27 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
     for sid, _ in streams:
         if f"{sid}.events" not in z:
             raise FormatError(f"{ck.folder / vec['npz']}: array '{sid}.events' is missing")
+    listed = vec.get("npz_keys") or []
+    pot_layers = [(lid, i) for lid, i in V.potential_layers(net) if f"{lid}.potentials" in listed]
+    shapes_v = {lid: tuple(net.layers[i].out_shape) for lid, i in pot_layers}
+    for key in [f"{lid}.potentials" for lid, _ in pot_layers] + (["directed"] if "directed" in listed else []):
+        if key not in z:
+            raise FormatError(f"{ck.folder / vec['npz']}: array {key!r} is missing")
+    for lid, i in pot_layers:
+        if np.asarray(z[f"{lid}.potentials"]).shape != (n, int(np.prod(net.layers[i].out_shape))):
+            raise FormatError(f"{ck.folder / vec['npz']}: '{lid}.potentials' must have shape "
+                              f"({n}, {int(np.prod(net.layers[i].out_shape))})")
     csv = bool(vec.get("csv_folder"))
     summary = None
     if csv:
-        summary, summary_lines = parse_csv_rows(ck.text("vectors/summary.csv"), V.SUMMARY_COLUMNS,
-                                                  str(ck.folder / "vectors/summary.csv"))
+        text = ck.text("vectors/summary.csv")
+        cols = V.SUMMARY_COLUMNS if "directed" in listed else V.SUMMARY_COLUMNS[:-1]   # exports before directed vectors
+        summary, summary_lines = parse_csv_rows(text, cols, str(ck.folder / "vectors/summary.csv"))
+        if "directed" in listed:
+            for s_, (code, line) in enumerate(zip(summary[:, 5].tolist(), summary_lines.tolist())):
+                if s_ < n and code != int(z["directed"][s_]):
+                    ck.fail(Mismatch("directed", "vectors/summary.csv", int(line), sample=s_,
+                                     expected=int(z["directed"][s_]), got=int(code)))
     traces = V.simulate(net, x.astype(np.int64), progress, desc="verify")
     for s, tr in enumerate(traces):
         got = V.trace_streams(net, tr)
@@ -268,6 +307,9 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
                 rel = f"{V.sample_folder(s)}/{sid}.csv"
                 rows, lines = parse_csv_rows(ck.text(rel), V.EVENT_COLUMNS, str(ck.folder / rel))
                 _compare_stream(ck, s, sid, shapes[sid], rows, got[sid], rel, lines)
+        for lid, i in pot_layers:
+            _check_layer_potentials(ck, s, lid, shapes_v[lid], z[f"{lid}.potentials"], tr.layer_potentials[i],
+                                    vec["npz"], csv)
         pot = np.asarray(tr.potentials, dtype=np.int64).reshape(-1)
         pot_sources = [(vec["npz"], np.asarray(z["potentials"][s], dtype=np.int64).reshape(-1), None)]
         if csv:

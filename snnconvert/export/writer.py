@@ -16,7 +16,9 @@ from snnconvert.errors import FormatError, UsageError, check_bool, check_int, fa
 from snnconvert.export import fpga
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
-from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, golden_vectors, pick_samples
+from snnconvert.export.directed import KINDS as DIRECTED_KINDS
+from snnconvert.export.hwfacts import peak_events
+from snnconvert.export.vectors import EVENT_COLUMNS, csv_files, event_streams, golden_vectors, pick_samples
 from snnconvert.files import atomic_write_bytes, atomic_write_json, load_json, npz_bytes, resolve_inside, sha256_bytes
 from snnconvert.intnet import IntNetwork
 
@@ -63,7 +65,8 @@ def _check_inputs(net, x_int, labels, vectors):
 
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
                    recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
-                   progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False) -> Path:
+                   progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False,
+                   directed: bool = True) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
@@ -72,6 +75,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     coe_mif: also a Xilinx .coe and an Intel .mif block-RAM image per table, with `pack_bits` > 0
     packing floor(pack_bits / bits) table words into one memory word (fpga.LANE_ORDER).
     verilog: also the behavioural Verilog model and its self-checking testbench (export.verilog).
+    directed: with vectors > 0, also the directed vectors of export/directed.py after the test samples.
     An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
     a non-empty folder that holds no export is refused.
     """
@@ -111,11 +115,19 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
             specs[i][kind] = spec
     files[TABLES_NPZ] = npz_bytes(npz_tables)
 
+    directed = check_bool(directed, "directed", "export")
     idx = pick_samples(x.shape[0], vectors, labels)
+    xs, lab = x[idx], (None if labels is None else labels[idx])
     vec_info = {"count": int(idx.size), "npz": None, "csv_folder": None}
+    codes, dlist = np.zeros(idx.size, np.int64), []
+    if idx.size and directed:
+        xs, idx, lab, codes, dlist = add_directed(net, xs, idx, lab)
+        vec_info.update(count=int(idx.size), test_samples=int((codes == 0).sum()), directed=dlist,
+                        directed_kinds=dict(DIRECTED_KINDS))
     if idx.size:
-        arrays = golden_vectors(net, x[idx], idx, None if labels is None else labels[idx], progress=progress)
+        arrays = golden_vectors(net, xs, idx, lab, progress=progress, directed=codes)
         files[VECTORS_NPZ] = npz_bytes(arrays)
+        vec_info["peak_events"] = peak_events(arrays, [sid for sid, _ in event_streams(net)], int(idx.size))
         vec_info.update(npz=VECTORS_NPZ, npz_keys=sorted(arrays), npz_event_columns=["sample"] + EVENT_COLUMNS)
         if csv:
             files.update(csv_files(net, arrays))
@@ -141,6 +153,23 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     for rel, data in files.items():
         atomic_write_bytes(targets[rel], data)
     return atomic_write_json(out / MANIFEST, man)
+
+
+def add_directed(net: IntNetwork, x, idx, labels):
+    """Append the directed vectors to the test samples: (x, sample_index (-1 for directed), labels (-1),
+    directed codes, manifest entries [{sample, kind, layer, neuron, words}])."""
+    from snnconvert.export.directed import directed_vectors
+    from snnconvert.sim.reference import Tables, run_sample
+    tables = Tables(net)
+    dv = directed_vectors(net, lambda xi: run_sample(net, xi, tables))
+    n = len(idx)
+    entries = [{"sample": n + k, "kind": d["kind"], "layer": d["layer"], "neuron": d["neuron"], "words": d["words"]}
+               for k, d in enumerate(dv)]
+    x = np.concatenate([x, np.stack([d["x"] for d in dv])]) if dv else x
+    lab = np.full(len(dv), -1, np.int64)
+    labels = np.concatenate([np.full(n, -1, np.int64) if labels is None else labels, lab])
+    codes = np.concatenate([np.zeros(n, np.int64), [DIRECTED_KINDS[d["kind"]] for d in dv]]).astype(np.int64)
+    return x, np.concatenate([idx, np.full(len(dv), -1, np.int64)]), labels, codes, entries
 
 
 def previous_export_files(out: Path) -> dict[str, Path]:

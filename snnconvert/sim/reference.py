@@ -47,6 +47,7 @@ class RefTrace:
     max_abs_v: list                 # per layer, largest |V| seen (0 for pools)
     overflows: list                 # per layer, neurons whose potential overflowed the declared width
     sops: int = 0                   # synaptic operations: delivered (event, weight) pairs
+    layer_potentials: list | None = None  # per layer: (neurons,) int64 potentials at window close (pools: None)
 
 
 def _events(addr, t, payload) -> np.ndarray:
@@ -196,8 +197,9 @@ def _check_once(ev: np.ndarray, name: str) -> None:
         raise RuntimeError(f"layer {name}: a neuron fired more than once in one window")
 
 
-def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> RefTrace:
-    """Simulate one sample event by event. `x_int_sample` (C, H, W) int payloads in 0..input_q."""
+def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None, keep_potentials: bool = False) -> RefTrace:
+    """Simulate one sample event by event. `x_int_sample` (C, H, W) int payloads in 0..input_q.
+    keep_potentials: also keep every weighted layer's potentials (RefTrace.layer_potentials)."""
     T = tables if tables is not None else Tables(net)
     x = np.asarray(x_int_sample)
     if tuple(x.shape) != tuple(net.input_shape):
@@ -206,12 +208,13 @@ def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> R
         raise ValueError(f"input payloads must lie in 0..{net.input_q}; got {x.min()}..{x.max()}")
     ev = input_events(net, x)
     inp, q_window = ev, net.input_q
-    layer_events, max_abs_v, overflows, sops = [], [], [], 0
+    layer_events, max_abs_v, overflows, sops, layer_v = [], [], [], 0, []
     potentials, early = None, -1
     for L, tab in zip(net.layers, T.per_layer):
         if L.kind == "sumpool":
             ev = _route(tab["route"], ev)
             layer_events.append(None)
+            layer_v.append(None)
             max_abs_v.append(0)
             overflows.append(0)
             continue
@@ -230,6 +233,7 @@ def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> R
                 ev = _events(idx, np.zeros_like(idx), best[idx])
             _check_once(ev, L.name)
             layer_events.append(ev)
+            layer_v.append(None)
             max_abs_v.append(0)
             overflows.append(0)
             continue
@@ -241,6 +245,7 @@ def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> R
             overflows.append(int(over.sum()))
         else:
             overflows.append(0)
+        layer_v.append(np.asarray(v, dtype=np.int64).reshape(-1) if keep_potentials else None)
         if L.is_output:
             potentials = v.astype(np.int64)
             if net.coding == "ttfs":
@@ -255,7 +260,7 @@ def run_sample(net: IntNetwork, x_int_sample, tables: Tables | None = None) -> R
         q_window = L.q_out
     return RefTrace(input_events=inp, layer_events=layer_events, potentials=potentials,
                     decision=int(arith.argmax_first(potentials)), early_decision=early,
-                    max_abs_v=max_abs_v, overflows=overflows, sops=sops)
+                    max_abs_v=max_abs_v, overflows=overflows, sops=sops, layer_potentials=layer_v)
 
 
 def run_batch(net: IntNetwork, x_int, progress: bool = True) -> list[RefTrace]:
