@@ -72,7 +72,7 @@ def _trained(kind, coding, *, binary=True, per_channel=True, acc=0, overflow="sa
     (xtr, _), (xte, yte) = split(binary)
     q_in = 1 if binary else 3                                    # count frames: 0..3 (tests/_convert_helpers.py)
     net = convert(trained(kind, binary), xtr[::10], weight_bits=weight_bits, payload_bits=payload_bits,
-                  coding=coding, per_channel=per_channel, input_q=q_in, acc_limit_bits=acc, overflow=overflow)
+                  coding=coding, per_channel=per_channel, input_q=q_in, accumulator_bits=acc, overflow=overflow)
     return net, arith.quantize_input(xte, q_in), yte
 
 

@@ -31,6 +31,14 @@ def run_tb(export_dir, tmp_path, tb_dir="verilog") -> str:
     return done.stdout + done.stderr
 
 
+def pass_line(export_dir, test_samples: int) -> str:
+    """The testbench's PASS line: the test samples plus the directed vectors the manifest lists."""
+    import json
+    vec = json.loads((export_dir / "manifest.json").read_text())["vectors"]
+    assert vec["count"] == test_samples + len(vec.get("directed", []))
+    return f"PASS: {vec['count']} samples"
+
+
 def limited(net, bits, mode):
     return dataclasses.replace(net, acc_limit_bits=bits, overflow=mode)
 
@@ -61,7 +69,7 @@ def test_verilog_model_passes_the_golden_vectors(tmp_path, name, make, qin):
     if qin > 1:
         assert x.max() > 1
     log = run_tb(out, tmp_path)
-    assert "PASS: 4 samples" in log, log
+    assert pass_line(out, 4) in log, log
     assert "FAIL" not in log and "warning" not in log.lower(), log
 
 
@@ -85,7 +93,7 @@ def trained_exports(tmp_path_factory):
 @pytest.mark.parametrize("kind", ["conv_max", "conv_avg"])
 def test_verilog_model_passes_trained_networks(trained_exports, tmp_path, kind):
     log = run_tb(trained_exports[kind], tmp_path)
-    assert "PASS: 3 samples" in log, log
+    assert pass_line(trained_exports[kind], 3) in log, log
 
 
 def test_testbench_names_the_first_mismatch(trained_exports, tmp_path):
@@ -119,7 +127,7 @@ def test_generated_from_the_folder_alone_without_torch(trained_exports, tmp_path
     for f in ("snn_model.v", "snn_tb.v"):                      # the same sources as export --verilog wrote
         assert (out / "hdl" / f).read_text().replace('"hdl/', '"verilog/') == (src / "verilog" / f).read_text()
     log = run_tb(out, tmp_path, tb_dir="hdl")
-    assert "PASS: 3 samples" in log, log
+    assert pass_line(out, 3) in log, log
 
 
 def test_model_rounds_exact_halves_up(tmp_path):
@@ -140,7 +148,7 @@ def test_model_rounds_exact_halves_up(tmp_path):
     export_network(net, out, x, np.array([0]), vectors=1, progress=False, verilog=True)
     z = np.load(out / "vectors.npz")
     assert z["L0_hid.events"][:, 3].tolist() == [3, 2, 1, 3]   # halves up, by hand: (5+1)>>1, (3+1)>>1, (1+1)>>1
-    assert "PASS: 1 samples" in run_tb(out, tmp_path)
+    assert pass_line(out, 1) in run_tb(out, tmp_path)
 
 
 def test_cli_export_verilog_and_packing(tmp_path, capsys):
@@ -159,4 +167,4 @@ def test_cli_export_verilog_and_packing(tmp_path, capsys):
     man = json.loads((tmp_path / "out" / "manifest.json").read_text())
     assert man["layers"][0]["tables"]["weight"]["packing"]["lanes"] == 8          # 32 // 4-bit weights
     assert {"verilog/snn_model.v", "verilog/snn_tb.v"} <= set(man["files"])      # listed with their sha256
-    assert "PASS: 2 samples" in run_tb(tmp_path / "out", tmp_path)
+    assert pass_line(tmp_path / "out", 2) in run_tb(tmp_path / "out", tmp_path)
