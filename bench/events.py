@@ -58,16 +58,15 @@ def main(n_events: int = N_EVENTS) -> dict:
         threadpoolctl.threadpool_limits(1)
     except ImportError:  # pragma: no cover
         pass
-    from snnconvert import frames as F
-    from snnconvert import windows as W
+    from snnconvert import frames, windows
     from snnconvert.events import read_events, write_events
     stream = make_stream(n_events)
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "big.npz"
         write_events(stream, path)
         t_read, s = _best(lambda: read_events(path))
-    t_win, wins = _best(lambda: W.bursts(s))
-    t_bin, X = _best(lambda: F.bin_windows(s, wins, "binary", 16, 16))
+    t_win, wins = _best(lambda: windows.bursts(s))
+    t_bin, X = _best(lambda: frames.bin_windows(s, wins, "binary", 16, 16))
     pix = s.y.astype(np.int64) * s.width + s.x  # the same pixel indices, prepared outside the timing
     t_floor, _ = _best(lambda: np.bincount(pix, minlength=s.width * s.height))
     total = t_read + t_win + t_bin

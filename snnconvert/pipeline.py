@@ -20,9 +20,15 @@ import numpy as np
 from snnconvert import console
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
-from snnconvert.files import atomic_write_json, check_output_path, fingerprint, load_json
+from snnconvert.files import (
+    atomic_write_json,
+    check_output_path,
+    fingerprint,
+    load_json,
+)
 from snnconvert.settings import Section
 from snnconvert.stages import STAGES
+
 STAGE_LOG_VERSION = 1
 
 # What each stage reads: recipe sections (their settings objects are its fingerprint), and the
@@ -139,7 +145,7 @@ def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
 # --- stages -------------------------------------------------------------------------------
 
 def _data_stage(run_: Run) -> None:
-    from snnconvert import frames as frames_mod
+    from snnconvert import frames
     ds = run_.dataset()
     d = run_.out / "data"
     d.mkdir(parents=True, exist_ok=True)
@@ -154,9 +160,9 @@ def _data_stage(run_: Run) -> None:
         "mean_input_events_per_frame": round(events_per_frame, 2),
     }
     fr = run_.recipe["frames"]
-    frames_mod.plot_frames(Xtr, ytr, d / "frames.png", classes=list(ds.classes), mode=fr["mode"], q=ds.input_q,
-                           caption=frames_mod.frames_caption("train", fr["mode"], ds.input_shape, fr["threshold"],
-                                                             fr["max_count"]))
+    frames.plot_frames(Xtr, ytr, d / "frames.png", classes=list(ds.classes), mode=fr["mode"], q=ds.input_q,
+                       caption=frames.frames_caption("train", fr["mode"], ds.input_shape, fr["threshold"],
+                                                     fr["max_count"]))
     example = _example_recording(run_)
     if example is not None:
         summary["example_recording"] = example
@@ -177,21 +183,20 @@ def data_line(samples: dict, input_shape, mode: str, n_classes: int) -> str:
 
 def _example_recording(run_: Run) -> dict | None:
     """Plot the first training recording: rate trace, thresholds, bursts and their frames."""
-    from snnconvert import frames as F
-    from snnconvert import windows as W
+    from snnconvert import frames, windows
     ds = run_.dataset()
     if ds.recordings is None or len(ds.recordings) == 0:
         return None
     i = int(ds.split_index["train"][0]) if ds.split_index.get("train") is not None else 0
     stream, label = ds.recordings[i]
     fr = run_.recipe["frames"]
-    tk, rate = W.rate_trace(stream, fr["bin_us"])
-    wins = F.windows_of(stream, fr)
-    thr = W.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"]) if fr["window"] == "burst" else None
-    frames = [F.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
-    F.plot_recording(stream, wins, (tk, rate), frames, run_.out / "data" / "events.png", thresholds=thr,
-                     mode=fr["mode"], q=ds.input_q,
-                     title=f"recording {i} (label {ds.classes[label]}): {len(stream)} events, {len(wins)} windows")
+    tk, rate = windows.rate_trace(stream, fr["bin_us"])
+    wins = frames.windows_of(stream, fr)
+    thr = windows.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"]) if fr["window"] == "burst" else None
+    shown = [frames.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
+    frames.plot_recording(stream, wins, (tk, rate), shown, run_.out / "data" / "events.png", thresholds=thr,
+                          mode=fr["mode"], q=ds.input_q,
+                          title=f"recording {i} (label {ds.classes[label]}): {len(stream)} events, {len(wins)} windows")
     return {"index": i, "label": ds.classes[label], "events": len(stream),
             "windows": [[int(a), int(b), int(np.count_nonzero((stream.t >= a) & (stream.t < b)))] for a, b in wins]}
 

@@ -6,7 +6,7 @@ import torch
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from snnconvert import frames as F
+from snnconvert import frames
 from snnconvert.errors import UsageError
 from snnconvert.events import EventStream
 from snnconvert.settings.frames import FramesSettings
@@ -20,7 +20,7 @@ def rand_stream(n=500, w=32, h=32, seed=0, t_max=10_000):
 
 def test_full_resolution_counts_match_histogram2d():
     s = rand_stream()
-    got = F.bin_window(s, 0, 10_000, "count", 32, 1, 255)[0]
+    got = frames.bin_window(s, 0, 10_000, "count", 32, 1, 255)[0]
     ref, _, _ = np.histogram2d(s.y, s.x, bins=[np.arange(33), np.arange(33)])  # numpy's own binning
     assert np.array_equal(got, np.minimum(ref, 255))
 
@@ -29,23 +29,23 @@ def test_full_resolution_counts_match_histogram2d():
 def test_subsampling_is_sum_pooling(size):
     # divisible case: equals torch's avg_pool2d times the pool area (a sum pool)
     s = rand_stream(2000)
-    full = F.bin_window(s, 0, 10_000, "count", 32, 1, 255)
+    full = frames.bin_window(s, 0, 10_000, "count", 32, 1, 255)
     k = 32 // size
     ref = torch.nn.functional.avg_pool2d(torch.tensor(full)[None], k)[0].numpy() * k * k
-    got = F.bin_window(s, 0, 10_000, "count", size, 1, 255)
+    got = frames.bin_window(s, 0, 10_000, "count", size, 1, 255)
     assert np.array_equal(got, np.rint(ref))
 
 
 def test_uneven_subsampling_keeps_every_event():
     # 34 -> 16: target pixels take 2 or 3 sensor pixels, none dropped or counted twice
     s = rand_stream(3000, 34, 34)
-    got = F.bin_window(s, 0, 10_000, "count", 16, 1, 255)
+    got = frames.bin_window(s, 0, 10_000, "count", 16, 1, 255)
     assert got.sum() == len(s)
     # one event on every sensor column of row 0: a target pixel's count is the number of sensor
     # columns it gathers, floor(34/16) = 2 or ceil(34/16) = 3 (hand-computed), 34 in all
     row = EventStream.from_arrays(np.zeros(34, np.int64), np.arange(34), np.zeros(34, np.int64),
                                   np.ones(34, np.int64), 34, 34)
-    per_target = F.bin_window(row, 0, 1, "count", 16, 1, 255)[0, 0]
+    per_target = frames.bin_window(row, 0, 1, "count", 16, 1, 255)[0, 0]
     assert set(per_target.tolist()) == {2.0, 3.0} and per_target.sum() == 34
     # and against numpy's histogram2d with the same 2-or-3 pixel groups (x*16//34)
     full, _, _ = np.histogram2d(s.y, s.x, bins=[np.arange(35), np.arange(35)])
@@ -61,8 +61,8 @@ def test_uneven_subsampling_keeps_every_event():
 def test_binary_frame_invariant(seed, size, threshold, n):
     # binary mode: a pixel fires at most once per window, and only if its pooled count reaches the threshold
     s = rand_stream(n, 30, 20, seed)
-    b = F.bin_window(s, 0, 10_000, "binary", size, threshold)
-    c = F.bin_window(s, 0, 10_000, "count", size, 1, 255)
+    b = frames.bin_window(s, 0, 10_000, "binary", size, threshold)
+    c = frames.bin_window(s, 0, 10_000, "count", size, 1, 255)
     assert b.shape == (1, size, size) and b.dtype == np.float32
     assert set(np.unique(b).tolist()) <= {0.0, 1.0}
     assert np.array_equal(b, (c >= threshold).astype(np.float32))
@@ -71,28 +71,28 @@ def test_binary_frame_invariant(seed, size, threshold, n):
 
 def test_polarity_channels_and_clip():
     s = EventStream.from_arrays([0, 1, 2, 3, 4, 5], [0, 0, 0, 0, 1, 1], [0] * 6, [1, 1, 1, -1, -1, 1], 2, 1)
-    f = F.bin_window(s, 0, 10, "polarity", 2, 1, 2)
+    f = frames.bin_window(s, 0, 10, "polarity", 2, 1, 2)
     assert f.shape == (2, 2, 2)
     # hand-computed from the six events: x=0 has ON 3 (clipped at max_count=2) and OFF 1; x=1 has ON 1, OFF 1
     assert f[0, 0].tolist() == [2, 1] and f[1, 0].tolist() == [1, 1]
-    assert F.bin_window(s, 0, 3, "count", 2, 1, 9)[0, 0].tolist() == [3, 0]  # hand-computed: [0, 3) holds t=0,1,2 at x=0
+    assert frames.bin_window(s, 0, 3, "count", 2, 1, 9)[0, 0].tolist() == [3, 0]  # hand-computed: [0, 3) holds t=0,1,2 at x=0
 
 
 def test_bin_windows_equals_single_windows():
     s = rand_stream(1000)
     wins = [(0, 2000), (2000, 5000), (7000, 10_000)]
-    many = F.bin_windows(s, wins, "count", 8, 1, 50)
+    many = frames.bin_windows(s, wins, "count", 8, 1, 50)
     for i, (a, b) in enumerate(wins):
-        assert np.array_equal(many[i], F.bin_window(s, a, b, "count", 8, 1, 50))
+        assert np.array_equal(many[i], frames.bin_window(s, a, b, "count", 8, 1, 50))
     with pytest.raises(UsageError, match="non-overlapping"):
-        F.bin_windows(s, [(0, 3000), (2000, 4000)])
+        frames.bin_windows(s, [(0, 3000), (2000, 4000)])
 
 
 def test_input_q_and_channels():
     # the frame definitions (module docstring): binary holds 0/1, count holds 0..max_count;
     # polarity has ON and OFF channels
-    assert F.input_q("binary", 9) == 1 and F.input_q("count", 9) == 9
-    assert F.channels("polarity") == 2 and F.channels("binary") == 1
+    assert frames.input_q("binary", 9) == 1 and frames.input_q("count", 9) == 9
+    assert frames.channels("polarity") == 2 and frames.channels("binary") == 1
 
 
 @pytest.mark.parametrize("kw, match", [
@@ -103,25 +103,25 @@ def test_input_q_and_channels():
 def test_validation(kw, match):
     args = dict(mode="binary", size=8, threshold=1, max_count=4) | kw
     with pytest.raises(UsageError, match=match):
-        F.bin_window(rand_stream(10), 0, 10, **args)
+        frames.bin_window(rand_stream(10), 0, 10, **args)
 
 
 def test_frame_window_falls_back_to_all_events():
     s = EventStream.from_arrays([0] * 5, [0, 1, 2, 3, 4], [0] * 5, [1] * 5, 8, 8)  # one instant: no burst
-    (a, b), ok = F.frame_window(s, FramesSettings.from_section({}).as_dict())
+    (a, b), ok = frames.frame_window(s, FramesSettings.from_section({}).as_dict())
     assert not ok and (a, b) == (0, 1)  # hand-computed: all events, [t_first, t_last + 1) = [0, 1)
 
 
 def test_plots_write_png(tmp_path):
-    from snnconvert import windows as W
+    from snnconvert import windows
     s = rand_stream(2000)
-    wins = W.bursts(s, relative=False, upper=10.0, lower=5.0)
-    fr = [F.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in wins]
-    p = F.plot_recording(s, wins, W.rate_trace(s), fr, tmp_path / "r.png", thresholds=(10.0, 5.0))
+    wins = windows.bursts(s, relative=False, upper=10.0, lower=5.0)
+    fr = [frames.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in wins]
+    p = frames.plot_recording(s, wins, windows.rate_trace(s), fr, tmp_path / "r.png", thresholds=(10.0, 5.0))
     assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, ISO/IEC 15948 §5.2)
     X = np.random.default_rng(0).integers(0, 2, (20, 1, 8, 8)).astype(np.float32)
-    q = F.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))
-    assert q.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
+    png = frames.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
 
 
 @pytest.mark.parametrize("mode, q, vmin, vmax", [
@@ -131,11 +131,11 @@ def test_plots_write_png(tmp_path):
 ])
 def test_frame_plot_uses_a_fixed_scale(mode, q, vmin, vmax):
     import matplotlib.pyplot as plt
-    c = F.channels(mode)
+    c = frames.channels(mode)
     X = np.zeros((6, c, 8, 8), np.float32)
     X[0] = 1 if mode == "binary" else 3   # every pixel set, far below the top of the count scale
     X[1, 0, :2] = q
-    fig = F.frames_figure(X, np.array([0, 0, 1, 1, 2, 2]), classes=list("abcd"), mode=mode, q=q, caption="cap")
+    fig = frames.frames_figure(X, np.array([0, 0, 1, 1, 2, 2]), classes=list("abcd"), mode=mode, q=q, caption="cap")
     try:
         ims = [a.images[0] for a in fig.axes if a.images]
         assert len(ims) == 6
@@ -155,6 +155,6 @@ def test_frame_plot_uses_a_fixed_scale(mode, q, vmin, vmax):
 
 
 def test_frames_caption():
-    assert F.frames_caption("train", "binary", (1, 16, 16), 16, 15) == (
+    assert frames.frames_caption("train", "binary", (1, 16, 16), 16, 15) == (
         "train split: binary frames 1x16x16, a pixel spikes at >= 16 events; row label = class (examples in the split)")
-    assert "clipped at 15" in F.frames_caption("test", "polarity", (2, 16, 16), 16, 15)
+    assert "clipped at 15" in frames.frames_caption("test", "polarity", (2, 16, 16), 16, 15)

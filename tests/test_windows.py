@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from snnconvert import windows as W
+from snnconvert import windows
 from snnconvert.errors import UsageError
 from snnconvert.events import EventStream
 
@@ -26,7 +26,7 @@ def bursty(seed=0):
 
 def test_rate_trace_matches_direct_count():
     s = stream_from_times(np.random.default_rng(1).integers(0, 20_000, 300))
-    tk, rate = W.rate_trace(s, bin_us=1000)
+    tk, rate = windows.rate_trace(s, bin_us=1000)
     assert np.all(np.diff(tk) == 250) and tk[0] == s.t[0]  # the toolkit's documented slide: bin_us / 4 = 250 us
     direct = np.array([np.count_nonzero((s.t >= a) & (s.t < a + 1000)) for a in tk])  # plain definition: events in [t, t+bin)
     assert np.array_equal(np.rint(rate * 1000 / 1e6).astype(int), direct)
@@ -35,7 +35,7 @@ def test_rate_trace_matches_direct_count():
 
 def test_bursts_found_around_the_dense_parts():
     s = bursty()
-    found = W.bursts(s, bin_us=1000, upper=8, lower=2)
+    found = windows.bursts(s, bin_us=1000, upper=8, lower=2)
     assert len(found) == 2
     (a0, a1), (b0, b1) = found
     # hand-computed from the construction of bursty(): bursts at 20-23 ms and 60-62 ms, edges within one
@@ -54,7 +54,7 @@ def test_bursts_found_around_the_dense_parts():
     (dict(relative=False, upper=1e9, lower=1.0), 0),  # 1e9 events/s: far above the 200k events/s peaks
 ])
 def test_burst_parameters(kw, n):
-    assert len(W.bursts(bursty(), **kw)) == n
+    assert len(windows.bursts(bursty(), **kw)) == n
 
 
 def test_hysteresis_keeps_burst_through_dip_above_lower():
@@ -64,20 +64,20 @@ def test_hysteresis_keeps_burst_through_dip_above_lower():
                         np.arange(14_000, 16_000, 2),
                         np.arange(40_000, 42_000, 100)])     # 10k/s: above lower, never above upper
     s = stream_from_times(t)
-    found = W.bursts(s, relative=False, upper=100_000.0, lower=5_000.0, merge_gap_us=0)
+    found = windows.bursts(s, relative=False, upper=100_000.0, lower=5_000.0, merge_gap_us=0)
     # hand-computed from the times above: starts at the first burst event, ends within one 1 ms bin of 16 ms
     assert len(found) == 1 and found[0][0] == 10_000 and 16_000 <= found[0][1] <= 17_000
 
 
 def test_empty_and_silent():
     e = EventStream.empty(4, 4)
-    assert W.bursts(e) == [] and W.fixed_windows(e, 10) == [] and W.count_windows(e, 3) == []
-    assert W.rate_trace(e)[0].size == 0
+    assert windows.bursts(e) == [] and windows.fixed_windows(e, 10) == [] and windows.count_windows(e, 3) == []
+    assert windows.rate_trace(e)[0].size == 0
 
 
 def test_fixed_windows_cover_every_event_once():
     s = stream_from_times(np.random.default_rng(2).integers(0, 10_000, 200))
-    wins = W.fixed_windows(s, 1000)
+    wins = windows.fixed_windows(s, 1000)
     assert all(b - a == 1000 for a, b in wins)  # the requested width
     counts = [np.count_nonzero((s.t >= a) & (s.t < b)) for a, b in wins]
     assert sum(counts) == len(s)
@@ -87,7 +87,7 @@ def test_fixed_windows_cover_every_event_once():
 def test_count_windows(n):
     t = np.repeat(np.arange(100), 3)  # ties: three events per timestamp
     s = stream_from_times(t)
-    wins = W.count_windows(s, n)
+    wins = windows.count_windows(s, n)
     counts = [np.count_nonzero((s.t >= a) & (s.t < b)) for a, b in wins]
     assert sum(counts) == len(s)
     assert all(c <= n + 2 for c in counts)  # a window may take the rest of a tied timestamp
@@ -96,10 +96,10 @@ def test_count_windows(n):
 
 def test_pick_rules():
     s = bursty()
-    found = W.bursts(s)
-    assert W.pick(s, found, "first") == found[0]
-    assert W.pick(s, [(0, 100), (20_000, 23_000)], "largest") == (20_000, 23_000)  # 600 burst events vs ~0 (bursty())
-    assert W.pick(s, [], "first") is None
+    found = windows.bursts(s)
+    assert windows.pick(s, found, "first") == found[0]
+    assert windows.pick(s, [(0, 100), (20_000, 23_000)], "largest") == (20_000, 23_000)  # 600 burst events vs ~0 (bursty())
+    assert windows.pick(s, [], "first") is None
 
 
 @pytest.mark.parametrize("kw, match", [
@@ -109,4 +109,4 @@ def test_pick_rules():
 ])
 def test_burst_validation(kw, match):
     with pytest.raises(UsageError, match=match):
-        W.bursts(bursty(), **kw)
+        windows.bursts(bursty(), **kw)

@@ -7,9 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert import console
-from snnconvert import frames as F
-from snnconvert import windows as W
+from snnconvert import console, frames, windows
 from snnconvert.errors import UsageError
 from snnconvert.events import parse_sensor, read_events
 from snnconvert.events.formats import TIME_UNITS
@@ -43,16 +41,16 @@ def add_arguments(p) -> None:
     g.add_argument("--merge-gap-us", type=int, default=_FS["merge_gap_us"].default,
                    help="merge bursts closer than this (%(default)s)")
     g.add_argument("--size", type=int, default=_FS["size"].default, help="plotted frame side (%(default)s)")
-    g.add_argument("--mode", choices=F.MODES, default=_FS["mode"].default, help="plotted frame mode (%(default)s)")
+    g.add_argument("--mode", choices=frames.MODES, default=_FS["mode"].default, help="plotted frame mode (%(default)s)")
     g.add_argument("--threshold", type=int, default=_FS["threshold"].default,
                    help="binary frames: events per pooled pixel (%(default)s)")
 
 
 def summarize(stream, bin_us, upper, lower, relative, min_duration_us, merge_gap_us) -> dict:
     """The summary printed by the command (also its --json object)."""
-    found = W.bursts(stream, bin_us, upper, lower, relative, min_duration_us, merge_gap_us)
-    tk, rate = W.rate_trace(stream, bin_us)
-    hi, lo = W.thresholds(rate, bin_us, upper, lower, relative) if rate.size else (0.0, 0.0)
+    found = windows.bursts(stream, bin_us, upper, lower, relative, min_duration_us, merge_gap_us)
+    tk, rate = windows.rate_trace(stream, bin_us)
+    hi, lo = windows.thresholds(rate, bin_us, upper, lower, relative) if rate.size else (0.0, 0.0)
     out = stream.summary()
     counts = np.diff(np.searchsorted(stream.t, np.asarray(found, np.int64).ravel()).reshape(-1, 2), axis=1).ravel() \
         if found else []
@@ -77,12 +75,12 @@ def run(args) -> int:
                      args.merge_gap_us)
     info["file"] = str(args.file)
     if args.plot:
-        frames = [F.bin_window(stream, s, e, args.mode, args.size, args.threshold, _FS["max_count"].default)
-                  for s, e, _ in info["bursts"]]
+        burst_frames = [frames.bin_window(stream, s, e, args.mode, args.size, args.threshold,
+                                          _FS["max_count"].default) for s, e, _ in info["bursts"]]
         th = (info["thresholds_hz"]["upper"], info["thresholds_hz"]["lower"])
-        F.plot_recording(stream, [(s, e) for s, e, _ in info["bursts"]], W.rate_trace(stream, args.bin_us), frames,
-                         args.plot, thresholds=th, title=Path(args.file).name, mode=args.mode,
-                         q=F.input_q(args.mode, _FS["max_count"].default))
+        frames.plot_recording(stream, [(s, e) for s, e, _ in info["bursts"]], windows.rate_trace(stream, args.bin_us),
+                              burst_frames, args.plot, thresholds=th, title=Path(args.file).name, mode=args.mode,
+                              q=frames.input_q(args.mode, _FS["max_count"].default))
         info["plot"] = str(args.plot)
     if args.json:
         console.echo(json.dumps(info, sort_keys=True))

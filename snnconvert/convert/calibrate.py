@@ -31,17 +31,17 @@ def calibration_subset(n_total: int, n: int) -> np.ndarray:
     return np.unique(np.round(np.linspace(0, n_total - 1, n)).astype(np.int64))
 
 
-def range_statistic(values: np.ndarray, rule: str, q: float) -> float:
-    """max or the q-th percentile (linear interpolation, numpy's default) of the positive values; 0 if none
+def range_statistic(values: np.ndarray, rule: str, pct: float) -> float:
+    """max or the pct-th percentile (linear interpolation, numpy's default) of the positive values; 0 if none
     (a dead layer, see the module docstring)."""
     v = values[values > 0]
     if v.size == 0:
         return 0.0
-    return float(v.max()) if rule == "max" else float(np.percentile(v, q))
+    return float(v.max()) if rule == "max" else float(np.percentile(v, pct))
 
 
 @torch.no_grad()
-def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max=None,
+def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, pct: float, act_max=None,
                       batch: int = 256, quiet: bool = True) -> list[float | None]:
     """One range per op: conv/dense get r_l, pools get None (they keep their input's scale).
 
@@ -65,7 +65,7 @@ def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max
     ranges: list[float | None] = [None] * len(ops)
     for i in collected:
         allv = np.concatenate(collected[i]) if collected[i] else np.zeros(0)
-        ranges[i] = range_statistic(allv, rule, q)
+        ranges[i] = range_statistic(allv, rule, pct)
     for j, i in enumerate(hidden):
         if act_max is not None:
             ranges[i] = act_max[j]
@@ -74,11 +74,11 @@ def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, q: float, act_max
     return ranges
 
 
-def hidden_ranges(model, x, rule: str, q: float, quiet: bool = True) -> list[float]:
+def hidden_ranges(model, x, rule: str, pct: float, quiet: bool = True) -> list[float]:
     """The calibrated range r_l of each hidden activation of a float `model` over frames `x`, in
     order: `activation_ranges` of its folded ops, one value per ReLU (0 for a dead layer).
     Conversion-aware training starts its clip ranges a_max here, so it starts where the converter
     would calibrate a float model with the same rule."""
     ops = fold(model)
-    ranges = activation_ranges(ops, x, rule, q, quiet=quiet)
+    ranges = activation_ranges(ops, x, rule, pct, quiet=quiet)
     return [float(ranges[i]) for i, op in enumerate(ops) if op.kind in ("conv", "dense") and op.act is not None]

@@ -47,9 +47,9 @@ def pick_samples(n_total: int, count: int, labels=None) -> np.ndarray:
     queues = [np.flatnonzero(labels == c) for c in np.unique(labels)]
     picked, turn = [], 0
     while len(picked) < count:
-        for q in queues:
-            if turn < q.size and len(picked) < count:
-                picked.append(int(q[turn]))
+        for queue in queues:
+            if turn < queue.size and len(picked) < count:
+                picked.append(int(queue[turn]))
         turn += 1
     return np.asarray(picked, dtype=np.int64)
 

@@ -19,11 +19,11 @@ def parse_range_rule(value, key: str = "calibration", section: str = "convert") 
     head, sep, tail = text.partition(":")
     if head == "percentile" and sep:
         try:
-            q = float(tail)
+            pct = float(tail)
         except ValueError:
-            q = float("nan")
-        if 0.0 < q <= 100.0:
-            return "percentile", q
+            pct = float("nan")
+        if 0.0 < pct <= 100.0:
+            return "percentile", pct
     raise UsageError(f"The '{key}' parameter of {section} must be 'max' or 'percentile:Q' with Q in (0, 100]. "
                      f"Got {value!r} instead.")
 
