@@ -11,6 +11,7 @@ finished stages intact and the next run picks up where this one stopped.
 
 from __future__ import annotations
 
+import os
 import shutil
 import time
 from pathlib import Path
@@ -114,6 +115,65 @@ class Run:
         console.say(f"[{name}] done in {secs:.1f} s")
 
 
+class Undo:
+    """What a run adds to the file system before its first stage finishes, so that a refused run
+    leaves everything as it found it.
+
+    Taken before the run folder is created: a folder this call creates (with any missing parents)
+    is removed whole; in a run folder that already existed, every path it did not hold is removed,
+    and its recipe.toml and stages.json get their bytes back. The times of the folders and files
+    that existed are restored too, so nothing reads as changed. Finished stages are never touched.
+    """
+
+    KEPT = ("recipe.toml", "stages.json")
+
+    def __init__(self, out: Path):
+        out = Path(out).absolute()
+        top = out
+        while not top.parent.exists():
+            top = top.parent
+        self.out = out
+        self.created = None if out.exists() else top           # the highest folder this call creates
+        base = top.parent if self.created else out
+        self.times = {base: _times(base)}                      # folders whose listing may change
+        self.files: dict[Path, tuple[bytes, tuple[int, int]]] = {}
+        self.existing: set[Path] = set()
+        if self.created is None:
+            for dirpath, dirnames, filenames in os.walk(out):
+                d = Path(dirpath)
+                self.times[d] = _times(d)
+                self.existing.update(d / n for n in dirnames + filenames)
+            for name in self.KEPT:
+                if (out / name).is_file():
+                    self.files[out / name] = ((out / name).read_bytes(), _times(out / name))
+
+    def restore(self) -> None:
+        if self.created is not None:
+            shutil.rmtree(self.created, ignore_errors=True)
+        else:
+            for dirpath, dirnames, filenames in os.walk(self.out, topdown=True):
+                d = Path(dirpath)
+                for n in list(dirnames):
+                    if d / n not in self.existing:
+                        shutil.rmtree(d / n, ignore_errors=True)
+                        dirnames.remove(n)
+                for n in filenames:
+                    if d / n not in self.existing:
+                        (d / n).unlink(missing_ok=True)
+            for path, (data, times) in self.files.items():
+                if path.read_bytes() != data:
+                    atomic_write_bytes(path, data)
+                os.utime(path, ns=times)
+        for d, times in self.times.items():
+            if d.is_dir():
+                os.utime(d, ns=times)
+
+
+def _times(path: Path) -> tuple[int, int]:
+    st = os.stat(path)
+    return st.st_atime_ns, st.st_mtime_ns
+
+
 def default_out(recipe: dict) -> Path:
     return Path("runs") / recipe["name"]
 
@@ -124,18 +184,24 @@ def run(recipe_path, out=None, overrides=(), force: str | None = None) -> dict:
         raise UsageError(f"The 'force' parameter of run must be one of {', '.join(map(repr, STAGES))}. Got {force!r} instead.")
     r, settings = recipe_mod.load_settings(recipe_path, overrides)
     out = check_output_path(out or default_out(r), "--out" if out else "", "folder")
-    out.mkdir(parents=True, exist_ok=True)
-    recipe_mod.save(r, out)
-    run_ = Run(r, settings, out, force)
-
-    run_.stage("data", lambda: _data_stage(run_))
-    run_.stage("train", lambda: _train_stage(run_))
-    run_.stage("convert", lambda: _convert_stage(run_))
-    if settings["sweep"].enabled:
-        run_.stage("sweep", lambda: _sweep_stage(run_))
-    run_.stage("export", lambda: _export_stage(run_))
-    run_.stage("verify", lambda: _verify_stage(run_))
-    run_.stage("report", lambda: _report_stage(run_))
+    undo = Undo(out)
+    run_ = None
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        recipe_mod.save(r, out)
+        run_ = Run(r, settings, out, force)
+        run_.stage("data", lambda: _data_stage(run_))
+        run_.stage("train", lambda: _train_stage(run_))
+        run_.stage("convert", lambda: _convert_stage(run_))
+        if settings["sweep"].enabled:
+            run_.stage("sweep", lambda: _sweep_stage(run_))
+        run_.stage("export", lambda: _export_stage(run_))
+        run_.stage("verify", lambda: _verify_stage(run_))
+        run_.stage("report", lambda: _report_stage(run_))
+    except UsageError:
+        if run_ is None or "ran" not in run_.actions.values():
+            undo.restore()   # refused before any stage finished: leave the file system as it was
+        raise
     summary = _summary(run_)
     atomic_write_json(out / "summary.json", summary)
     _print_summary(summary)

@@ -45,6 +45,17 @@ def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
     assert (net_dir / "confusion.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"   # PNG signature (PNG spec)
 
 
+def test_convert_reads_the_checkpoint_once(run_dir, tmp_path, monkeypatch, capsys):
+    reads, real = [], train.load_checkpoint
+
+    def load_checkpoint(path):
+        reads.append(str(path))
+        return real(path)
+    monkeypatch.setattr(train, "load_checkpoint", load_checkpoint)
+    assert main(["convert", str(run_dir / "train"), "--out", str(tmp_path / "net"), "--quiet"]) == 0
+    assert reads == [str(run_dir / "train" / "model.pt")]
+
+
 def test_simulate_reruns_and_checks_the_reference(run_dir, capsys):
     assert main(["convert", str(run_dir / "train"), "--out", str(run_dir / "net2"), "--quiet"]) == 0
     capsys.readouterr()

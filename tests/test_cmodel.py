@@ -17,7 +17,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import split, trained  # noqa: E402
 from snnconvert import arith  # noqa: E402
 from snnconvert.cli import main  # noqa: E402
-from snnconvert.convert import convert  # noqa: E402
+from snnconvert.convert import convert_model  # noqa: E402
 from snnconvert.export import export_network  # noqa: E402
 from snnconvert.export import cmodel as C  # noqa: E402
 from snnconvert.export.compare import compare  # noqa: E402
@@ -71,8 +71,8 @@ def _trained(kind, coding, *, binary=True, per_channel=True, acc=0, overflow="sa
              weight_bits=4):
     (xtr, _), (xte, yte) = split(binary)
     q_in = 1 if binary else 3                                    # count frames: 0..3 (tests/_convert_helpers.py)
-    net = convert(trained(kind, binary), xtr[::10], weight_bits=weight_bits, payload_bits=payload_bits,
-                  coding=coding, per_channel=per_channel, input_q=q_in, accumulator_bits=acc, overflow=overflow)
+    net = convert_model(trained(kind, binary), xtr[::10], weight_bits=weight_bits, payload_bits=payload_bits,
+                        coding=coding, per_channel=per_channel, input_q=q_in, accumulator_bits=acc, overflow=overflow)
     return net, arith.quantize_input(xte, q_in), yte
 
 
@@ -148,8 +148,8 @@ def test_c_model_of_the_default_size_network(tmp_path):
                ["data.limit=300", f"data.cache_dir={tmp_path / 'cache'}", "train.epochs=2"])
     ds = load_dataset(r, progress=False)
     model, _ = train(r, ds, tmp_path / "train", quiet=True)
-    net = convert(model, np.asarray(ds.train[0][:64]), weight_bits=4, payload_bits=4, coding="payload",
-                  per_channel=True, input_q=int(ds.input_q))
+    net = convert_model(model, np.asarray(ds.train[0][:64]), weight_bits=4, payload_bits=4, coding="payload",
+                        per_channel=True, input_q=int(ds.input_q))
     assert sum(L.weight.size for L in net.layers if L.weight is not None) > 30000   # default size, not a toy
     x, y = test_inputs(net, r, progress=False)
     export_network(net, tmp_path / "e", x, y, vectors=4, csv=False, progress=False)

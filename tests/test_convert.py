@@ -12,7 +12,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import accuracy, split, trained  # noqa: E402
 
 from snnconvert import arith  # noqa: E402
-from snnconvert.convert import ConvertSettings, convert, fold, folded_forward, parse_range_rule  # noqa: E402
+from snnconvert.convert import ConvertSettings, convert_model, fold, folded_forward, parse_range_rule  # noqa: E402
 from snnconvert.settings.convert import KEYS  # noqa: E402
 from snnconvert.convert.calibrate import activation_ranges, calibration_subset, range_statistic  # noqa: E402
 from snnconvert.errors import UsageError  # noqa: E402
@@ -42,7 +42,7 @@ X16 = np.zeros((4, 1, 16, 16), dtype=np.float32)
 ])
 def test_unsupported_models_are_rejected_before_work(layers, match):
     with pytest.raises(UsageError, match=match):
-        convert(nn.Sequential(*layers), X16, weight_bits=4, payload_bits=4, coding="payload")
+        convert_model(nn.Sequential(*layers), X16, weight_bits=4, payload_bits=4, coding="payload")
 
 
 @pytest.mark.parametrize("kw,msg", [
@@ -56,7 +56,7 @@ def test_unsupported_models_are_rejected_before_work(layers, match):
 def test_parameters_are_validated_with_the_template(kw, msg):
     args = dict(weight_bits=4, payload_bits=4, coding="payload") | kw
     with pytest.raises(UsageError) as e:
-        convert(nn.Sequential(nn.Flatten(), nn.Linear(256, 10)), X16, **args)
+        convert_model(nn.Sequential(nn.Flatten(), nn.Linear(256, 10)), X16, **args)
     assert str(e.value) == msg
 
 
@@ -117,7 +117,7 @@ def test_calibration_is_deterministic_and_uses_positive_values():
 def test_weights_are_symmetric_k_bit_and_biases_at_the_accumulator_scale(k, pc):
     model = trained("conv_avg")
     (xtr, _), _ = split()
-    net = convert(model, xtr[:64], weight_bits=k, payload_bits=4, coding="payload", per_channel=pc)
+    net = convert_model(model, xtr[:64], weight_bits=k, payload_bits=4, coding="payload", per_channel=pc)
     qm = 2 ** (k - 1) - 1                                   # symmetric signed range (common practice)
     ops = [op for op in fold(model) if op.weight is not None]
     for L, op in zip([L for L in net.layers if L.weight is not None], ops):
@@ -136,7 +136,7 @@ def test_weights_are_symmetric_k_bit_and_biases_at_the_accumulator_scale(k, pc):
 
 
 def test_sumpool_divides_the_next_multiplier_and_widens_its_input():
-    net = convert(trained("conv_avg"), split()[0][0][:64], weight_bits=4, payload_bits=3, coding="payload")
+    net = convert_model(trained("conv_avg"), split()[0][0][:64], weight_bits=4, payload_bits=3, coding="payload")
     kinds = [L.kind for L in net.layers]
     assert kinds == ["conv", "sumpool", "conv", "sumpool", "dense", "dense"]
     # hand-computed from the conv_avg layout (_convert_helpers): a 2x2 sum pool adds 4 payloads of at most
@@ -150,7 +150,7 @@ def test_sumpool_divides_the_next_multiplier_and_widens_its_input():
 def test_high_precision_spike_network_agrees_with_the_float_model(tmp_path):
     model = trained("conv_max")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:512], weight_bits=12, payload_bits=8, coding="payload", calibration="max")
+    net = convert_model(model, xtr[:512], weight_bits=12, payload_bits=8, coding="payload", calibration="max")
     pred = simulate(net, arith.quantize_input(xte, 1)).decisions
     with torch.no_grad():
         fpred = model(torch.from_numpy(xte)).argmax(1).numpy()
@@ -163,24 +163,24 @@ def test_high_precision_spike_network_agrees_with_the_float_model(tmp_path):
 def test_payload_wider_than_8_bits_is_refused():
     # a spike carries at most 8 payload bits, so k = p = 12 is refused (k = 12, p = 8 is tested above)
     with pytest.raises(UsageError, match=r"'payload_bits' parameter of convert must be an int in \[1, 8\]"):
-        convert(trained("mlp"), X16, weight_bits=12, payload_bits=12, coding="ttfs")
+        convert_model(trained("mlp"), X16, weight_bits=12, payload_bits=12, coding="ttfs")
 
 
 def test_clipquant_ranges_are_used_and_count_frames_clip_to_the_payload():
     model = make_aware(trained("mlp", binary=False), 4, 3, False, act_max=[2.5])
     assert isinstance(model[2], ClipQuant)
     (xtr, _), (xte, yte) = split(binary=False)
-    net = convert(model, xtr[:64], weight_bits=4, payload_bits=2, coding="payload", input_q=3)
+    net = convert_model(model, xtr[:64], weight_bits=4, payload_bits=2, coding="payload", input_q=3)
     # s_out = range / (2^p - 1) with p = 2 (formula: uniform payload grid)
     assert net.layers[0].info["range"] == 2.5 and net.layers[0].info["s_out"] == pytest.approx(2.5 / 3)
-    net1 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3, input_clip=True)
+    net1 = convert_model(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3, input_clip=True)
     assert net1.input_q == 1                                 # count frames clipped to what one bit carries: 2^1 - 1
-    assert convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3,
-                   input_clip=False).input_q == 3            # or kept at the frame's own count width
+    assert convert_model(model, xtr[:64], weight_bits=4, payload_bits=1, coding="payload", input_q=3,
+                         input_clip=False).input_q == 3            # or kept at the frame's own count width
     with pytest.raises(UsageError, match="^The 'payload_bits' parameter of convert must be 1 with coding 'binary' "
                        r"\(a binary spike carries no payload\). Got 3 instead.$"):
-        convert(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
-    net2 = convert(model, xtr[:64], weight_bits=4, payload_bits=1, coding="binary", input_q=3)
+        convert_model(model, xtr[:64], weight_bits=4, payload_bits=3, coding="binary", input_q=3)
+    net2 = convert_model(model, xtr[:64], weight_bits=4, payload_bits=1, coding="binary", input_q=3)
     assert net2.payload_bits == 1 and net2.layers[0].q_out == 1   # binary spikes: 1 bit, largest value 2^1 - 1
     acc = (simulate(net, arith.quantize_input(xte, 3)).decisions == yte).mean()
     assert acc >= accuracy(model, xte, yte) - 0.05
@@ -198,7 +198,7 @@ def test_quantize_input_rounds_half_even_and_clips():
 def test_percentile_weight_scale_clips_the_largest_weights():
     model = trained("mlp")
     (xtr, _), _ = split()
-    net = convert(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload", weight_scale="percentile:90")
+    net = convert_model(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload", weight_scale="percentile:90")
     w = fold(model)[0].weight
     r = np.percentile(np.abs(w), 90)                                   # numpy's linear-interpolation percentile
     assert np.array(net.layers[0].info["s_w"]) == pytest.approx(r / 7)  # 4-bit symmetric max 2^3 - 1 = 7 (common practice)
@@ -219,8 +219,8 @@ def test_aware_model_and_its_integer_network_agree_neuron_for_neuron(kind, wb, p
     (xtr, _), (xte, _) = split()
     ranges = hidden_ranges(base, xtr[:256], "percentile", 99.99)
     aware = make_aware(base, wb, pb, per_channel, act_max=ranges, weight_rule=parse_range_rule(wscale)).eval()
-    net = convert(aware, xtr[:64], weight_bits=wb, payload_bits=pb, coding="payload", per_channel=per_channel,
-                  weight_scale=wscale)
+    net = convert_model(aware, xtr[:64], weight_bits=wb, payload_bits=pb, coding="payload", per_channel=per_channel,
+                        weight_scale=wscale)
     # the aware layers train on the converter's integers: same weight and bias grids
     weighted = [m for m in aware if hasattr(m, "quantized_weight")]
     for m, L in zip(weighted, [L for L in net.layers if L.kind in ("conv", "dense")]):
@@ -270,7 +270,7 @@ def test_near_dead_and_all_zero_channels_convert_and_simulate_exactly(kind, whol
     from snnconvert.sim import reference as R
     model = _with_dead_channels(kind, whole)
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:256], weight_bits=4, payload_bits=4, coding=coding, per_channel=pc)
+    net = convert_model(model, xtr[:256], weight_bits=4, payload_bits=4, coding=coding, per_channel=pc)
     x = arith.quantize_input(xte[:12], 1)
     vec = simulate(net, x)
     for s, tr in enumerate(R.run_batch(net, x, progress=False)):      # event-by-event, exact integers

@@ -37,7 +37,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 
 from snnconvert import arith  # noqa: E402
 from snnconvert import recipe as R  # noqa: E402
-from snnconvert.convert import convert, fold, parse_range_rule  # noqa: E402
+from snnconvert.convert import convert_model, fold, parse_range_rule  # noqa: E402
 from snnconvert.convert.calibrate import activation_ranges, calibration_subset  # noqa: E402
 from snnconvert.convert.quantize import build_network  # noqa: E402
 from snnconvert.sim import reference as REF  # noqa: E402
@@ -121,15 +121,15 @@ def test_every_convert_option_on_the_trained_default_model(trained_default):
             n_points += 1
     assert n_points == 952 * len(ACCUMULATORS)
 
-    # covering subset through convert() itself: each value of every axis at least once
+    # covering subset through convert_model() itself: each value of every axis at least once
     for i, p in enumerate(PAYLOAD_BITS):
         coding = ("payload", "ttfs")[i % 2] if p > 1 else "binary"
         pt = (coding, PER_CHANNEL[i % 2], CALIBRATIONS[(i // 2) % 2], WEIGHT_SCALES[(i // 4) % 2], WEIGHT_BITS[i % 7], p)
         mode = ACCUMULATORS[i % 3]
-        full = convert(model, xcal, weight_bits=pt[4], payload_bits=p, coding=coding, per_channel=pt[1],
-                       calibration=pt[2], weight_scale=pt[3], input_q=int(ds.input_q),
-                       accumulator_bits=0 if mode == "unlimited" else widths[pt],
-                       overflow="saturate" if mode == "unlimited" else mode)
+        full = convert_model(model, xcal, weight_bits=pt[4], payload_bits=p, coding=coding, per_channel=pt[1],
+                             calibration=pt[2], weight_scale=pt[3], input_q=int(ds.input_q),
+                             accumulator_bits=0 if mode == "unlimited" else widths[pt],
+                             overflow="saturate" if mode == "unlimited" else mode)
         short = build(*pt, acc_bits=full.acc_limit_bits, overflow=full.overflow)
         for a, b_ in zip(full.layers, short.layers):
             for f in ("weight", "bias", "m0", "shift"):

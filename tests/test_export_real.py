@@ -10,7 +10,7 @@ from _convert_helpers import split, trained
 from snnconvert import arith
 from snnconvert import recipe as R
 from snnconvert.cli import main
-from snnconvert.convert import convert
+from snnconvert.convert import convert_model
 from snnconvert.export import export_network, verify
 from snnconvert.sim import simulate
 
@@ -19,8 +19,8 @@ torch.set_num_threads(2)
 
 def _net(kind, coding, payload_bits=3, weight_bits=4):
     (xtr, _), _ = split(True)
-    return convert(trained(kind), xtr[::10], weight_bits=weight_bits, payload_bits=payload_bits, coding=coding,
-                   per_channel=True, input_q=1)
+    return convert_model(trained(kind), xtr[::10], weight_bits=weight_bits, payload_bits=payload_bits, coding=coding,
+                         per_channel=True, input_q=1)
 
 
 @pytest.mark.parametrize("kind,coding", [("conv_max", "payload"), ("conv_avg", "ttfs")])

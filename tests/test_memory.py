@@ -10,7 +10,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import split, trained  # noqa: E402
 
 from snnconvert import arith, sweep  # noqa: E402
-from snnconvert.convert import convert  # noqa: E402
+from snnconvert.convert import convert_model  # noqa: E402
 from snnconvert.sim import vectorized  # noqa: E402
 
 GIB = 2**30
@@ -66,8 +66,8 @@ def test_available_memory_reads_meminfo_and_cgroup_limit(tmp_path, meminfo, limi
 @pytest.fixture(scope="module")
 def net_and_inputs():
     (xtr, _), (xte, _) = split(True)
-    net = convert(trained("conv_max", True), xtr[:300], weight_bits=4, payload_bits=4, coding="payload",
-                  per_channel=False, input_q=1)
+    net = convert_model(trained("conv_max", True), xtr[:300], weight_bits=4, payload_bits=4, coding="payload",
+                        per_channel=False, input_q=1)
     return net, arith.quantize_input(xte, net.input_q)
 
 

@@ -11,7 +11,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import accuracy, split, trained  # noqa: E402
 
 from snnconvert import arith  # noqa: E402
-from snnconvert.convert import convert  # noqa: E402
+from snnconvert.convert import convert_model  # noqa: E402
 from snnconvert.sim import reference as R  # noqa: E402
 from snnconvert.models import make_aware  # noqa: E402
 from snnconvert.sim.metrics import format_table, measure, tolerance_verdict  # noqa: E402
@@ -25,8 +25,8 @@ def test_counts_match_the_reference_simulator(kind, coding, pc, capsys):
     model = trained(kind)
     (xtr, _), (xte, yte) = split()
     xte, yte = xte[:150], yte[:150]
-    net = convert(model, xtr[:256], weight_bits=4, payload_bits=1 if coding == "binary" else 4, coding=coding,
-                  per_channel=pc)
+    net = convert_model(model, xtr[:256], weight_bits=4, payload_bits=1 if coding == "binary" else 4, coding=coding,
+                        per_channel=pc)
     m = measure(model, net, xte, yte)
     traces = R.run_batch(net, arith.quantize_input(xte, 1), progress=False)
     assert m["sops_per_sample"] == pytest.approx(np.mean([t.sops for t in traces]), rel=1e-12)
@@ -52,7 +52,7 @@ def test_counts_match_the_reference_simulator(kind, coding, pc, capsys):
 def test_macs_memory_and_energy_follow_their_formulas():
     model = trained("mlp")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:256], weight_bits=5, payload_bits=3, coding="payload")
+    net = convert_model(model, xtr[:256], weight_bits=5, payload_bits=3, coding="payload")
     m = measure(model, net, xte[:50], yte[:50], quiet=True)
     assert m["macs_per_sample"] == 256 * 32 + 32 * 10             # dense MACs: in * out per Linear (common practice)
     assert m["weight_memory_bits"] == (256 * 32 + 32 * 10) * 5      # weights x weight bits (common practice)
@@ -81,7 +81,7 @@ def test_tolerance_verdict(loss, tol, text):
 def test_table_flags_a_point_outside_tolerance():
     model = trained("mlp")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:256], weight_bits=2, payload_bits=1, coding="binary")
+    net = convert_model(model, xtr[:256], weight_bits=2, payload_bits=1, coding="binary")
     m = measure(model, net, xte, yte, tolerance_pp=0.5, quiet=True)
     assert m["conversion_loss_pp"] > 0.5 and m["within_tolerance"] is False
     rows = {r[:23].strip(): r[23:] for r in format_table(m).splitlines()}
@@ -93,7 +93,7 @@ def test_aware_frame_model_is_named_and_the_float_model_is_kept_apart():
     (xtr, _), (xte, yte) = split()
     float_acc = accuracy(model, xte, yte)
     aware = make_aware(model, 3, 2, False, act_max=[2.0]).eval()
-    net = convert(aware, xtr[:256], weight_bits=3, payload_bits=2, coding="payload")
+    net = convert_model(aware, xtr[:256], weight_bits=3, payload_bits=2, coding="payload")
     m = measure(aware, net, xte, yte, quiet=True, float_accuracy=float_acc)
     assert m["frame_model"] == "aware" and m["aware_bits"] == {"weight_bits": 3, "payload_bits": 2}
     assert m["frame_accuracy"] == accuracy(aware, xte, yte)        # the model that was converted
@@ -102,7 +102,7 @@ def test_aware_frame_model_is_named_and_the_float_model_is_kept_apart():
     table = format_table(m)
     assert f"frame model (aware, fine-tuned for k=3 p=2)  {m['frame_accuracy']:.4f}" in table
     assert f"float model before fine-tuning               {float_acc:.4f}" in table
-    plain = measure(model, convert(model, xtr[:256], weight_bits=3, payload_bits=2, coding="payload"), xte, yte,
+    plain = measure(model, convert_model(model, xtr[:256], weight_bits=3, payload_bits=2, coding="payload"), xte, yte,
                     quiet=True)
     assert plain["frame_model"] == "float" and plain["aware_bits"] is None
     assert plain["float_accuracy"] == plain["frame_accuracy"] and plain["loss_vs_float_pp"] == plain["conversion_loss_pp"]
@@ -111,7 +111,8 @@ def test_aware_frame_model_is_named_and_the_float_model_is_kept_apart():
 def test_declared_width_separates_spike_from_quantized_accuracy():
     model = trained("mlp")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:256], weight_bits=6, payload_bits=4, coding="payload", accumulator_bits=5, overflow="wrap")
+    net = convert_model(model, xtr[:256], weight_bits=6, payload_bits=4, coding="payload", accumulator_bits=5,
+                        overflow="wrap")
     m = measure(model, net, xte, yte, quiet=True)
     assert sum(m["overflows"].values()) > 0
     assert m["spike_accuracy"] < m["quantized_accuracy"]           # wrap-around flips signs of large potentials
@@ -121,6 +122,6 @@ def test_declared_width_separates_spike_from_quantized_accuracy():
 def test_measure_rejects_mismatched_labels():
     model = trained("mlp")
     (xtr, _), (xte, yte) = split()
-    net = convert(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload")
+    net = convert_model(model, xtr[:64], weight_bits=4, payload_bits=4, coding="payload")
     with pytest.raises(ValueError, match="one label per sample"):
         measure(model, net, xte[:10], yte[:9], quiet=True)

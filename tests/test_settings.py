@@ -78,19 +78,19 @@ def test_keyword_convert_and_settings_convert_build_the_same_network():
     torch = pytest.importorskip("torch")
     from torch import nn
 
-    from snnconvert.convert import convert
+    from snnconvert.convert import convert_model
     torch.manual_seed(0)
     model = nn.Sequential(nn.Flatten(), nn.Linear(16, 8), nn.ReLU(), nn.Linear(8, 3)).eval()
     x = torch.rand(32, 1, 4, 4).numpy()
-    a = convert(model, x, weight_bits=3, payload_bits=2, coding="ttfs", weight_scale="percentile:99")
-    b = convert(model, x, ConvertSettings.from_section({"weight_bits": 3, "payload_bits": 2, "coding": "ttfs",
-                                                        "weight_scale": "percentile:99"}))
+    a = convert_model(model, x, weight_bits=3, payload_bits=2, coding="ttfs", weight_scale="percentile:99")
+    b = convert_model(model, x, ConvertSettings.from_section({"weight_bits": 3, "payload_bits": 2, "coding": "ttfs",
+                                                              "weight_scale": "percentile:99"}))
     import numpy as np
     for la, lb in zip(a.layers, b.layers):
         for f in ("weight", "bias", "m0", "shift"):
             assert np.array_equal(getattr(la, f), getattr(lb, f)), f
     with pytest.raises(TypeError, match="not both"):
-        convert(model, x, ConvertSettings.from_section({}), weight_bits=3)
+        convert_model(model, x, ConvertSettings.from_section({}), weight_bits=3)
 
 
 def test_a_run_builds_each_setting_once_and_loads_the_data_once(tmp_path, monkeypatch):

@@ -12,7 +12,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _convert_helpers import split, trained  # noqa: E402
 
 from snnconvert import arith  # noqa: E402
-from snnconvert.convert import convert  # noqa: E402
+from snnconvert.convert import convert_model  # noqa: E402
 from snnconvert.intnet import IntLayer  # noqa: E402
 from snnconvert.sim import reference as R  # noqa: E402
 from snnconvert.sim import simulate  # noqa: E402
@@ -24,8 +24,8 @@ torch.set_num_threads(1)   # small models; a second thread only spins on a share
 def _net(kind, coding, k, p, per_channel=False, binary=True, **kw):
     (xtr, _), (xte, yte) = split(binary)
     model = trained(kind, binary)
-    net = convert(model, xtr[:300], weight_bits=k, payload_bits=p, coding=coding, per_channel=per_channel,
-                  input_q=1 if binary else 3, **kw)
+    net = convert_model(model, xtr[:300], weight_bits=k, payload_bits=p, coding=coding, per_channel=per_channel,
+                        input_q=1 if binary else 3, **kw)
     return net, model, arith.quantize_input(xte, net.input_q), yte
 
 

@@ -77,13 +77,13 @@ def test_verilog_model_passes_the_golden_vectors(tmp_path, name, make, qin):
 def trained_exports(tmp_path_factory):
     """Networks converted from CNNs trained on scikit-learn's digits (Alpaydin & Kaynak 1998), 3 vectors each."""
     from _convert_helpers import split, trained
-    from snnconvert.convert import convert
+    from snnconvert.convert import convert_model
     out = {}
     for kind, coding, binary in (("conv_max", "payload", True), ("conv_avg", "ttfs", False)):
         (xtr, _), (xte, yte) = split(binary)
         qin = 1 if binary else 3                                  # count frames: payloads 0..3
-        net = convert(trained(kind, binary), xtr[::10], weight_bits=4, payload_bits=3, coding=coding,
-                      per_channel=True, input_q=qin)
+        net = convert_model(trained(kind, binary), xtr[::10], weight_bits=4, payload_bits=3, coding=coding,
+                            per_channel=True, input_q=qin)
         folder = tmp_path_factory.mktemp(kind) / "export"
         export_network(net, folder, arith.quantize_input(xte, qin), yte, vectors=3, progress=False, verilog=True)
         out[kind] = folder

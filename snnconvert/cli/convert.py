@@ -29,6 +29,7 @@ def run(args) -> int:
     from snnconvert.errors import UsageError
     from snnconvert.files import check_output_path
     from snnconvert.sim.metrics import format_table
+    from snnconvert.train import load_checkpoint
 
     if args.out:
         check_output_path(args.out, "--out", "folder")
@@ -36,7 +37,8 @@ def run(args) -> int:
     if not (train_dir / "model.pt").is_file():
         raise UsageError(f"{train_dir / 'model.pt'}: file not found (TRAIN_DIR must be a folder written by "
                          f"`snnconvert train`)")
-    ckpt_recipe = _checkpoint_recipe(train_dir)
+    model, ckpt = load_checkpoint(train_dir / "model.pt")
+    ckpt_recipe = dict(ckpt["recipe"])
     section = dict(ckpt_recipe["convert"])
     # each option is named after its [convert] key; an option left out keeps the recipe's value
     section.update({k: getattr(args, k) for k in ConvertSettings.KEYS if getattr(args, k, None) is not None})
@@ -44,15 +46,10 @@ def run(args) -> int:
         section["payload_bits"] = 1       # the recipe's payload width belongs to its own coding
     settings = ConvertSettings.from_section(section)
     out = Path(args.out) if args.out else check_output_path(train_dir.resolve().parent / "net", "", "folder")
-    net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet)
+    net, metrics = convert_checkpoint(train_dir, settings, quiet=args.quiet, loaded=(model, ckpt))
     if args.quiet:   # otherwise measure() has printed it already
         console.echo(format_table(metrics))
     write_outputs(net, metrics, {**ckpt_recipe, "convert": settings.as_dict()}, out)
     console.echo(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
     return 0
 
-
-def _checkpoint_recipe(train_dir: Path) -> dict:
-    from snnconvert.train import load_checkpoint
-    _, ckpt = load_checkpoint(train_dir / "model.pt")
-    return dict(ckpt["recipe"])

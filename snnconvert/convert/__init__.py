@@ -19,15 +19,15 @@ from snnconvert.files import fingerprint
 from snnconvert.intnet import IntNetwork
 from snnconvert.settings.convert import ConvertSettings, parse_range_rule
 
-# keys the keyword form of `convert` needs: the bit budget and the coding have no neutral default
+# keys the keyword form of `convert_model` needs: the bit budget and the coding have no neutral default
 _REQUIRED = ("weight_bits", "payload_bits", "coding")
 
 
-def convert(model, calib_x, settings: ConvertSettings | None = None, *, input_q: int = 1, act_max=None,
-            quiet: bool = True, **keys) -> IntNetwork:
+def convert_model(model, calib_x, settings: ConvertSettings | None = None, *, input_q: int = 1, act_max=None,
+                  quiet: bool = True, **keys) -> IntNetwork:
     """Frame model -> single-spike integer network: a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, 2^p - 1).
 
-    `settings`: the checked [convert] settings. The keyword form `convert(model, x, weight_bits=4,
+    `settings`: the checked [convert] settings. The keyword form `convert_model(model, x, weight_bits=4,
     payload_bits=4, coding="payload", ...)` takes the same keys instead (weight_bits, payload_bits and
     coding required, the rest default) and checks them by building the same `ConvertSettings`.
     `calib_x` (N, C, H, W) float frames are used whole (pick the subset with
@@ -40,12 +40,12 @@ def convert(model, calib_x, settings: ConvertSettings | None = None, *, input_q:
     if settings is None:
         missing = [k for k in _REQUIRED if k not in keys]
         if missing:
-            raise TypeError(f"convert() needs a ConvertSettings or the keys {', '.join(missing)}")
+            raise TypeError(f"convert_model() needs a ConvertSettings or the keys {', '.join(missing)}")
         settings = ConvertSettings.from_section(keys)
     elif keys:
-        raise TypeError(f"convert() takes a ConvertSettings or keys, not both (got {', '.join(sorted(keys))})")
+        raise TypeError(f"convert_model() takes a ConvertSettings or keys, not both (got {', '.join(sorted(keys))})")
     elif not isinstance(settings, ConvertSettings):
-        raise TypeError(f"convert() settings must be a ConvertSettings. Got {type(settings).__name__} instead.")
+        raise TypeError(f"convert_model() settings must be a ConvertSettings. Got {type(settings).__name__} instead.")
     s = settings
     check_int(input_q, "input_q", "convert", 1, 255)
     ops = fold(model)                       # validates every layer before any work
@@ -78,7 +78,7 @@ def convert_and_measure(model, dataset, settings: ConvertSettings | dict, act_ma
     s = settings if isinstance(settings, ConvertSettings) else ConvertSettings.from_section(settings)
     Xtr = np.asarray(dataset.train[0])
     idx = calibration_subset(len(Xtr), s.calib_samples)
-    net = convert(model, Xtr[idx], s, input_q=int(dataset.input_q), act_max=act_max, quiet=quiet)
+    net = convert_model(model, Xtr[idx], s, input_q=int(dataset.input_q), act_max=act_max, quiet=quiet)
     net.meta.update(data_fingerprint=getattr(dataset, "fingerprint", None), classes=list(getattr(dataset, "classes", [])),
                     convert=s.as_dict())
     Xte, yte = dataset.test
@@ -86,15 +86,21 @@ def convert_and_measure(model, dataset, settings: ConvertSettings | dict, act_ma
     return net, metrics
 
 
-def convert_checkpoint(train_dir, settings: ConvertSettings | dict, quiet: bool = False, dataset=None):
+def convert_checkpoint(train_dir, settings: ConvertSettings | dict, quiet: bool = False, dataset=None,
+                       loaded=None):
     """Load `train_dir/model.pt`, then `convert_and_measure` on `dataset` (default: the data set of the
-    checkpoint's recipe, loaded here). Returns (net, metrics)."""
-    from snnconvert.train import check_checkpoint_fits, load_checkpoint
-    model, ckpt = load_checkpoint(Path(train_dir) / "model.pt")
+    checkpoint's recipe, loaded here). `loaded`: the (model, ckpt) pair `train.load_checkpoint` already
+    returned for that file, so a caller that read it first does not read it again. Returns (net, metrics)."""
+    path = Path(train_dir) / "model.pt"
+    if loaded is None:
+        from snnconvert.train import load_checkpoint
+        loaded = load_checkpoint(path)
+    model, ckpt = loaded
     if dataset is None:
         from snnconvert.data import load_dataset
         dataset = load_dataset(ckpt["recipe"], progress=not quiet)
-    check_checkpoint_fits(model, ckpt, dataset, Path(train_dir) / "model.pt")
+    from snnconvert.train import check_checkpoint_fits
+    check_checkpoint_fits(model, ckpt, dataset, path)
     # an aware checkpoint keeps the test accuracy of the float model it was fine-tuned from
     net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet,
                                        float_accuracy=(ckpt.get("metrics") or {}).get("float_frame_accuracy"))
@@ -117,5 +123,5 @@ def write_outputs(net, metrics: dict, recipe: dict, out: Path) -> None:
                          f"{100 * metrics['spike_accuracy']:.2f}%")
 
 
-__all__ = ["ConvertSettings", "parse_range_rule", "convert", "convert_and_measure", "convert_checkpoint", "write_outputs",
+__all__ = ["ConvertSettings", "parse_range_rule", "convert_model", "convert_and_measure", "convert_checkpoint", "write_outputs",
            "fold", "folded_forward", "calibration_subset"]

@@ -28,7 +28,7 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
     Depends only on the point, the recipe (its seed included) and the float model, so the same
     point gives the same metrics in any process.
     """
-    from snnconvert import convert as converter
+    from snnconvert.convert import convert_and_measure
     if point["aware"]:
         from snnconvert import train
         recipe = copy.deepcopy(recipe)
@@ -37,8 +37,7 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
                                               point["per_channel"], point["aware_epochs"], int(recipe["seed"]))
     else:
         model = copy.deepcopy(model)
-    net, metrics = converter.convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max,
-                                                 quiet=True)
+    net, metrics = convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max, quiet=True)
     metrics = dict(metrics)
     metrics["network_fingerprint"] = net_fingerprint(net)
     return metrics
