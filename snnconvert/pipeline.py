@@ -21,15 +21,9 @@ import numpy as np
 from snnconvert import console
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
-from snnconvert.files import (
-    atomic_write_json,
-    check_output_path,
-    fingerprint,
-    load_json,
-)
+from snnconvert.files import atomic_write_bytes, atomic_write_json, check_output_path, fingerprint, load_json
 from snnconvert.settings import Section
 from snnconvert.stages import STAGES
-
 STAGE_LOG_VERSION = 1
 
 # What each stage reads: recipe sections (their settings objects are its fingerprint), and the

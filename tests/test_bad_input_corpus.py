@@ -450,3 +450,57 @@ def test_report_names_a_damaged_result_line_in_its_sweep_section(base, tmp_path)
     page = write_report(run).read_text()
     assert (f"This section cannot be shown: The &#x27;metrics.spike_accuracy&#x27; field of "
             f"{run}/sweep/results.jsonl line 1 must be a float in [0.0, 1.0]. Got &#x27;high&#x27; instead.") in page
+
+
+# --- `run` refused before any stage finished: no run folder, no new or changed file -------------
+
+def _recordings_recipe(index_line: str, csv_text: str | None):
+    """A recipe reading recordings through `rec/index.csv` (one `index_line`), and `rec/a.csv`."""
+    def setup(d):
+        (d / "rec").mkdir(parents=True)
+        (d / "rec" / "index.csv").write_text(f"file,label\n{index_line}\n")
+        if csv_text is not None:
+            (d / "rec" / "a.csv").write_text(csv_text)
+        (d / "r.toml").write_text('name = "bad"\n[data]\nsource = "recordings"\nrecordings_index = "rec/index.csv"\n')
+    return setup
+
+
+def _existing_run(setup):
+    """`setup`, then a run folder from before: its recipe, its stage log and a file of the user's."""
+    def mutate(d):
+        setup(d)
+        (d / "run").mkdir()
+        (d / "run" / "recipe.toml").write_text('name = "before"\n')
+        (d / "run" / "stages.json").write_text('{"version": 1, "stages": {}}')
+        (d / "run" / "notes.txt").write_text("kept\n")
+    return mutate
+
+
+BAD_LINE = _recordings_recipe("a.csv,0", "t,x,y,p\n1,2\n")
+CSV = "{d}/rec/a.csv"
+RUN_CASES = [
+    ("run-recording-bad-line", BAD_LINE, "{d}/run", f"{CSV}: line 2: expected 4 integers, got '1,2'"),
+    ("run-recording-missing", _recordings_recipe("gone.csv,0", None), "{d}/run",
+     "{d}/rec/index.csv: line 2: file not found: {d}/rec/gone.csv"),
+    ("run-index-missing-new-parents", lambda d: (BAD_LINE(d), (d / "rec" / "index.csv").unlink()), "{d}/new/deep/run",
+     "file not found: {d}/rec/index.csv (set data.recordings_index)"),
+    ("run-recording-bad-line-existing-run", _existing_run(BAD_LINE), "{d}/run",
+     f"{CSV}: line 2: expected 4 integers, got '1,2'"),
+]
+
+
+@pytest.mark.parametrize("case_id,setup,out,message", RUN_CASES, ids=[c[0] for c in RUN_CASES])
+def test_a_refused_run_leaves_no_run_folder_behind(tmp_path, monkeypatch, capsys, case_id, setup, out, message):
+    d = tmp_path / "case"
+    d.mkdir()
+    setup(d)
+    monkeypatch.setenv("SNNCONVERT_CACHE", str(tmp_path / "user-cache"))
+    (tmp_path / "user-cache").mkdir()
+    before = _snapshot(tmp_path)
+    capsys.readouterr()
+    code = main(["run", str(d / "r.toml"), "--out", out.format(d=d), "--quiet"])
+    cap = capsys.readouterr()
+    # the stage line comes first (the refusal happens inside the data stage), then the one error line
+    assert (code, cap.err) == (2, f"[data] running ...\nerror: {message.format(d=d)}\n"), cap.err
+    assert "Traceback" not in cap.err + cap.out
+    assert _snapshot(tmp_path) == before
