@@ -24,8 +24,12 @@ import numpy as np
 from snnconvert.errors import FormatError, UsageError
 
 
-def atomic_write_bytes(path, data: bytes) -> Path:
-    """Write `data` to `path` via temp file + fsync + rename. Parent folders are created."""
+def atomic_write_bytes(path, data: bytes, durable: bool = True) -> Path:
+    """Write `data` to `path` via temp file + fsync + rename. Parent folders are created.
+
+    durable=False skips the fsync (readers still never see a partial file): for writers of many
+    small files that sync once at the end (os.sync) before writing the file that marks them complete.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
@@ -34,7 +38,8 @@ def atomic_write_bytes(path, data: bytes) -> Path:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
         try:

@@ -23,13 +23,23 @@ from snnconvert.events.stream import EventStream
 from snnconvert.schema import Key
 
 MODES = ("binary", "count", "polarity")
+PER_RECORDING = ("one", "each", "stack")
 
 SCHEMA: dict[str, Key] = {
-    "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance",
-                  choices=("burst", "fixed", "count")),
+    "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance "
+                  "(all: the whole recording is one window)", choices=("burst", "fixed", "count", "all")),
+    "per_recording": Key("one", "choice", "one frame per recording (the picked window) keeps one sample per "
+                         "recording; each: one sample per window (3 per saccade recording, more data); stack: the "
+                         "windows as channels of one sample (keeps the order of the saccades)",
+                         choices=PER_RECORDING),
+    "windows": Key(3, "int", "each/stack use the first 3 windows: three saccades per recording in the published "
+                   "layout", lo=1, hi=64),
     "pick": Key("first", "choice", "the first burst of a flash is the onset: ON events of the whole shape",
                 choices=("first", "largest")),
     "bin_us": Key(1000, "int", "1 ms rate bins resolve a flash onset that lasts a few ms", lo=1),
+    "background_percentile": Key(50.0, "float", "the median rate is the background while bursts cover under half "
+                                 "of a recording (flashes); saccades move for most of it: use ~10, the quiet turns",
+                                 lo=0.0, hi=100.0),
     "relative": Key(True, "bool", "thresholds as multiples of the background rate adapt to each sensor"),
     "upper": Key(8.0, "float", "a burst must stand well above background (x background, or events/s)", lo=0.0),
     "lower": Key(2.0, "float", "hysteresis: a burst ends when the rate is back near background", lo=0.0),
@@ -115,16 +125,23 @@ def bin_window(stream: EventStream, t0: int, t1: int, mode: str = "binary", size
 
 
 def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
-    """All windows of `stream` by the [frames] section's window rule."""
+    """All windows of `stream` by the [frames] section's window rule ("all": one window holding
+    every event, none for an empty stream)."""
     from snnconvert import windows as W
     kind = section.get("window", SCHEMA["window"].default)
     get = lambda k: section.get(k, SCHEMA[k].default)  # noqa: E731
     if kind == "burst":
         return W.bursts(stream, get("bin_us"), get("upper"), get("lower"), get("relative"),
-                        get("min_duration_us"), get("merge_gap_us"))
+                        get("min_duration_us"), get("merge_gap_us"), get("background_percentile"))
     if kind == "fixed":
         return W.fixed_windows(stream, get("window_us"))
+    if kind == "all":
+        return [_whole(stream)] if len(stream) else []
     return W.count_windows(stream, get("window_events"))
+
+
+def _whole(stream: EventStream) -> tuple[int, int]:
+    return int(stream.t[0]), int(stream.t[-1]) + 1
 
 
 def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], bool]:
@@ -135,8 +152,33 @@ def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], b
     if chosen is not None:
         return chosen, True
     if len(stream):
-        return (int(stream.t[0]), int(stream.t[-1]) + 1), False
+        return _whole(stream), False
     return (0, 0), False
+
+
+def windows_used(section: dict) -> int:
+    """K, the windows each recording gives: 1 for per_recording "one", else the `windows` key."""
+    return 1 if section.get("per_recording", "one") == "one" else int(section.get("windows", SCHEMA["windows"].default))
+
+
+def frame_windows(stream: EventStream, section: dict) -> tuple[list[tuple[int, int]], bool]:
+    """The K = windows_used(section) windows that make a recording's frames, and whether the rule
+    gave them (True) or the fallback did (False).
+
+    per_recording "one": [frame_window]. "each"/"stack": the first K windows of the rule; a recording
+    with fewer is cut into K equal windows over its whole span instead (t_k = t0 + k * span // K), so
+    every recording gives the same K samples or channels, in time order.
+    """
+    k = windows_used(section)
+    if section.get("per_recording", "one") == "one":
+        w, ok = frame_window(stream, section)
+        return [w], ok
+    found = windows_of(stream, section)
+    if len(found) >= k:
+        return [tuple(v) for v in found[:k]], True
+    t0, t1 = _whole(stream) if len(stream) else (0, 0)
+    edges = [t0 + i * (t1 - t0) // k for i in range(k + 1)]
+    return list(zip(edges[:-1], edges[1:])), False
 
 
 # --- plots ----------------------------------------------------------------------------------

@@ -1,0 +1,227 @@
+"""Recordings: many in memory (RecordingSet), or a folder of files read lazily (RecordingFolder),
+and their frames.
+
+A folder is never held in memory: `folder_frames` reads, filters, windows and bins it file by file
+in worker processes (chunks of CHUNK files) and keeps only the frames, so memory is bounded by the
+frames plus one chunk of events per worker, whatever the folder's size.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import console, files
+from snnconvert.errors import FormatError, UsageError
+from snnconvert.events import filters as _filters
+from snnconvert.events.formats import SUFFIXES, read_events, write_events
+from snnconvert.events.stream import EVENT_DTYPE, EventStream
+
+CHUNK = 256  # files per worker task: large enough to hide the task overhead, small enough for a smooth bar
+
+
+# --- recordings held in memory ---------------------------------------------------------------
+@dataclass
+class RecordingSet:
+    """Many recordings in one concatenated event array; recording i is events[offsets[i]:offsets[i+1]]."""
+    events: np.ndarray          # EVENT_DTYPE
+    offsets: np.ndarray         # (N + 1,) int64
+    labels: np.ndarray          # (N,) int64
+    width: int
+    height: int
+
+    def __len__(self) -> int:
+        return int(self.labels.size)
+
+    def __getitem__(self, i: int) -> tuple[EventStream, int]:
+        i = int(i)
+        if not -len(self) <= i < len(self):
+            raise IndexError(f"recording {i} out of range ({len(self)} recordings)")
+        i %= len(self)
+        ev = self.events[self.offsets[i]:self.offsets[i + 1]]
+        return EventStream(ev, self.width, self.height), int(self.labels[i])
+
+    @classmethod
+    def from_streams(cls, streams: list[EventStream], labels) -> "RecordingSet":
+        """Concatenate streams that share one sensor size (a folder comes from one sensor)."""
+        sizes = {(s.width, s.height) for s in streams}
+        if len(sizes) > 1:
+            raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+        w, h = sizes.pop() if sizes else (1, 1)
+        offsets = np.concatenate([[0], np.cumsum([len(s) for s in streams])]).astype(np.int64)
+        ev = np.concatenate([s.events for s in streams]) if streams else np.zeros(0, EVENT_DTYPE)
+        return cls(ev, offsets, np.asarray(labels, np.int64), w, h)
+
+
+
+@dataclass
+class RecordingFolder:
+    """The recordings of a folder, read one file at a time; recording i is read (and filtered) on access.
+
+    `events` (events per recording after the filters) is known once the frames have been made.
+    """
+    paths: list[Path]
+    labels: np.ndarray          # (N,) int64
+    width: int
+    height: int
+    default_sensor: tuple[int, int]
+    time_unit: str = "us"
+    filters: tuple = (0.0, 0, 0)   # (hot_factor, refractory_us, background_us)
+    events: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+
+    def __len__(self) -> int:
+        return int(self.labels.size)
+
+    def __getitem__(self, i: int) -> tuple[EventStream, int]:
+        i = int(i)
+        if not -len(self) <= i < len(self):
+            raise IndexError(f"recording {i} out of range ({len(self)} recordings)")
+        i %= len(self)
+        s = read_events(self.paths[i], default_sensor=self.default_sensor, time_unit=self.time_unit)
+        return _filters.apply(s, *self.filters)[0], int(self.labels[i])
+
+    @property
+    def offsets(self) -> np.ndarray:
+        """(N + 1,) cumulative event counts, as RecordingSet.offsets."""
+        return np.concatenate([[0], np.cumsum(self.events)]).astype(np.int64)
+
+
+# --- recordings folder -----------------------------------------------------------------------
+def read_index(index_path) -> tuple[list[Path], list[str]]:
+    """CSV with header `file,label`; files resolve inside the index's folder."""
+    index_path = Path(index_path)
+    if not index_path.is_file():
+        raise UsageError(f"file not found: {index_path} (set data.recordings_index)")
+    try:
+        rows = list(csv.reader(io.StringIO(index_path.read_text(encoding="utf-8"))))
+    except (UnicodeDecodeError, csv.Error) as exc:
+        raise FormatError(f"{index_path}: not a readable CSV ({exc})") from None
+    if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
+        raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
+    paths, labels = [], []
+    for n, row in enumerate(rows[1:], start=2):
+        if not row or not "".join(row).strip():
+            continue
+        if len(row) != 2 or not row[0].strip() or not row[1].strip():
+            raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
+        p = files.resolve_inside(index_path.parent, row[0].strip(), what=f"{index_path} line {n}: file")
+        if not p.is_file():
+            raise UsageError(f"{index_path}: line {n}: file not found: {p}")
+        paths.append(p)
+        labels.append(row[1].strip())
+    if not paths:
+        raise FormatError(f"{index_path}: the index lists no recordings")
+    return paths, labels
+
+
+def class_names(labels: list[str]) -> list[str]:
+    """Sorted class names: numerically when every label is an integer."""
+    uniq = set(labels)
+    try:
+        return [str(v) for v in sorted(uniq, key=int)]
+    except ValueError:
+        return sorted(uniq)
+
+
+# --- frames of many recordings ---------------------------------------------------------------
+def _frames_section(frames_section: dict) -> dict:
+    from snnconvert import frames as F
+    return {k: frames_section.get(k, key.default) for k, key in F.SCHEMA.items()}
+
+
+def recording_frames(recs, frames_section: dict, progress: bool = True, workers: int = 1):
+    """(X (N, K, C, S, S) float32, windows (N, 2), used_rule (N,) bool, lens (N,) int64) for a
+    RecordingSet or a RecordingFolder; K = frames.windows_used, windows (N, 2) spans the first to the
+    last window of each recording, lens counts the events inside its windows."""
+    if isinstance(recs, RecordingFolder):
+        out = folder_frames(recs, frames_section, progress, workers)
+        return out["X"].astype(np.float32), out["windows"], out["ok"], out["lens"]
+    from snnconvert import frames as F
+    sec = _frames_section(frames_section)
+    n, k = len(recs), F.windows_used(sec)
+    wins = np.zeros((n, 2), np.int64)
+    ok = np.zeros(n, bool)
+    sel, groups = [], []
+    for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
+        s, _ = recs[i]
+        ws, ok[i] = F.frame_windows(s, sec)
+        wins[i] = ws[0][0], ws[-1][1]
+        for j, (t0, t1) in enumerate(ws):
+            a, b = np.searchsorted(s.t, [t0, t1])
+            sel.append(np.arange(recs.offsets[i] + a, recs.offsets[i] + b))
+            groups.append(i * k + j)
+    sizes = np.array([len(v) for v in sel], np.int64)
+    idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
+    ev = recs.events[idx]
+    X = F.bin_events(ev["x"], ev["y"], ev["p"], recs.width, recs.height, np.repeat(np.asarray(groups, np.int64), sizes),
+                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    lens = np.bincount(np.repeat(np.asarray(groups, np.int64) // k, sizes), minlength=n).astype(np.int64)
+    return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
+
+
+def _folder_chunk(task: tuple) -> dict:
+    """Worker: read, filter, window and bin the files of one chunk; return only frames and counts."""
+    from snnconvert import frames as F
+    paths, default_sensor, time_unit, filt, sec = task
+    n = len(paths)
+    out = {"X": None, "windows": np.zeros((n, 2), np.int64), "ok": np.zeros(n, bool), "lens": np.zeros(n, np.int64),
+           "events_in": np.zeros(n, np.int64), "events": np.zeros(n, np.int64), "pixels_removed": np.zeros(n, np.int64),
+           "sensor": np.zeros((n, 2), np.int64)}
+    for i, p in enumerate(paths):
+        s = read_events(p, default_sensor=default_sensor, time_unit=time_unit)
+        s, eff = _filters.apply(s, *filt)
+        ws, out["ok"][i] = F.frame_windows(s, sec)
+        x = F.bin_windows(s, ws, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])  # (K, C, S, S)
+        if out["X"] is None:
+            out["X"] = np.zeros((n, *x.shape), np.uint8)
+        out["X"][i] = x
+        out["windows"][i] = ws[0][0], ws[-1][1]
+        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel()).reshape(-1, 2)
+        out["lens"][i] = int((bounds[:, 1] - bounds[:, 0]).sum())
+        out["events_in"][i], out["events"][i] = eff["events_in"], eff["events_out"]
+        out["pixels_removed"][i] = eff["pixels_removed"]
+        out["sensor"][i] = s.width, s.height
+    return out
+
+
+def folder_frames(folder: RecordingFolder, frames_section: dict, progress: bool = True, workers: int = 1,
+                  chunk: int = CHUNK) -> dict:
+    """Stream a folder: chunks of `chunk` files go to `workers` processes (spawned, so no state of this
+    process leaks in), each returning frames as uint8 and per-file counts; results come back in file
+    order, so the frames do not depend on the number of workers. One worker (or one chunk) runs here.
+
+    Returns {"X" (N, K, C, S, S) uint8, "windows", "ok", "lens", "events_in", "events", "pixels_removed",
+    "sensor" (N, 2)}. Files of different sensor sizes are refused (one sensor per folder).
+    """
+    sec = _frames_section(frames_section)
+    n = len(folder)
+    tasks = [([str(p) for p in folder.paths[i:i + chunk]], folder.default_sensor, folder.time_unit,
+              tuple(folder.filters), sec) for i in range(0, n, chunk)]
+    workers = max(1, min(int(workers), len(tasks)))
+    parts = []
+    with console.bar(total=n, desc="frames", unit="file", enabled=progress) as bar:
+        if workers == 1:
+            results = map(_folder_chunk, tasks)
+            pool = None
+        else:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+            pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+            results = pool.map(_folder_chunk, tasks)
+        try:
+            for r in results:
+                parts.append(r)
+                bar.update(len(r["ok"]))
+        finally:
+            if pool is not None:
+                pool.shutdown(cancel_futures=True)
+    out = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]} if parts else {}
+    sizes = {tuple(v) for v in out["sensor"]} if parts else set()
+    if len(sizes) > 1:
+        raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+    return out
