@@ -73,7 +73,7 @@ def _make_chunk(task: tuple) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     one vectorized pass over the chunk. Chunk boundaries are fixed multiples of CHUNK, whatever the
     number of workers.
     """
-    folder, seed, stimulus, i0, i1 = task
+    folder, seed, stimulus, i0, i1, chunk = task
     digits, labels = digits_images(8)
     config = sensor_config(stimulus)
     pattern = _sensor.fixed_pattern(SENSOR * SENSOR, config, _rng(seed, 0))
@@ -85,7 +85,7 @@ def _make_chunk(task: tuple) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         images[k] = augment(digits[idx[k]], rng)
     border = (SENSOR - FIELD) // 2
     ev, off = _sensor.simulate_batch(np.pad(images, ((0, 0), (border, border), (border, border))), stimulus,
-                                     config, _rng(seed, 1, i0 // CHUNK), progress=False, pattern=pattern)
+                                     config, _rng(seed, 1, i0 // chunk), progress=False, pattern=pattern)
     for k, i in enumerate(range(i0, i1)):
         write_events(EventStream(ev[off[k]:off[k + 1]], SENSOR, SENSOR), Path(folder) / f"rec{i:06d}.bin",
                      durable=False)
@@ -99,7 +99,7 @@ def _rng(seed: int, *key: int) -> np.random.Generator:
 
 
 def write_recordings(folder, count: int, seed: int = 0, stimulus: str = "saccade", workers: int = 2,
-                     progress: bool = True) -> dict:
+                     progress: bool = True, chunk: int = CHUNK) -> dict:
     """Write `count` recordings, index.csv and the IDX images/labels into `folder` (module docstring).
 
     index.csv is written last: a folder with an index is complete. Returns {"index", "images",
@@ -107,7 +107,7 @@ def write_recordings(folder, count: int, seed: int = 0, stimulus: str = "saccade
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    tasks = [(str(folder), int(seed), stimulus, i, min(i + CHUNK, count)) for i in range(0, count, CHUNK)]
+    tasks = [(str(folder), int(seed), stimulus, i, min(i + chunk, count), chunk) for i in range(0, count, chunk)]
     workers = max(1, min(int(workers), len(tasks)))
     parts = []
     with console.bar(total=count, desc=f"recordings ({stimulus})", unit="rec", enabled=progress) as bar:

@@ -164,28 +164,73 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
     return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
 
 
+def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventStream]:
+    """The streams of one chunk. .bin files (no stored sensor size: default_sensor) are decoded
+    together: one frombuffer over the concatenated bytes, the 23-bit timestamp unwrapped within each
+    file, addresses checked once for the chunk; other formats go through read_events one by one."""
+    from snnconvert.events.formats import WRAP_US, decode_bin
+    if not all(p.endswith(".bin") for p in paths) or not default_sensor:
+        return [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
+    blobs = [Path(p).read_bytes() for p in paths]
+    sizes = np.array([len(b) for b in blobs], np.int64)
+    bad = np.flatnonzero(sizes % 5)
+    if bad.size:  # the one-file reader names the byte offset
+        read_events(paths[int(bad[0])], default_sensor=default_sensor)
+    t, x, y, p = decode_bin(b"".join(blobs))
+    counts = sizes // 5
+    starts = np.concatenate([[0], np.cumsum(counts)])
+    if t.size:  # undo wraps counted across file boundaries: each file starts with no wrap
+        t23 = t % WRAP_US
+        wraps = np.concatenate([[0], np.cumsum(np.diff(t23) < 0)])
+        first = np.repeat(wraps[np.minimum(starts[:-1], t.size - 1)], counts)
+        t = t23 + (wraps - first) * WRAP_US
+    w, h = default_sensor
+    if t.size and (int(x.max()) >= w or int(y.max()) >= h):
+        i = int(np.flatnonzero((x >= w) | (y >= h))[0])
+        f = int(np.searchsorted(starts, i, side="right") - 1)
+        read_events(paths[f], default_sensor=default_sensor)  # raises, naming the file and offset
+    ev = np.empty(t.size, EVENT_DTYPE)
+    ev["t"], ev["x"], ev["y"], ev["p"] = t, x, y, p
+    out = []
+    for i in range(len(paths)):
+        s = EventStream.__new__(EventStream)  # checked above as a whole: addresses, polarity, rising time
+        s.events, s.width, s.height = ev[starts[i]:starts[i + 1]], w, h
+        out.append(s)
+    return out
+
+
 def _folder_chunk(task: tuple) -> dict:
-    """Worker: read, filter, window and bin the files of one chunk; return only frames and counts."""
+    """Worker: read, filter and window the files of one chunk, bin all their windows in one pass;
+    return only frames and counts."""
     from snnconvert import frames as F
     paths, default_sensor, time_unit, filt, sec = task
-    n = len(paths)
+    n, k = len(paths), F.windows_used(sec)
     out = {"X": None, "windows": np.zeros((n, 2), np.int64), "ok": np.zeros(n, bool), "lens": np.zeros(n, np.int64),
            "events_in": np.zeros(n, np.int64), "events": np.zeros(n, np.int64), "pixels_removed": np.zeros(n, np.int64),
            "sensor": np.zeros((n, 2), np.int64)}
-    for i, p in enumerate(paths):
-        s = read_events(p, default_sensor=default_sensor, time_unit=time_unit)
+    kept, groups = [], []
+    for i, s in enumerate(_read_chunk(paths, default_sensor, time_unit)):
         s, eff = _filters.apply(s, *filt)
         ws, out["ok"][i] = F.frame_windows(s, sec)
-        x = F.bin_windows(s, ws, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])  # (K, C, S, S)
-        if out["X"] is None:
-            out["X"] = np.zeros((n, *x.shape), np.uint8)
-        out["X"][i] = x
         out["windows"][i] = ws[0][0], ws[-1][1]
-        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel()).reshape(-1, 2)
-        out["lens"][i] = int((bounds[:, 1] - bounds[:, 0]).sum())
+        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())  # (2K,)
+        seg_len = np.diff(np.r_[0, bounds, len(s)])  # gap, window, gap, ..., gap
+        seg_val = np.full(seg_len.size, -1, np.int64)
+        seg_val[1::2] = i * k + np.arange(k)
+        groups.append(np.repeat(seg_val, seg_len))
+        kept.append(s.events)
+        out["lens"][i] = int(seg_len[1::2].sum())
         out["events_in"][i], out["events"][i] = eff["events_in"], eff["events_out"]
         out["pixels_removed"][i] = eff["pixels_removed"]
         out["sensor"][i] = s.width, s.height
+    if len({tuple(v) for v in out["sensor"]}) > 1:
+        raise UsageError(f"recordings have different sensor sizes {sorted({tuple(v) for v in out['sensor']})}; "
+                         f"use one sensor per folder")
+    ev = np.concatenate(kept) if kept else np.zeros(0, EVENT_DTYPE)
+    w, h = (int(v) for v in out["sensor"][0]) if n else (1, 1)
+    X = F.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.concatenate(groups) if groups else np.zeros(0, np.int64),
+                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    out["X"] = X.reshape(n, k, *X.shape[1:]).astype(np.uint8)
     return out
 
 
