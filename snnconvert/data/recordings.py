@@ -104,12 +104,13 @@ def read_index(index_path) -> tuple[list[Path], list[str]]:
     if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
         raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
     paths, labels = [], []
+    root = index_path.parent.resolve()  # once: resolve_inside's fast path then needs one lstat per file
     for n, row in enumerate(rows[1:], start=2):
         if not row or not "".join(row).strip():
             continue
         if len(row) != 2 or not row[0].strip() or not row[1].strip():
             raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
-        p = files.resolve_inside(index_path.parent, row[0].strip(), what=f"{index_path} line {n}: file")
+        p = files.resolve_inside(root, row[0].strip(), what=f"{index_path} line {n}: file")
         if not p.is_file():
             raise UsageError(f"{index_path}: line {n}: file not found: {p}")
         paths.append(p)
