@@ -28,9 +28,10 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert import console, files
+from snnconvert import files
 from snnconvert.data.idx import write_idx
 from snnconvert.data.images import digits_images
+from snnconvert.data.recordings import in_order
 from snnconvert.events import sensor as _sensor
 from snnconvert.events.formats import SUFFIXES, write_events
 from snnconvert.events.stream import EventStream
@@ -108,23 +109,8 @@ def write_recordings(folder, count: int, seed: int = 0, stimulus: str = "saccade
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     tasks = [(str(folder), int(seed), stimulus, i, min(i + chunk, count), chunk) for i in range(0, count, chunk)]
-    workers = max(1, min(int(workers), len(tasks)))
-    parts = []
-    with console.bar(total=count, desc=f"recordings ({stimulus})", unit="rec", enabled=progress) as bar:
-        if workers == 1:
-            results, pool = map(_make_chunk, tasks), None
-        else:
-            import multiprocessing
-            from concurrent.futures import ProcessPoolExecutor
-            pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
-            results = pool.map(_make_chunk, tasks)
-        try:
-            for r in results:
-                parts.append(r)
-                bar.update(len(r[0]))
-        finally:
-            if pool is not None:
-                pool.shutdown(cancel_futures=True)
+    parts = in_order(_make_chunk, tasks, workers, count, f"recordings ({stimulus})", "rec", progress,
+                     lambda r: len(r[0]))
     labels = np.concatenate([p[0] for p in parts])
     images = np.concatenate([p[1] for p in parts])
     events = np.concatenate([p[2] for p in parts])

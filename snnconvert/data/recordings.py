@@ -25,6 +25,37 @@ from snnconvert.events.stream import EVENT_DTYPE, EventStream
 CHUNK = 256  # files per worker task: large enough to hide the task overhead, small enough for a smooth bar
 
 
+def in_order(fn, tasks: list, workers: int, total: int, desc: str, unit: str, progress: bool, size) -> list:
+    """[fn(t) for t in tasks], run in min(workers, len(tasks)) spawned processes (no state of this process
+    leaks in; one runs here), results in task order; the bar advances by size(result)."""
+    workers = max(1, min(int(workers), len(tasks)))
+    parts, pool = [], None
+    with console.bar(total=total, desc=desc, unit=unit, enabled=progress) as bar:
+        if workers == 1:
+            results = map(fn, tasks)
+        else:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+            pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+            results = pool.map(fn, tasks)
+        try:
+            for r in results:
+                parts.append(r)
+                bar.update(size(r))
+        finally:
+            if pool is not None:
+                pool.shutdown(cancel_futures=True)
+    return parts
+
+
+def _position(i: int, n: int) -> int:
+    """Index i (negative counts from the end) of n recordings; IndexError outside."""
+    i = int(i)
+    if not -n <= i < n:
+        raise IndexError(f"recording {i} out of range ({n} recordings)")
+    return i % n
+
+
 # --- recordings held in memory ---------------------------------------------------------------
 @dataclass
 class RecordingSet:
@@ -39,10 +70,7 @@ class RecordingSet:
         return int(self.labels.size)
 
     def __getitem__(self, i: int) -> tuple[EventStream, int]:
-        i = int(i)
-        if not -len(self) <= i < len(self):
-            raise IndexError(f"recording {i} out of range ({len(self)} recordings)")
-        i %= len(self)
+        i = _position(i, len(self))
         ev = self.events[self.offsets[i]:self.offsets[i + 1]]
         return EventStream(ev, self.width, self.height), int(self.labels[i])
 
@@ -78,10 +106,7 @@ class RecordingFolder:
         return int(self.labels.size)
 
     def __getitem__(self, i: int) -> tuple[EventStream, int]:
-        i = int(i)
-        if not -len(self) <= i < len(self):
-            raise IndexError(f"recording {i} out of range ({len(self)} recordings)")
-        i %= len(self)
+        i = _position(i, len(self))
         s = read_events(self.paths[i], default_sensor=self.default_sensor, time_unit=self.time_unit)
         return _filters.apply(s, *self.filters)[0], int(self.labels[i])
 
@@ -248,24 +273,7 @@ def folder_frames(folder: RecordingFolder, frames_section: dict, progress: bool 
     n = len(folder)
     tasks = [([str(p) for p in folder.paths[i:i + chunk]], folder.default_sensor, folder.time_unit,
               tuple(folder.filters), sec) for i in range(0, n, chunk)]
-    workers = max(1, min(int(workers), len(tasks)))
-    parts = []
-    with console.bar(total=n, desc="frames", unit="file", enabled=progress) as bar:
-        if workers == 1:
-            results = map(_folder_chunk, tasks)
-            pool = None
-        else:
-            import multiprocessing
-            from concurrent.futures import ProcessPoolExecutor
-            pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
-            results = pool.map(_folder_chunk, tasks)
-        try:
-            for r in results:
-                parts.append(r)
-                bar.update(len(r["ok"]))
-        finally:
-            if pool is not None:
-                pool.shutdown(cancel_futures=True)
+    parts = in_order(_folder_chunk, tasks, workers, n, "frames", "file", progress, lambda r: len(r["ok"]))
     out = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]} if parts else {}
     sizes = {tuple(v) for v in out["sensor"]} if parts else set()
     if len(sizes) > 1:
