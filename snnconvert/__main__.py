@@ -1,3 +1,4 @@
 from snnconvert.cli import entry
 
-entry()
+if __name__ == "__main__":  # a spawned worker process imports this module too: it must not run the CLI
+    entry()

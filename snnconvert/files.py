@@ -25,8 +25,12 @@ import numpy as np
 from snnconvert.errors import FormatError, UsageError
 
 
-def atomic_write_bytes(path, data: bytes) -> Path:
-    """Write `data` to `path` via temp file + fsync + rename. Parent folders are created."""
+def atomic_write_bytes(path, data: bytes, durable: bool = True) -> Path:
+    """Write `data` to `path` via temp file + fsync + rename. Parent folders are created.
+
+    durable=False skips the fsync (readers still never see a partial file): for writers of many
+    small files that sync once at the end (os.sync) before writing the file that marks them complete.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
@@ -35,7 +39,8 @@ def atomic_write_bytes(path, data: bytes) -> Path:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -163,7 +168,19 @@ def load_torch(path):
 
 
 def resolve_inside(folder, relative: str, what: str = "path") -> Path:
-    """Resolve a path listed in an index file; anything escaping `folder` is rejected."""
+    """Resolve a path listed in an index file; anything escaping `folder` is rejected.
+
+    Fast path (one lstat, no realpath): a plain file name without a folder part, naming a regular
+    file (not a symlink) in `folder`, is inside it by construction; everything else is resolved.
+    """
+    if "/" not in relative and "\\" not in relative and relative not in ("", ".", ".."):
+        import stat as _stat
+        target = Path(folder) / relative
+        try:
+            if _stat.S_ISREG(os.lstat(target).st_mode):
+                return target.absolute()
+        except OSError:
+            pass
     folder = Path(folder).resolve()
     rel = Path(relative)
     if rel.is_absolute():

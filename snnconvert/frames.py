@@ -92,27 +92,59 @@ def bin_window(stream: EventStream, t0: int, t1: int, mode: str = "binary", size
 
 
 def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
-    """All windows of `stream` by the window rule of a resolved [frames] section (every key present)."""
-    from snnconvert import windows as W
+    """All windows of `stream` by the window rule of a resolved [frames] section (every key present;
+    "all": one window holding every event, none for an empty stream)."""
+    from snnconvert import windows
     kind = section["window"]
     if kind == "burst":
-        return W.bursts(stream, section["bin_us"], section["upper"], section["lower"], section["relative"],
-                        section["min_duration_us"], section["merge_gap_us"])
+        return windows.bursts(stream, section["bin_us"], section["upper"], section["lower"], section["relative"],
+                        section["min_duration_us"], section["merge_gap_us"], section["background_percentile"])
     if kind == "fixed":
-        return W.fixed_windows(stream, section["window_us"])
-    return W.count_windows(stream, section["window_events"])
+        return windows.fixed_windows(stream, section["window_us"])
+    if kind == "all":
+        return [_whole(stream)] if len(stream) else []
+    return windows.count_windows(stream, section["window_events"])
+
+
+def _whole(stream: EventStream) -> tuple[int, int]:
+    return int(stream.t[0]), int(stream.t[-1]) + 1
 
 
 def frame_window(stream: EventStream, section: dict) -> tuple[tuple[int, int], bool]:
     """The window that makes a recording's frame, and whether it came from the rule (True) or the
     fallback (False): a recording where the rule finds no window uses all of its events."""
-    from snnconvert import windows as W
-    chosen = W.pick(stream, windows_of(stream, section), section["pick"])
+    from snnconvert import windows
+    chosen = windows.pick(stream, windows_of(stream, section), section["pick"])
     if chosen is not None:
         return chosen, True
     if len(stream):
-        return (int(stream.t[0]), int(stream.t[-1]) + 1), False
+        return _whole(stream), False
     return (0, 0), False
+
+
+def windows_used(section: dict) -> int:
+    """K, the windows each recording gives: 1 for per_recording "one", else the `windows` key."""
+    return 1 if section["per_recording"] == "one" else int(section["windows"])
+
+
+def frame_windows(stream: EventStream, section: dict) -> tuple[list[tuple[int, int]], bool]:
+    """The K = windows_used(section) windows that make a recording's frames, and whether the rule
+    gave them (True) or the fallback did (False).
+
+    per_recording "one": [frame_window]. "each"/"stack": the first K windows of the rule; a recording
+    with fewer is cut into K equal windows over its whole span instead (t_k = t0 + k * span // K), so
+    every recording gives the same K samples or channels, in time order.
+    """
+    k = windows_used(section)
+    if section["per_recording"] == "one":
+        w, ok = frame_window(stream, section)
+        return [w], ok
+    found = windows_of(stream, section)
+    if len(found) >= k:
+        return [tuple(v) for v in found[:k]], True
+    t0, t1 = _whole(stream) if len(stream) else (0, 0)
+    edges = [t0 + i * (t1 - t0) // k for i in range(k + 1)]
+    return list(zip(edges[:-1], edges[1:])), False
 
 
 # --- plots ----------------------------------------------------------------------------------

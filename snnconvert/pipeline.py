@@ -223,6 +223,8 @@ def _data_stage(run_: Run) -> None:
     frames.plot_frames(Xtr, ytr, d / "frames.png", classes=list(ds.classes), mode=fr["mode"], q=ds.input_q,
                        caption=frames.frames_caption("train", fr["mode"], ds.input_shape, fr["threshold"],
                                                      fr["max_count"]))
+    if "filters" in ds.info:  # the noise filters' effect: events in, events out, pixels removed
+        summary["filters"] = ds.info["filters"]
     example = _example_recording(run_)
     if example is not None:
         summary["example_recording"] = example
@@ -252,7 +254,7 @@ def _example_recording(run_: Run) -> dict | None:
     fr = run_.recipe["frames"]
     tk, rate = windows.rate_trace(stream, fr["bin_us"])
     wins = frames.windows_of(stream, fr)
-    thr = windows.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"]) if fr["window"] == "burst" else None
+    thr = windows.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"], fr["background_percentile"]) if fr["window"] == "burst" else None
     shown = [frames.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
     frames.plot_recording(stream, wins, (tk, rate), shown, run_.out / "data" / "events.png", thresholds=thr,
                           mode=fr["mode"], q=ds.input_q,

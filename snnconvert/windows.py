@@ -37,32 +37,40 @@ def rate_trace(stream: EventStream, bin_us: int = 1000) -> tuple[np.ndarray, np.
     return t0 + starts * step, counts * (1e6 / (per * step))
 
 
-def background_rate(rate: np.ndarray, bin_us: int) -> float:
-    """Median of the rate trace, floored at one event per bin (a silent sensor still has a scale).
+def background_rate(rate: np.ndarray, bin_us: int, percentile: float = 50.0) -> float:
+    """The `percentile`-th percentile of the rate trace (default the median), floored at one event
+    per bin (1e6 / bin_us events/s).
 
-    The median ignores bursts as long as they cover under half of the recording.
+    The median ignores bursts as long as they cover under half of the recording (a flash). A
+    saccade recording moves for most of its length; its quiet stretches are the turns between
+    saccades, so a low percentile (about 10) measures them instead.
+    Near-zero background: the floor takes over, and relative thresholds become absolute ones,
+    upper * 1e6 / bin_us events/s (8 events in one 1 ms bin at the defaults) and lower likewise;
+    a silent sensor still gets a finite scale, and a single noise event never starts a burst.
     """
     floor = 1e6 / bin_us
-    return max(float(np.median(rate)) if rate.size else 0.0, floor)
+    return max(float(np.percentile(rate, percentile)) if rate.size else 0.0, floor)
 
 
-def thresholds(rate: np.ndarray, bin_us: int, upper: float, lower: float, relative: bool) -> tuple[float, float]:
+def thresholds(rate: np.ndarray, bin_us: int, upper: float, lower: float, relative: bool,
+               percentile: float = 50.0) -> tuple[float, float]:
     """(upper, lower) in events/s: as given, or multiplied by background_rate when relative."""
     if relative:
-        bg = background_rate(rate, bin_us)
+        bg = background_rate(rate, bin_us, percentile)
         return upper * bg, lower * bg
     return float(upper), float(lower)
 
 
 def bursts(stream: EventStream, bin_us: int = 1000, upper: float = 8.0, lower: float = 2.0,
-           relative: bool = True, min_duration_us: int = 500, merge_gap_us: int = 2000) -> list[tuple[int, int]]:
+           relative: bool = True, min_duration_us: int = 500, merge_gap_us: int = 2000,
+           percentile: float = 50.0) -> list[tuple[int, int]]:
     """Bursts by hysteresis on the sliding rate r(t_k) (see rate_trace).
 
     A burst starts at the first window with r > upper and lasts while r >= lower; it spans from
     the first event of that window to the end (t_k + bin_us) of its last window with r >= lower,
     clipped to just past the last event. Bursts separated by less than merge_gap_us are merged; bursts shorter
     than min_duration_us are dropped (after merging). lower > upper is treated as lower = upper.
-    Empty stream: no bursts.
+    Empty stream: no bursts. `percentile` chooses the background statistic (see background_rate).
     """
     owner = "bursts"
     bin_us = check_int(bin_us, "bin_us", owner, 1)
@@ -71,10 +79,11 @@ def bursts(stream: EventStream, bin_us: int = 1000, upper: float = 8.0, lower: f
     relative = check_bool(relative, "relative", owner)
     min_duration_us = check_int(min_duration_us, "min_duration_us", owner, 0)
     merge_gap_us = check_int(merge_gap_us, "merge_gap_us", owner, 0)
+    percentile = check_float(percentile, "percentile", owner, 0.0, 100.0)
     tk, rate = rate_trace(stream, bin_us)
     if not rate.size:
         return []
-    hi, lo = thresholds(rate, bin_us, upper, lower, relative)
+    hi, lo = thresholds(rate, bin_us, upper, lower, relative, percentile)
     lo = min(lo, hi)
     above_lo = rate >= lo
     # runs of consecutive windows at or above `lower`

@@ -113,8 +113,8 @@ def _times_us(path: Path, t: np.ndarray, time_unit: str, where=None) -> np.ndarr
     return np.rint(us).astype(np.int64)
 
 
-def write_events(stream: EventStream, path) -> Path:
-    """Write atomically in the format of the suffix."""
+def write_events(stream: EventStream, path, durable: bool = True) -> Path:
+    """Write atomically in the format of the suffix (durable: see files.atomic_write_bytes)."""
     path = Path(path)
     kind = _suffix(path)
     if not isinstance(stream, EventStream):
@@ -123,10 +123,10 @@ def write_events(stream: EventStream, path) -> Path:
         buf = io.BytesIO()
         np.savez(buf, format=np.array(FORMAT), version=np.array(VERSION), t=stream.t, x=stream.x, y=stream.y,
                  p=stream.p, width=np.array(stream.width), height=np.array(stream.height))
-        return atomic_write_bytes(path, buf.getvalue())
+        return atomic_write_bytes(path, buf.getvalue(), durable)
     if kind == ".csv":
-        return atomic_write_bytes(path, encode_csv(stream))
-    return atomic_write_bytes(path, encode_bin(stream))
+        return atomic_write_bytes(path, encode_csv(stream), durable)
+    return atomic_write_bytes(path, encode_bin(stream), durable)
 
 
 # --- NPZ: own or plain ------------------------------------------------------------------------

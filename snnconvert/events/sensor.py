@@ -23,6 +23,8 @@ Stimuli:
     saccade  the image is on screen from t = 0 (pixels adapted to it) and moves along a closed
              regular polygon of saccade_segments straight sides of saccade_amplitude pixels, each in
              saccade_segment_us, sampled saccade_steps times per side (bilinear sub-pixel shifts;
+             saccade_profile "linear" moves at constant speed, "smooth" as u - sin(2 pi u) / (2 pi) of the
+             side's time fraction u, i.e. speed 1 - cos(2 pi u), at rest at every corner;
              border pixels repeat outward, so a uniform image stays uniform). Events appear at the moving edges.
 """
 
@@ -59,6 +61,7 @@ class SensorConfig:
     saccade_segment_us: int = SENSOR_KEYS["saccade_segment_us"].default
     saccade_amplitude: float = SENSOR_KEYS["saccade_amplitude"].default
     saccade_steps: int = SENSOR_KEYS["saccade_steps"].default
+    saccade_profile: str = SENSOR_KEYS["saccade_profile"].default
 
     def __post_init__(self):
         for f in fields(self):
@@ -76,6 +79,14 @@ class SensorConfig:
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
+def fixed_pattern(npx: int, config: SensorConfig, rng) -> tuple[np.ndarray, np.ndarray]:
+    """(C_on, C_off), each (npx,): C * (1 + mismatch * N(0, 1)) per pixel, floored at C / 10."""
+    c = config.contrast
+    c_on = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)
+    c_off = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)
+    return c_on, c_off
+
+
 def simulate(image, stimulus: str = "flash", config: SensorConfig | None = None, rng=None) -> EventStream:
     """One image (H, W) with values in [0, 1] -> the recording of one simulated sensor of size W x H."""
     image = np.asarray(image, dtype=np.float64)
@@ -86,12 +97,14 @@ def simulate(image, stimulus: str = "flash", config: SensorConfig | None = None,
 
 
 def simulate_batch(images, stimulus: str = "flash", config: SensorConfig | None = None, rng=None,
-                   progress: bool = True) -> tuple[np.ndarray, np.ndarray]:
+                   progress: bool = True, pattern: tuple[np.ndarray, np.ndarray] | None = None
+                   ) -> tuple[np.ndarray, np.ndarray]:
     """Images (N, H, W) in [0, 1] shown to one simulated sensor, one recording each.
 
     Returns (events in EVENT_DTYPE, offsets (N + 1,)): recording i is events[offsets[i]:offsets[i+1]],
     each time-ordered and starting at t = 0. Vectorized over all pixels of all images; the only
-    Python loop runs over the stimulus sample times.
+    Python loop runs over the stimulus sample times. `pattern` = (C_on, C_off), each (H * W,), is a
+    sensor's fixed threshold pattern (see fixed_pattern); by default it is drawn from rng first.
     """
     config = config or SensorConfig()
     check_choice(stimulus, "stimulus", "simulate", STIMULI)
@@ -103,9 +116,7 @@ def simulate_batch(images, stimulus: str = "flash", config: SensorConfig | None 
         raise UsageError("simulate needs image values in [0, 1] (fraction of white)")
     n, h, w = images.shape
     npx = h * w
-    c = config.contrast
-    c_on = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,) fixed pattern
-    c_off = np.maximum(c * (1 + config.mismatch * rng.standard_normal(npx)), c / 10)  # (P,)
+    c_on, c_off = pattern if pattern is not None else fixed_pattern(npx, config, rng)
     evs, counts = [], []
     from snnconvert import console
     with console.bar(total=n, desc=f"sensor ({stimulus})", unit="image", enabled=progress) as bar:
@@ -144,6 +155,8 @@ def _simulate_chunk(images, stimulus, config, rng, c_on, c_off):
         s = np.arange(k * steps + 1) / steps  # path parameter in segments
         seg = np.minimum(s.astype(int), k - 1)
         frac = s - seg
+        if config.saccade_profile == "smooth":  # speed 1 - cos(2 pi u): at rest at every corner
+            frac = frac - np.sin(2 * np.pi * frac) / (2 * np.pi)
         px = vx[seg] + (vx[seg + 1] - vx[seg]) * frac
         py = vy[seg] + (vy[seg + 1] - vy[seg]) * frac
         times = np.rint(s * config.saccade_segment_us).astype(np.int64)

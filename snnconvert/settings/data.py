@@ -33,6 +33,19 @@ SENSOR_KEYS: dict[str, Key] = {
     "saccade_segment_us": Key(30000, "int", "about the pace of small eye movements, tens of ms per segment", lo=1),
     "saccade_amplitude": Key(2.0, "float", "a couple of sensor pixels: edges move, the shape stays put", lo=0.1),
     "saccade_steps": Key(16, "int", "time samples per segment: sub-pixel motion per step", lo=2, hi=1000),
+    "saccade_profile": Key("linear", "choice", "linear: constant speed along each side; smooth: speed 1 - cos, at rest "
+                           "at each corner like an eye or a pan-tilt unit, so each saccade is its own burst",
+                           choices=("linear", "smooth")),
+}
+
+# The optional noise filters (snnconvert/events/filters.py); 0 turns each off.
+FILTER_KEYS: dict[str, Key] = {
+    "filter_hot_factor": Key(0.0, "float", "off: simulated sensors have no hot pixel unless asked; 10 removes a pixel "
+                             "firing 10x the median active pixel", lo=0.0),
+    "filter_refractory_us": Key(0, "int", "off: the simulated sensor already keeps a refractory period; real "
+                                "recordings may want ~1000 us", lo=0),
+    "filter_background_us": Key(0, "int", "off: clean simulated data; real sensors use a few ms (T = 5000 us keeps "
+                                "moving edges, drops isolated noise)", lo=0),
 }
 
 # keys that were renamed: old name -> new name (recipe.from_dict reads the old name with a note)
@@ -59,6 +72,9 @@ KEYS: dict[str, Key] = {
     "time_unit": Key("us", "choice", "recordings store integer microseconds; s or ms read float times in CSV and plain "
                      "NPZ files", choices=TIME_UNITS),
     "cache_dir": Key("", "path", "empty: $SNNCONVERT_CACHE or ~/.cache/snnconvert, shared between runs"),
+    "workers": Key(2, "int", "the 2 cores of a laptop read a recordings folder in parallel; the frames do not "
+                   "depend on it", lo=1, hi=64),
+    **FILTER_KEYS,
     **SENSOR_KEYS,
 }
 
@@ -83,6 +99,10 @@ class DataSettings(Section):
     recordings_index: str
     time_unit: str
     cache_dir: str
+    workers: int
+    filter_hot_factor: float
+    filter_refractory_us: int
+    filter_background_us: int
     contrast: float
     mismatch: float
     refractory_us: int
@@ -99,3 +119,4 @@ class DataSettings(Section):
     saccade_segment_us: int
     saccade_amplitude: float
     saccade_steps: int
+    saccade_profile: str

@@ -8,13 +8,23 @@ from snnconvert.schema import Key
 from snnconvert.settings import Section
 
 MODES = ("binary", "count", "polarity")
+PER_RECORDING = ("one", "each", "stack")
 
 KEYS: dict[str, Key] = {
-    "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance",
-                  choices=("burst", "fixed", "count")),
+    "window": Key("burst", "choice", "bursts follow the stimulus; no timing has to be known in advance "
+                  "(all: the whole recording is one window)", choices=("burst", "fixed", "count", "all")),
+    "per_recording": Key("one", "choice", "one frame per recording (the picked window) keeps one sample per "
+                         "recording; each: one sample per window (3 per saccade recording, more data); stack: the "
+                         "windows as channels of one sample (keeps the order of the saccades)",
+                         choices=PER_RECORDING),
+    "windows": Key(3, "int", "each/stack use the first 3 windows: three saccades per recording in the published "
+                   "layout", lo=1, hi=64),
     "pick": Key("first", "choice", "the first burst of a flash is the onset: ON events of the whole shape",
                 choices=("first", "largest")),
     "bin_us": Key(1000, "int", "1 ms rate bins resolve a flash onset that lasts a few ms", lo=1),
+    "background_percentile": Key(50.0, "float", "the median rate is the background while bursts cover under half "
+                                 "of a recording (flashes); saccades move for most of it: use ~10, the quiet turns",
+                                 lo=0.0, hi=100.0),
     "relative": Key(True, "bool", "thresholds as multiples of the background rate adapt to each sensor"),
     "upper": Key(8.0, "float", "a burst must stand well above background (x background, or events/s)", lo=0.0),
     "lower": Key(2.0, "float", "hysteresis: a burst ends when the rate is back near background", lo=0.0),
@@ -40,8 +50,11 @@ class FramesSettings(Section):
     KEYS = KEYS
 
     window: str
+    per_recording: str
+    windows: int
     pick: str
     bin_us: int
+    background_percentile: float
     relative: bool
     upper: float
     lower: float

@@ -1,0 +1,285 @@
+"""Recordings: many in memory (RecordingSet), or a folder of files read lazily (RecordingFolder),
+and their frames.
+
+A folder is never held in memory: `folder_frames` reads, filters, windows and bins it file by file
+in worker processes (chunks of CHUNK files) and keeps only the frames, so memory is bounded by the
+frames plus one chunk of events per worker, whatever the folder's size.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from snnconvert import console, files
+from snnconvert.errors import FormatError, UsageError
+from snnconvert.events import filters as _filters
+from snnconvert.events.formats import read_events
+from snnconvert.events.stream import EVENT_DTYPE, EventStream
+
+CHUNK = 256  # files per worker task: large enough to hide the task overhead, small enough for a smooth bar
+
+
+def in_order(fn, tasks: list, workers: int, total: int, desc: str, unit: str, progress: bool, size) -> list:
+    """[fn(t) for t in tasks], run in min(workers, len(tasks)) spawned processes (no state of this process
+    leaks in; one runs here), results in task order; the bar advances by size(result)."""
+    workers = max(1, min(int(workers), len(tasks)))
+    parts, pool = [], None
+    with console.bar(total=total, desc=desc, unit=unit, enabled=progress) as bar:
+        if workers == 1:
+            results = map(fn, tasks)
+        else:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+            pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+            results = pool.map(fn, tasks)
+        try:
+            for r in results:
+                parts.append(r)
+                bar.update(size(r))
+        finally:
+            if pool is not None:
+                pool.shutdown(cancel_futures=True)
+    return parts
+
+
+def _position(i: int, n: int) -> int:
+    """Index i (negative counts from the end) of n recordings; IndexError outside."""
+    i = int(i)
+    if not -n <= i < n:
+        raise IndexError(f"recording {i} out of range ({n} recordings)")
+    return i % n
+
+
+# --- recordings held in memory ---------------------------------------------------------------
+@dataclass
+class RecordingSet:
+    """Many recordings in one concatenated event array; recording i is events[offsets[i]:offsets[i+1]]."""
+    events: np.ndarray          # EVENT_DTYPE
+    offsets: np.ndarray         # (N + 1,) int64
+    labels: np.ndarray          # (N,) int64
+    width: int
+    height: int
+
+    def __len__(self) -> int:
+        return int(self.labels.size)
+
+    def __getitem__(self, i: int) -> tuple[EventStream, int]:
+        i = _position(i, len(self))
+        ev = self.events[self.offsets[i]:self.offsets[i + 1]]
+        return EventStream(ev, self.width, self.height), int(self.labels[i])
+
+    @classmethod
+    def from_streams(cls, streams: list[EventStream], labels) -> "RecordingSet":
+        """Concatenate streams that share one sensor size (a folder comes from one sensor)."""
+        sizes = {(s.width, s.height) for s in streams}
+        if len(sizes) > 1:
+            raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+        w, h = sizes.pop() if sizes else (1, 1)
+        offsets = np.concatenate([[0], np.cumsum([len(s) for s in streams])]).astype(np.int64)
+        ev = np.concatenate([s.events for s in streams]) if streams else np.zeros(0, EVENT_DTYPE)
+        return cls(ev, offsets, np.asarray(labels, np.int64), w, h)
+
+
+
+@dataclass
+class RecordingFolder:
+    """The recordings of a folder, read one file at a time; recording i is read (and filtered) on access.
+
+    `events` (events per recording after the filters) is known once the frames have been made.
+    """
+    paths: list[Path]
+    labels: np.ndarray          # (N,) int64
+    width: int
+    height: int
+    default_sensor: tuple[int, int]
+    time_unit: str = "us"
+    filters: tuple = (0.0, 0, 0)   # (hot_factor, refractory_us, background_us)
+    events: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+
+    def __len__(self) -> int:
+        return int(self.labels.size)
+
+    def __getitem__(self, i: int) -> tuple[EventStream, int]:
+        i = _position(i, len(self))
+        s = read_events(self.paths[i], default_sensor=self.default_sensor, time_unit=self.time_unit)
+        return _filters.apply(s, *self.filters)[0], int(self.labels[i])
+
+    @property
+    def offsets(self) -> np.ndarray:
+        """(N + 1,) cumulative event counts, as RecordingSet.offsets."""
+        return np.concatenate([[0], np.cumsum(self.events)]).astype(np.int64)
+
+
+# --- recordings folder -----------------------------------------------------------------------
+def read_index(index_path) -> tuple[list[Path], list[str]]:
+    """CSV with header `file,label`; files resolve inside the index's folder."""
+    index_path = Path(index_path)
+    if not index_path.is_file():
+        raise UsageError(f"file not found: {index_path} (set data.recordings_index)")
+    try:
+        rows = list(csv.reader(io.StringIO(index_path.read_text(encoding="utf-8"))))
+    except (UnicodeDecodeError, csv.Error) as exc:
+        raise FormatError(f"{index_path}: not a readable CSV ({exc})") from None
+    if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
+        raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
+    paths, labels = [], []
+    root = index_path.parent.resolve()  # once: resolve_inside's fast path then needs one lstat per file
+    for n, row in enumerate(rows[1:], start=2):
+        if not row or not "".join(row).strip():
+            continue
+        if len(row) != 2 or not row[0].strip() or not row[1].strip():
+            raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
+        p = files.resolve_inside(root, row[0].strip(), what=f"{index_path} line {n}: file")
+        if not p.is_file():
+            raise UsageError(f"{index_path}: line {n}: file not found: {p}")
+        paths.append(p)
+        labels.append(row[1].strip())
+    if not paths:
+        raise FormatError(f"{index_path}: the index lists no recordings")
+    return paths, labels
+
+
+def class_names(labels: list[str]) -> list[str]:
+    """Sorted class names: numerically when every label is an integer."""
+    uniq = set(labels)
+    try:
+        return [str(v) for v in sorted(uniq, key=int)]
+    except ValueError:
+        return sorted(uniq)
+
+
+# --- frames of many recordings ---------------------------------------------------------------
+def _frames_section(frames_section: dict) -> dict:
+    """A resolved [frames] section (every key present, as recipe.load leaves it); a missing key is named."""
+    from snnconvert.settings.frames import KEYS
+    missing = [k for k in KEYS if k not in frames_section]
+    if missing:
+        raise UsageError(f"the [frames] section lacks {', '.join(missing)}; pass a resolved section "
+                         "(recipe.load fills every key)")
+    return frames_section
+
+
+def recording_frames(recs, frames_section: dict, progress: bool = True, workers: int = 1):
+    """(X (N, K, C, S, S) float32, windows (N, 2), used_rule (N,) bool, lens (N,) int64) for a
+    RecordingSet or a RecordingFolder; K = frames.windows_used, windows (N, 2) spans the first to the
+    last window of each recording, lens counts the events inside its windows."""
+    if isinstance(recs, RecordingFolder):
+        out = folder_frames(recs, frames_section, progress, workers)
+        return out["X"].astype(np.float32), out["windows"], out["ok"], out["lens"]
+    from snnconvert import frames
+    sec = _frames_section(frames_section)
+    n, k = len(recs), frames.windows_used(sec)
+    wins = np.zeros((n, 2), np.int64)
+    ok = np.zeros(n, bool)
+    sel, groups = [], []
+    for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
+        s, _ = recs[i]
+        ws, ok[i] = frames.frame_windows(s, sec)
+        wins[i] = ws[0][0], ws[-1][1]
+        for j, (t0, t1) in enumerate(ws):
+            a, b = np.searchsorted(s.t, [t0, t1])
+            sel.append(np.arange(recs.offsets[i] + a, recs.offsets[i] + b))
+            groups.append(i * k + j)
+    sizes = np.array([len(v) for v in sel], np.int64)
+    idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
+    ev = recs.events[idx]
+    X = frames.bin_events(ev["x"], ev["y"], ev["p"], recs.width, recs.height, np.repeat(np.asarray(groups, np.int64), sizes),
+                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    lens = np.bincount(np.repeat(np.asarray(groups, np.int64) // k, sizes), minlength=n).astype(np.int64)
+    return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
+
+
+def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventStream]:
+    """The streams of one chunk. .bin files (no stored sensor size: default_sensor) are decoded
+    together: one frombuffer over the concatenated bytes, the 23-bit timestamp unwrapped within each
+    file, addresses checked once for the chunk; other formats go through read_events one by one."""
+    from snnconvert.events.formats import WRAP_US, decode_bin
+    if not all(p.endswith(".bin") for p in paths) or not default_sensor:
+        return [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
+    blobs = [Path(p).read_bytes() for p in paths]
+    sizes = np.array([len(b) for b in blobs], np.int64)
+    bad = np.flatnonzero(sizes % 5)
+    if bad.size:  # the one-file reader names the byte offset
+        read_events(paths[int(bad[0])], default_sensor=default_sensor)
+    t, x, y, p = decode_bin(b"".join(blobs))
+    counts = sizes // 5
+    starts = np.concatenate([[0], np.cumsum(counts)])
+    if t.size:  # undo wraps counted across file boundaries: each file starts with no wrap
+        t23 = t % WRAP_US
+        wraps = np.concatenate([[0], np.cumsum(np.diff(t23) < 0)])
+        first = np.repeat(wraps[np.minimum(starts[:-1], t.size - 1)], counts)
+        t = t23 + (wraps - first) * WRAP_US
+    w, h = default_sensor
+    if t.size and (int(x.max()) >= w or int(y.max()) >= h):
+        i = int(np.flatnonzero((x >= w) | (y >= h))[0])
+        f = int(np.searchsorted(starts, i, side="right") - 1)
+        read_events(paths[f], default_sensor=default_sensor)  # raises, naming the file and offset
+    ev = np.empty(t.size, EVENT_DTYPE)
+    ev["t"], ev["x"], ev["y"], ev["p"] = t, x, y, p
+    out = []
+    for i in range(len(paths)):
+        s = EventStream.__new__(EventStream)  # checked above as a whole: addresses, polarity, rising time
+        s.events, s.width, s.height = ev[starts[i]:starts[i + 1]], w, h
+        out.append(s)
+    return out
+
+
+def _folder_chunk(task: tuple) -> dict:
+    """Worker: read, filter and window the files of one chunk, bin all their windows in one pass;
+    return only frames and counts."""
+    from snnconvert import frames
+    paths, default_sensor, time_unit, filt, sec = task
+    n, k = len(paths), frames.windows_used(sec)
+    out = {"X": None, "windows": np.zeros((n, 2), np.int64), "ok": np.zeros(n, bool), "lens": np.zeros(n, np.int64),
+           "events_in": np.zeros(n, np.int64), "events": np.zeros(n, np.int64), "pixels_removed": np.zeros(n, np.int64),
+           "sensor": np.zeros((n, 2), np.int64)}
+    kept, groups = [], []
+    for i, s in enumerate(_read_chunk(paths, default_sensor, time_unit)):
+        s, eff = _filters.apply(s, *filt)
+        ws, out["ok"][i] = frames.frame_windows(s, sec)
+        out["windows"][i] = ws[0][0], ws[-1][1]
+        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())  # (2K,)
+        seg_len = np.diff(np.r_[0, bounds, len(s)])  # gap, window, gap, ..., gap
+        seg_val = np.full(seg_len.size, -1, np.int64)
+        seg_val[1::2] = i * k + np.arange(k)
+        groups.append(np.repeat(seg_val, seg_len))
+        kept.append(s.events)
+        out["lens"][i] = int(seg_len[1::2].sum())
+        out["events_in"][i], out["events"][i] = eff["events_in"], eff["events_out"]
+        out["pixels_removed"][i] = eff["pixels_removed"]
+        out["sensor"][i] = s.width, s.height
+    if len({tuple(v) for v in out["sensor"]}) > 1:
+        raise UsageError(f"recordings have different sensor sizes {sorted({tuple(v) for v in out['sensor']})}; "
+                         f"use one sensor per folder")
+    ev = np.concatenate(kept) if kept else np.zeros(0, EVENT_DTYPE)
+    w, h = (int(v) for v in out["sensor"][0]) if n else (1, 1)
+    X = frames.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.concatenate(groups) if groups else np.zeros(0, np.int64),
+                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    out["X"] = X.reshape(n, k, *X.shape[1:]).astype(np.uint8)
+    return out
+
+
+def folder_frames(folder: RecordingFolder, frames_section: dict, progress: bool = True, workers: int = 1,
+                  chunk: int = CHUNK) -> dict:
+    """Stream a folder: chunks of `chunk` files go to `workers` processes (spawned, so no state of this
+    process leaks in), each returning frames as uint8 and per-file counts; results come back in file
+    order, so the frames do not depend on the number of workers. One worker (or one chunk) runs here.
+
+    Returns {"X" (N, K, C, S, S) uint8, "windows", "ok", "lens", "events_in", "events", "pixels_removed",
+    "sensor" (N, 2)}. Files of different sensor sizes are refused (one sensor per folder).
+    """
+    sec = _frames_section(frames_section)
+    n = len(folder)
+    tasks = [([str(p) for p in folder.paths[i:i + chunk]], folder.default_sensor, folder.time_unit,
+              tuple(folder.filters), sec) for i in range(0, n, chunk)]
+    parts = in_order(_folder_chunk, tasks, workers, n, "frames", "file", progress, lambda r: len(r["ok"]))
+    out = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]} if parts else {}
+    sizes = {tuple(v) for v in out["sensor"]} if parts else set()
+    if len(sizes) > 1:
+        raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+    return out
