@@ -131,28 +131,37 @@ def import_onnx(model_path, recipe_path, out=None, overrides=(), quiet: bool = F
     settings = {**settings, "model": ModelSettings.from_section({"layers": graph.layers})}
     run_ = pipeline.Run(r, settings, out, force="train")
     ds = run_.dataset()
-    if tuple(ds.input_shape) != tuple(graph.input_shape):
-        layout = "(N, H, W, C) -> " if graph.channels_last else ""
-        raise UsageError(f"{model_path}: the model takes frames of shape {tuple(graph.input_shape)} ({layout}C, H, W) "
-                         f"but the recipe's frames have shape {tuple(ds.input_shape)}")
-    if graph.n_classes != len(ds.classes):
-        raise UsageError(f"{model_path}: the model gives {graph.n_classes} class scores but the recipe's data has "
-                         f"{len(ds.classes)} classes")
+    check_fits(graph, ds, model_path)
     out.mkdir(parents=True, exist_ok=True)
     recipe_mod.save(r, out)
     run_.stage("data", lambda: pipeline._data_stage(run_))
     result = {}
-    run_.stage("train", lambda: result.update(_write_train(run_, proto, data, graph, Path(model_path), quiet)))
+    run_.stage("train", lambda: result.update(write_train_folder(out / "train", r, ds, proto, data, graph,
+                                                                 Path(model_path))))
     return result
 
 
-def _write_train(run_, proto, data, graph, source: Path, quiet: bool) -> dict:
+def check_fits(graph, ds, source) -> None:
+    """UsageError naming both shapes (or class counts) when the graph does not take the data set's frames."""
+    if tuple(ds.input_shape) != tuple(graph.input_shape):
+        layout = ", read from its channels-last input" if graph.channels_last else ""
+        raise UsageError(f"{source}: the model takes frames of shape {tuple(graph.input_shape)} (C, H, W{layout}) "
+                         f"but the recipe's frames have shape {tuple(ds.input_shape)}")
+    if graph.n_classes != len(ds.classes):
+        raise UsageError(f"{source}: the model gives {graph.n_classes} class scores but the recipe's data has "
+                         f"{len(ds.classes)} classes")
+
+
+def write_train_folder(folder, r: dict, ds, proto, data: bytes, graph, source: Path) -> dict:
+    """The train folder of an imported graph (see the module docstring), measured on the data set `ds`
+    (the layout `train.train` reads) after the onnxruntime check. Returns the metrics."""
     import torch
 
     from snnconvert import models, train
     from snnconvert.interop.onnx_write import write_onnx
 
-    ds, r = run_.dataset(), run_.recipe
+    folder = Path(folder)
+    check_fits(graph, ds, source)
     model = build_torch_model(graph)
     x_test = np.asarray(ds.test[0])
     x_check = x_test[:CHECK_FRAMES] if len(x_test) else np.asarray(ds.train[0])[:CHECK_FRAMES]
@@ -183,7 +192,6 @@ def _write_train(run_, proto, data, graph, source: Path, quiet: bool) -> dict:
             "state_dict": {k: v.detach().clone() for k, v in model.state_dict().items()},
             "model_spec": spec, "recipe": copy.deepcopy(r), "data_fingerprint": str(ds.fingerprint),
             "metrics": metrics, "act_max": None, "aware": None}
-    folder = run_.out / "train"
     folder.mkdir(parents=True, exist_ok=True)
     files.atomic_torch_save(ckpt, folder / "model.pt")
     recipe_mod.save(r, folder)
