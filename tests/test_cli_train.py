@@ -38,6 +38,15 @@ def test_train_command_writes_outputs_and_summary(small_data, tmp_path, capsys):
     assert lines[1] == (f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png, "
                         f"model.onnx")
     assert "seed = 2" in (out / "recipe.toml").read_text()
+    # model.onnx, read back by onnxruntime (the reference runtime), gives the checkpoint's scores
+    ort = pytest.importorskip("onnxruntime")
+    from snnconvert.train import load_checkpoint
+    model, _ = load_checkpoint(out)
+    x = small_data.test[0][:20]
+    got = ort.InferenceSession(str(out / "model.onnx"), providers=["CPUExecutionProvider"]).run(
+        ["scores"], {"frames": x.numpy()})[0]
+    with torch.no_grad():
+        assert abs(got - model(x).numpy()).max() <= 1e-4
 
 
 @pytest.mark.parametrize("argv,message", [

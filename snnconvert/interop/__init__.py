@@ -21,4 +21,4 @@ def require_onnx(what: str) -> None:
     """Raise a one-line UsageError naming what to install when onnx or onnxruntime is missing."""
     missing = missing_packages()
     if missing:
-        raise UsageError(f"{what} needs {' and '.join(missing)}, which this install lacks; install them: {ONNX_EXTRA}")
+        raise UsageError(f"{what} needs {' and '.join(missing)}, which this install lacks; install with: {ONNX_EXTRA}")

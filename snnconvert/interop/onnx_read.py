@@ -172,6 +172,9 @@ class _Chain:
             raise UsageError(f"{label}: it follows the final Softmax/LogSoftmax; a Softmax is only accepted as "
                              f"the last node")
         dyn = [x for x in node.input if x and x not in self.consts]
+        if op == "Identity" and not dyn and node.input:
+            self.consts[node.output[0]] = self.consts[node.input[0]]   # an alias of a weight
+            return
         if op == "Add" and len(dyn) == 2:
             raise UsageError(f"{label}: it adds two computed tensors (a residual or branch connection); an "
                              f"imported model is a single chain of layers")
