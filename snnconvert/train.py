@@ -4,6 +4,7 @@ One call, `train(recipe, dataset, out_dir)`, writes to out_dir:
     model.pt       checkpoint (torch.load(weights_only=True) safe: tensors and plain containers)
     recipe.toml    the resolved recipe
     metrics.json   frame_accuracy, per_class_accuracy, confusion, epochs, train_seconds, ...
+    model.onnx     the float model (before conversion-aware fine-tuning) as ONNX, when onnx is installed
     history.csv    one row per epoch (phase float/aware)
     curves.png     loss and accuracy per epoch;  confusion.png  test confusion matrix
 
@@ -73,7 +74,7 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
                 torch.manual_seed(init_seed)
                 model, hist = _fit(model, dataset, cfg, cfg["epochs"], cfg["lr"], data_seed, quiet, "float")
                 history += hist
-        aware_info, act_max = None, None
+        aware_info, act_max, float_model = None, None, model
         if cfg["aware"]:
             float_acc = evaluate(model, *dataset.test)["accuracy"]
             conv = recipe.get("convert", {})
@@ -132,6 +133,7 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
     recipe_mod.save(recipe, out_dir)
     files.atomic_write_json(out_dir / "metrics.json", metrics)
     _write_history(history, out_dir / "history.csv")
+    _write_float_onnx(float_model, input_shape, out_dir / "model.onnx", quiet)
     plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training" + (
         f" (conversion-aware fine-tuning for k={aware_info['weight_bits']} p={aware_info['payload_bits']})"
         if aware_info else ""))
@@ -520,6 +522,17 @@ def _check_dataset(ds) -> None:
         x, y = getattr(ds, split)
         if len(x) != len(y):
             raise UsageError(f"dataset split '{split}' has {len(x)} frames but {len(y)} labels")
+
+
+def _write_float_onnx(model, input_shape, path: Path, quiet: bool) -> None:
+    """model.onnx of the float model (before any conversion-aware fine-tuning), when onnx is installed."""
+    from snnconvert.interop import ONNX_EXTRA, missing_packages
+    if "onnx" in missing_packages():
+        if not quiet:
+            console.say(f"model.onnx not written: onnx is not installed ({ONNX_EXTRA})")
+        return
+    from snnconvert.interop.onnx_write import write_onnx
+    write_onnx(model, input_shape, path)
 
 
 def _n_outputs(model) -> int:

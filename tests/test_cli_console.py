@@ -150,6 +150,7 @@ def test_run_summary_in_words(capsys):
 QUIET_CASES = [
     (["events", "missing"], "missing: unknown event file type ''; use one of .npz, .csv, .bin"),
     (["train", "missing"], "recipe file not found: missing"),
+    (["import", "missing.onnx", "--recipe", "missing"], "recipe file not found: missing"),
     (["convert", "missing"], "missing/model.pt: file not found (TRAIN_DIR must be a folder written by "
                              "`snnconvert train`)"),
     (["simulate", "missing"], "missing/network.json: file not found (NET_DIR must be a folder written by "

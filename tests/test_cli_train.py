@@ -28,15 +28,25 @@ def test_train_command_writes_outputs_and_summary(small_data, tmp_path, capsys):
     code = cli.main(["train", DEFAULT, *FAST, "--set", "seed=2", "--out", str(out), "--quiet"])
     captured = capsys.readouterr()
     assert code == 0, captured.err
-    for name in ("model.pt", "recipe.toml", "metrics.json", "history.csv", "curves.png", "confusion.png"):
+    for name in ("model.pt", "recipe.toml", "metrics.json", "history.csv", "curves.png", "confusion.png", "model.onnx"):
         assert (out / name).is_file(), name
     m = json.loads((out / "metrics.json").read_text())
     assert {"frame_accuracy", "per_class_accuracy", "epochs", "train_seconds"} <= set(m)
     lines = captured.out.splitlines()
     assert lines[0].startswith(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/100 test frames); "
                                f"1 epoch in ")
-    assert lines[1] == f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png"
+    assert lines[1] == (f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png, "
+                        f"model.onnx")
     assert "seed = 2" in (out / "recipe.toml").read_text()
+    # model.onnx, read back by onnxruntime (the reference runtime), gives the checkpoint's scores
+    ort = pytest.importorskip("onnxruntime")
+    from snnconvert.train import load_checkpoint
+    model, _ = load_checkpoint(out)
+    x = small_data.test[0][:20]
+    got = ort.InferenceSession(str(out / "model.onnx"), providers=["CPUExecutionProvider"]).run(
+        ["scores"], {"frames": x.numpy()})[0]
+    with torch.no_grad():
+        assert abs(got - model(x).numpy()).max() <= 1e-4
 
 
 @pytest.mark.parametrize("argv,message", [

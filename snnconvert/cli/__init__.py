@@ -26,7 +26,7 @@ from snnconvert.errors import UsageError
 FULL_ONLY = ("torch", "scipy", "sklearn", "matplotlib", "joblib", "threadpoolctl")
 
 # Order is the order of the job; `run` chains them all.
-COMMANDS = ["events", "train", "convert", "simulate", "sweep", "export", "verify", "cmodel", "compare", "report", "run"]
+COMMANDS = ["events", "train", "import", "convert", "simulate", "sweep", "export", "verify", "cmodel", "compare", "report", "run"]
 
 
 class _Parser(argparse.ArgumentParser):

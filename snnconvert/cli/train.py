@@ -38,5 +38,6 @@ def run(args) -> int:
     console.echo(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
                  f"{aware}; {console.plural(m['epochs'], 'epoch')} in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
                  f"{m['macs']:,} MACs per sample")
-    console.echo(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png")
+    console.echo(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png"
+                 + (", model.onnx" if (out / "model.onnx").is_file() else ""))
     return 0
