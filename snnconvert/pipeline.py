@@ -30,8 +30,8 @@ STAGE_LOG_VERSION = 1
 _READS = {
     "data": (["data", "frames"], []),
     "train": (["model", "train"], ["data"]),       # + [convert], when training is conversion-aware
-    "convert": (["convert"], ["train"]),
-    "sweep": (["sweep", "convert"], ["train"]),
+    "convert": (["convert", "hardware", "budget"], ["train"]),
+    "sweep": (["sweep", "convert", "hardware", "budget"], ["train"]),
     "export": (["export"], ["convert"]),
     "verify": ([], ["export"]),
     "report": ([], ["data", "train", "convert", "sweep", "export", "verify"]),
@@ -203,7 +203,8 @@ def _train_stage(run_: Run) -> None:
 
 def _convert_stage(run_: Run) -> None:
     from snnconvert.convert import convert_checkpoint, write_outputs
-    net, metrics = convert_checkpoint(run_.out / "train", run_.settings["convert"], dataset=run_.dataset())
+    net, metrics = convert_checkpoint(run_.out / "train", run_.settings["convert"], dataset=run_.dataset(),
+                                      hardware=run_.settings["hardware"], budget=run_.settings["budget"])
     write_outputs(net, metrics, run_.recipe, run_.out / "net")
 
 

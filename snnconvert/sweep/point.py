@@ -38,7 +38,8 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
     else:
         model = copy.deepcopy(model)
     net, metrics = converter.convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max,
-                                                 quiet=True)
+                                                 quiet=True, hardware=recipe.get("hardware"),
+                                                 budget=recipe.get("budget"))
     metrics = dict(metrics)
     metrics["network_fingerprint"] = net_fingerprint(net)
     return metrics

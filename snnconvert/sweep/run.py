@@ -73,7 +73,7 @@ def fingerprints(model, dataset, recipe: dict) -> dict:
     settings = {k: v for k, v in recipe["convert"].items() if k not in swept}
     return {"model": files.fingerprint({k: v for k, v in model.state_dict().items()}),
             "data": str(dataset.fingerprint),
-            "settings": files.fingerprint(settings, recipe.get("seed"))}
+            "settings": files.fingerprint(settings, recipe.get("seed"), recipe.get("hardware"), recipe.get("budget"))}
 
 
 def run_points(points: list[dict], task: Callable, log: ResultsLog, executor: Executor,
