@@ -313,9 +313,10 @@ BUDGET_FIGURES = {
 def active_limits(budget: dict) -> dict:
     """The limits a [budget] section sets: 0 means no limit (100 pp for max_loss_pp, 0 for min_accuracy)."""
     out = {}
-    for k, v in budget.items():
-        if k not in BUDGET_FIGURES:
+    for k in BUDGET_FIGURES:
+        if k not in budget:
             continue
+        v = budget[k]
         if (k == "max_loss_pp" and v >= 100.0) or (k != "max_loss_pp" and not v):
             continue
         out[k] = v
