@@ -145,7 +145,7 @@ def run_sweep(source, settings: SweepSettings, out_dir=None, *, executor: Execut
     records, computed = run_points(points, task, log, executor, progress)
     t2 = time.perf_counter()
     frame = reference_accuracy(records, model, dataset)
-    rec = recommend(records, frame, settings.tolerance_pp)
+    rec = recommend(records, frame, settings.tolerance_pp, recipe.get("budget"))
     rec["checkpoint"] = checkpoint_info(ckpt.get("aware"), settings.aware, settings.aware_epochs)
     result = SweepResult(out, records, frame, settings.tolerance_pp, rec, computed, len(points) - computed,
                          log.fingerprints)
