@@ -391,3 +391,49 @@ def binding_limit(rows_checks: list[dict]) -> dict | None:
     return {**b, "message": f"{b['limit']} binds: the best point reaches {_fmt(b['value'], b['unit'])} against a "
                             f"budget of {_fmt(b['budget'], b['unit'])} (off by {_fmt(b['over_by'], b['unit'])})",
             "missed": [{k: m[k] for k in ("limit", "value", "budget", "over_by")} for m in missed]}
+
+
+def layers_figure(est: dict, title: str = ""):
+    """Per-layer bars of the estimate: cycles per sample (event, scan, ttfs steps; mean over the test
+    split) and memory (FIFO, weights, potentials, constants in kbit, block RAMs written above)."""
+    from snnconvert import plots
+    plt = plots.pyplot()
+    names = [x["name"] for x in est["layers"]]
+    pos = np.arange(len(names))
+    fig, (a, b) = plt.subplots(1, 2, figsize=(11, 4))
+    bottom = np.zeros(len(names))
+    for key, label in (("event_cycles_mean", "input events: ceil(fan-out / lanes) each"),
+                       ("scan_cycles", "scan at window close: ceil(neurons / scan lanes)"),
+                       ("ttfs_cycles", "ttfs window steps")):
+        v = np.array([float(x[key]) for x in est["layers"]])
+        if v.any():
+            a.bar(pos, v, bottom=bottom, label=label)
+            bottom += v
+    for p_, x in zip(pos, est["layers"]):
+        a.text(p_, bottom[p_], f"{x['cycles_mean']:,.0f}\n(worst {x['cycles_worst']:,})", ha="center",
+               va="bottom", fontsize=7)
+    a.set_ylim(0, max(bottom.max(initial=0), 1) * 1.25)
+    a.set_xticks(pos, names)
+    a.set_ylabel("cycles per sample (mean)")
+    t = est["total"]
+    a.set_title(f"cycles: {t['cycles_mean']:,.0f} mean = {t['latency_us_mean']:.2f} µs at "
+                f"{est['hardware']['clock_mhz']:g} MHz", fontsize=9)
+    a.legend(fontsize=7, loc="upper right")
+    bottom = np.zeros(len(names))
+    for key, label in (("fifo", "input FIFO"), ("weights", "weights"), ("potentials", "potentials"),
+                       ("bias", "bias"), ("multipliers", "M0 + shift")):
+        v = np.array([x["memory_bits"][key] / 1000 for x in est["layers"]])
+        b.bar(pos, v, bottom=bottom, label=label)
+        bottom += v
+    for p_, x in zip(pos, est["layers"]):
+        b.text(p_, bottom[p_], f"{x['block_rams']['total']} blocks", ha="center", va="bottom", fontsize=7)
+    b.set_ylim(0, max(bottom.max(initial=0), 1e-3) * 1.2)
+    b.set_xticks(pos, names)
+    b.set_ylabel("memory (kbit)")
+    b.set_title(f"memory: {t['memory_bits']['total'] / 1000:,.1f} kbit, {t['block_rams']} block RAMs of "
+                f"{est['hardware']['block_kbits']} Kbit", fontsize=9)
+    b.legend(fontsize=7, loc="upper right")
+    fig.suptitle(title or "Hardware cost per layer: an estimate from a stated datapath model, not a synthesis result",
+                 fontsize=10)
+    fig.tight_layout()
+    return fig
