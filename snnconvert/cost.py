@@ -124,7 +124,7 @@ def estimate(net, events: list[np.ndarray], fanout: list[np.ndarray], hw: dict |
     simulator's fan-out tables). hw: the [hardware] section (defaults from settings.hardware).
     """
     from snnconvert.settings.hardware import HardwareSettings
-    s = HardwareSettings.from_section(hw if isinstance(hw, dict) else (hw.as_dict() if hw is not None else None))
+    s = hw if isinstance(hw, HardwareSettings) else HardwareSettings.from_section(hw)
     configs = block_configs(s.block_kbits)
     idx = stage_indices(net)
     lanes = _per_layer(s.lanes, len(idx), "lanes")

@@ -38,8 +38,7 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
     else:
         model = copy.deepcopy(model)
     net, metrics = converter.convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max,
-                                                 quiet=True, hardware=recipe.get("hardware"),
-                                                 budget=recipe.get("budget"))
+                                                 quiet=True, hardware=recipe.get("hardware"))
     metrics = dict(metrics)
     metrics["network_fingerprint"] = net_fingerprint(net)
     return metrics
