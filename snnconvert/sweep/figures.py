@@ -245,7 +245,7 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
     handles, labels_ = axes[0].get_legend_handles_labels()
     fig.legend(handles, labels_, loc="lower center", ncol=min(len(labels_), 4), fontsize=8,
                bbox_to_anchor=(0.5, -0.1), frameon=False)
-    title = ("Accuracy against hardware cost (counts, not measured energy); labels: "
+    title = ("Accuracy against hardware cost (counts and cost-model estimates, not measurements); labels: "
              + ("coding initial + " if multi else "") + "weight bits/payload bits")
     if note:
         title += "\n" + _wrap(note, 130)
