@@ -190,3 +190,27 @@ def test_binding_limit_where_nothing_fits():
     # block_rams: best 5 vs 4 (25 % over); latency: best 18 fits -> block RAMs bind, off by one
     assert b["limit"] == "block_rams" and b["over_by"] == 1
     assert b["message"] == "block_rams binds: the best point reaches 5 against a budget of 4 (off by 1)"
+
+
+# ------------------------------------------------------------------ the sweep's two rules
+
+def _record(k, acc, blocks, lat, nj, mem):
+    params = {"coding": "payload", "weight_bits": k, "payload_bits": 2, "per_channel": False, "aware": False,
+              "aware_epochs": 0}
+    metrics = {"frame_accuracy": 0.92, "spike_accuracy": acc, "weight_memory_bits": mem, "sops_per_sample": 1e4,
+               "hardware_summary": {"block_rams": blocks, "latency_us": lat, "energy_nj": nj, "memory_bits": mem,
+                                    "samples_per_s": 1e5}}
+    return {"params": params, "metrics": metrics}
+
+
+def test_sweep_offers_both_rules_and_names_the_binding_limit():
+    from snnconvert.sweep.front import recommend
+    recs = [_record(3, 0.918, 5, 25.0, 30.0, 10000), _record(4, 0.925, 6, 26.0, 40.0, 14000),
+            _record(6, 0.930, 8, 27.0, 55.0, 21000)]
+    r = recommend(recs, 0.92, 0.5, {"block_rams": 6, "energy_nj": 50.0})
+    assert r["point"]["weight_bits"] == 3                    # cheapest within 0.5 pp: today's rule
+    wb = r["within_budget"]
+    assert wb["point"]["weight_bits"] == 4 and wb["fitting"] == 2   # most accurate within 6 blocks and 50 nJ
+    none = recommend(recs, 0.92, 0.5, {"block_rams": 4, "latency_us": 30.0})["within_budget"]
+    assert none["point"] is None and none["binding"]["limit"] == "block_rams" and none["binding"]["over_by"] == 1
+    assert none["message"].startswith("no point fits the budget: block_rams binds")
