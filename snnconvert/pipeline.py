@@ -31,8 +31,8 @@ STAGE_LOG_VERSION = 1
 _READS = {
     "data": (["data", "frames"], []),
     "train": (["model", "train"], ["data"]),       # + [convert], when training is conversion-aware
-    "convert": (["convert"], ["train"]),
-    "sweep": (["sweep", "convert"], ["train"]),
+    "convert": (["convert", "hardware", "budget"], ["train"]),
+    "sweep": (["sweep", "convert", "hardware", "budget"], ["train"]),
     "export": (["export"], ["convert"]),
     "verify": ([], ["export"]),
     "report": ([], ["data", "train", "convert", "sweep", "export", "verify"]),
@@ -270,7 +270,8 @@ def _train_stage(run_: Run) -> None:
 
 def _convert_stage(run_: Run) -> None:
     from snnconvert.convert import convert_checkpoint, write_outputs
-    net, metrics = convert_checkpoint(run_.out / "train", run_.settings["convert"], dataset=run_.dataset())
+    net, metrics = convert_checkpoint(run_.out / "train", run_.settings["convert"], dataset=run_.dataset(),
+                                      hardware=run_.settings["hardware"], budget=run_.settings["budget"])
     write_outputs(net, metrics, run_.recipe, run_.out / "net")
 
 
@@ -315,7 +316,7 @@ def _summary(run_: Run) -> dict:
     keys = ["frame_accuracy", "frame_model", "aware_bits", "float_accuracy", "loss_vs_float_pp",
             "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "within_tolerance", "agreement",
             "weight_bits", "payload_bits", "coding", "spikes_per_sample", "sops_per_sample",
-            "macs_per_sample", "max_spikes_per_neuron", "weight_memory_bits"]
+            "macs_per_sample", "max_spikes_per_neuron", "weight_memory_bits", "hardware_summary", "budget"]
     s = {k: m.get(k) for k in keys}
     s.update({
         "name": run_.recipe["name"],
@@ -353,6 +354,15 @@ def _print_summary(s: dict) -> None:
                  ("loss vs float model (pp)", s.get("loss_vs_float_pp"))]
     rows += [(k, s[k]) for k in ("agreement", "weight_bits", "payload_bits", "coding", "spikes_per_sample",
                                  "sops_per_sample", "macs_per_sample", "verify_passed", "recommended")]
+    hw = s.get("hardware_summary")
+    if hw:
+        rows.append(("hardware (estimate)", f"{hw['block_rams']} block RAMs, {hw['latency_us']:.2f} us worst latency, "
+                                            f"{hw['energy_nj']:.2f} nJ per sample"))
+    if s.get("budget"):
+        rows.append(("budget", s["budget"]["message"]))
+    wb = (s.get("recommended") or {}).get("within_budget") if isinstance(s.get("recommended"), dict) else None
+    if wb and wb.get("message"):
+        rows.append(("within budget", wb["message"]))
     w = max(len(k) for k, _ in rows)
     console.echo(f"summary of run '{s['name']}'")
     for k, v in rows:

@@ -27,6 +27,7 @@ SECTIONS = [
     ("confusion", "Confusion matrices"),
     ("accumulators", "Accumulator widths"),
     ("energy", "Energy estimate"),
+    ("hardware", "Hardware estimate and budget"),
     ("export", "Export and verification"),
 ]
 
@@ -452,6 +453,11 @@ def _sweep(run: Path) -> str:
         out.append(f'<p class="note">Rule: {_e(rec.get("rule", ""))}. '
                    f'{_e(_fmt(rec.get("within_tolerance")))} of {_e(_fmt(rec.get("points")))} points are within '
                    "tolerance.</p>")
+        wb = rec.get("within_budget")
+        if isinstance(wb, dict) and wb.get("message"):
+            out.append(f'<p class="{"ok" if wb.get("point") else "bad"}">{_e(wb["message"])}</p>'
+                       f'<p class="note">Second rule: {_e(wb.get("rule", ""))}; {_e(_fmt(wb.get("fitting")))} of '
+                       f'{_e(_fmt(rec.get("points")))} points fit the budget.</p>')
     else:
         out.append(_missing("No recommendation (sweep/recommendation.json): the sweep did not finish."))
     out.append(_figure(d / "heatmap.png", "loss against the frame model over weight bits x payload bits; outlined: "
@@ -567,6 +573,37 @@ def _energy(run: Path) -> str:
     return "\n".join(out)
 
 
+def _hardware(run: Path) -> str:
+    m = _net_metrics(run)
+    est = m.get("hardware_estimate") if m else None
+    if not isinstance(est, dict) or not isinstance(est.get("layers"), list):
+        return _missing("No hardware estimate in the conversion metrics (net/metrics.json).")
+    from snnconvert import cost
+    t, e, hw = est["total"], est["energy"], est["hardware"]
+    out = ["<p><strong>Estimate from a stated datapath model, not a synthesis result.</strong> "
+           f"{_e(_fmt(hw.get('clock_mhz')))} MHz, "
+           f"{'pipelined' if hw.get('pipelined') else 'one sample at a time'}, "
+           f"{_e(_fmt(hw.get('block_kbits')))} Kbit block RAMs; see the README, 'Hardware cost model'.</p>"]
+    b = m.get("budget")
+    if isinstance(b, dict) and b.get("message"):
+        out.append(f'<p class="{"ok" if b.get("fits") else "bad"}">Budget: {_e(b["message"])}</p>')
+    rows = [[x["name"], x["lanes"], f"{x['input_events_mean']:.1f}", f"{x['cycles_mean']:,.1f}", x["cycles_worst"],
+             f"{x['memory_bits']['total']:,}", x["block_rams"]["total"],
+             f"{x['bus']['address_bits']} + {x['bus']['payload_bits']}"] for x in est["layers"]]
+    rows.append(["total", "", "", f"{t['cycles_mean']:,.1f}", t["cycles_worst"], f"{t['memory_bits']['total']:,}",
+                 t["block_rams"], ""])
+    out.append(_table(["layer", "lanes", "input events (mean)", "cycles (mean)", "cycles (worst)", "memory bits",
+                       "block RAMs", "address + payload bits"], rows))
+    sps = "n/a" if t.get("samples_per_s") is None else f"{t['samples_per_s']:,.0f}"
+    out.append(f"<p>Latency {t['latency_us_mean']:.2f} µs mean, {t['latency_us_worst']:.2f} µs worst on the test "
+               f"split; {sps} samples/s. Energy per sample: {e['spike']['total_pj'] / 1e3:,.2f} nJ spike datapath, "
+               f"{e['dense_int']['total_pj'] / 1e3:,.2f} nJ dense integer datapath (same widths), "
+               f"{e['float']['total_pj'] / 1e3:,.2f} nJ float (arithmetic and memory accesses; estimates).</p>")
+    out.append(f'<img alt="cycles and memory per layer" src="{plots.png_data_uri(cost.layers_figure(est))}">')
+    out.append("<ul>" + "".join(f"<li>{_e(a)}</li>" for a in est.get("assumptions", [])) + "</ul>")
+    return "\n".join(out)
+
+
 _KINDS = [  # (kind, test on the path relative to the export folder), first match wins
     ("manifest: what every file holds", lambda r: r == "manifest.json"),
     ("recipe", lambda r: r.endswith(".toml")),
@@ -652,4 +689,4 @@ def _export(run: Path) -> str:
 
 _BUILDERS = {"overview": _overview, "recipe": _recipe, "data": _data, "training": _training,
              "accuracy": _accuracy, "sweep": _sweep, "spikes": _spikes, "confusion": _confusion,
-             "accumulators": _accumulators, "energy": _energy, "export": _export}
+             "accumulators": _accumulators, "energy": _energy, "hardware": _hardware, "export": _export}

@@ -378,3 +378,16 @@ def test_cli_export_usage_errors(tmp_path, capsys, args, message):
     code = main([a.format(t=tmp_path) for a in args])
     assert code == 2        # usage errors exit 2, as argparse does (common practice; README "exits 0 ... 2")
     assert capsys.readouterr().err == message.format(t=tmp_path) + "\n"
+
+
+def test_manifest_carries_the_hardware_estimate_of_the_network_folder(tmp_path):
+    """export_from_run copies net/metrics.json's cost-model estimate; a malformed one is refused."""
+    from snnconvert.errors import FormatError
+    from snnconvert.export.fromrun import _hardware_estimate
+    assert _hardware_estimate(tmp_path) is None                                    # no metrics.json
+    est = {"is_estimate": True, "layers": [], "total": {"block_rams": 5}}
+    (tmp_path / "metrics.json").write_text(json.dumps({"hardware_estimate": est}))
+    assert _hardware_estimate(tmp_path) == est
+    (tmp_path / "metrics.json").write_text(json.dumps({"hardware_estimate": [1, 2]}))
+    with pytest.raises(FormatError, match="'hardware_estimate' field"):
+        _hardware_estimate(tmp_path)

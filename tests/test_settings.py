@@ -36,8 +36,8 @@ print(sorted(settings))
 """
     res = subprocess.run([sys.executable, "-c", body], capture_output=True, text=True, cwd=ROOT)
     assert res.returncode == 0, res.stderr
-    assert res.stdout.split() == ["['convert',", "'data',", "'export',", "'frames',", "'model',", "'sweep',",
-                                  "'train']"]
+    assert res.stdout.split() == ["['budget',", "'convert',", "'data',", "'export',", "'frames',", "'hardware',",
+                                  "'model',", "'sweep',", "'train']"]
 
 
 @pytest.mark.parametrize("section", SECTIONS)
@@ -123,9 +123,10 @@ def test_a_run_builds_each_setting_once_and_loads_the_data_once(tmp_path, monkey
         given["recipe"] = real_settings(*a, **kw)
         return given["recipe"]
 
-    def convert_checkpoint(train_dir, settings, quiet=False, dataset=None):
+    def convert_checkpoint(train_dir, settings, quiet=False, dataset=None, hardware=None, budget=None):
         given["convert"], given["convert_data"] = settings, dataset
-        return real_checkpoint(train_dir, settings, quiet, dataset)
+        given["hardware"], given["budget"] = hardware, budget
+        return real_checkpoint(train_dir, settings, quiet, dataset, hardware, budget)
 
     def export_from_run(net_dir, out_dir, recipe=None, **kw):
         given["export"], given["export_data"] = kw["settings"], kw["dataset"]
@@ -142,6 +143,7 @@ def test_a_run_builds_each_setting_once_and_loads_the_data_once(tmp_path, monkey
                   "sweep.enabled=false", "export.vectors=2"])
     _, settings = given["recipe"]
     assert given["convert"] is settings["convert"] and given["export"] is settings["export"]
+    assert given["hardware"] is settings["hardware"] and given["budget"] is settings["budget"]
     assert sorted(built) == sorted(SECTIONS)          # each section of the run's recipe checked once, at load
     assert len(loads) == 1                            # the data set is loaded once per run
     assert given["convert_data"] is given["export_data"]

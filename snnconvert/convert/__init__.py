@@ -66,12 +66,13 @@ def convert_model(model, calib_x, settings: ConvertSettings | None = None, *, in
 
 
 def convert_and_measure(model, dataset, settings: ConvertSettings | dict, act_max=None, quiet: bool = False,
-                        float_accuracy: float | None = None):
+                        float_accuracy: float | None = None, hardware=None, budget=None):
     """Convert with the [convert] `settings`, calibrate on the training split, measure on the test split.
 
     `settings`: a `ConvertSettings`, or a [convert] section (dict) that is checked by building one.
     Deterministic: the calibration subset is evenly spaced, and nothing draws random numbers.
     `float_accuracy`: the test accuracy of the float model an aware `model` was fine-tuned from.
+    `hardware`, `budget`: the [hardware] and [budget] sections for the cost estimate and the fit.
     Returns (net, metrics dict).
     """
     from snnconvert.sim.metrics import measure
@@ -82,15 +83,17 @@ def convert_and_measure(model, dataset, settings: ConvertSettings | dict, act_ma
     net.meta.update(data_fingerprint=getattr(dataset, "fingerprint", None), classes=list(getattr(dataset, "classes", [])),
                     convert=s.as_dict())
     Xte, yte = dataset.test
-    metrics = measure(model, net, Xte, yte, tolerance_pp=s.tolerance_pp, quiet=quiet, float_accuracy=float_accuracy)
+    metrics = measure(model, net, Xte, yte, tolerance_pp=s.tolerance_pp, quiet=quiet, float_accuracy=float_accuracy,
+                      hardware=hardware, budget=budget)
     return net, metrics
 
 
 def convert_checkpoint(train_dir, settings: ConvertSettings | dict, quiet: bool = False, dataset=None,
-                       loaded=None):
+                       loaded=None, hardware=None, budget=None):
     """Load `train_dir/model.pt`, then `convert_and_measure` on `dataset` (default: the data set of the
     checkpoint's recipe, loaded here). `loaded`: the (model, ckpt) pair `train.load_checkpoint` already
-    returned for that file, so a caller that read it first does not read it again. Returns (net, metrics)."""
+    returned for that file, so a caller that read it first does not read it again. `hardware`, `budget`:
+    default the checkpoint recipe's sections. Returns (net, metrics)."""
     path = Path(train_dir) / "model.pt"
     if loaded is None:
         from snnconvert.train import load_checkpoint
@@ -103,7 +106,9 @@ def convert_checkpoint(train_dir, settings: ConvertSettings | dict, quiet: bool 
     check_checkpoint_fits(model, ckpt, dataset, path)
     # an aware checkpoint keeps the test accuracy of the float model it was fine-tuned from
     net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet,
-                                       float_accuracy=(ckpt.get("metrics") or {}).get("float_frame_accuracy"))
+                                       float_accuracy=(ckpt.get("metrics") or {}).get("float_frame_accuracy"),
+                                       hardware=hardware if hardware is not None else ckpt["recipe"].get("hardware"),
+                                       budget=budget if budget is not None else ckpt["recipe"].get("budget"))
     net.meta.update(recipe={k: v for k, v in ckpt["recipe"].items() if k != "_embedded"},
                     train_fingerprint=ckpt.get("data_fingerprint"))
     return net, metrics

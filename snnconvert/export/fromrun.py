@@ -71,4 +71,20 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     else:
         x, y = test_inputs(net, recipe, progress, dataset)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
-                          progress=progress, **opts)
+                          progress=progress, hardware_estimate=_hardware_estimate(net_dir), **opts)
+
+
+def _hardware_estimate(net_dir: Path) -> dict | None:
+    """The cost model's estimate stored in net_dir/metrics.json, or None (no file, or no estimate in it)."""
+    from snnconvert.errors import FormatError
+    from snnconvert.files import load_json
+    path = net_dir / "metrics.json"
+    if not path.is_file():
+        return None
+    m = load_json(path)
+    est = m.get("hardware_estimate") if isinstance(m, dict) else None
+    if est is not None and not (isinstance(est, dict) and est.get("is_estimate") is True
+                                and isinstance(est.get("layers"), list) and isinstance(est.get("total"), dict)):
+        raise FormatError(f"The 'hardware_estimate' field of {path} must be a cost model estimate "
+                          f"(is_estimate, layers, total). Got {type(est).__name__} instead.")
+    return est

@@ -48,6 +48,10 @@ MANIFEST_FIELDS = {
                "directed column; 0 = test sample), peak_events per stream, NPZ file and its keys, columns of the "
                "NPZ event tables, CSV folder; each layer's golden file names are in its golden field",
     "files": "sha256 of every other file in the folder, keyed by path relative to the folder",
+    "hardware_estimate": "the datapath cost model's ESTIMATE (not a synthesis result) measured on the test split at "
+                         "conversion: per layer and total memory bits, block RAMs, bus widths, cycles, latency, "
+                         "samples/s and energy, with the [hardware] settings and the model's assumptions (null when "
+                         "the network folder holds no metrics.json)",
 }
 
 LAYER_FIELDS = {
@@ -198,7 +202,7 @@ def _rule(L: IntLayer, coding: str) -> str:
 
 
 def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors: dict,
-                   tables_npz: str, created: str) -> dict:
+                   tables_npz: str, created: str, hardware_estimate: dict | None = None) -> dict:
     """The manifest dict. `tables`: {layer index: {kind: spec with file names}}; `files`: path -> sha256."""
     ttfs = net.coding == "ttfs"
     layers = []
@@ -256,6 +260,7 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
         "event_order": ("by time step, then by address" if ttfs else "by address, all at window end (t = 0)"),
         "event_columns": ["addr", "t", "payload"],
         "layers": layers, "tables_npz": tables_npz, "vectors": vectors, "files": files,
+        "hardware_estimate": hardware_estimate,
     }
 
 

@@ -66,7 +66,7 @@ def _check_inputs(net, x_int, labels, vectors):
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
                    recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
                    progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False,
-                   directed: bool = True) -> Path:
+                   directed: bool = True, hardware_estimate: dict | None = None) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
@@ -76,6 +76,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     packing floor(pack_bits / bits) table words into one memory word (fpga.LANE_ORDER).
     verilog: also the behavioural Verilog model and its self-checking testbench (export.verilog).
     directed: with vectors > 0, also the directed vectors of export/directed.py after the test samples.
+    hardware_estimate: the cost model's estimate of the network (metrics.json), copied to the manifest.
     An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
     a non-empty folder that holds no export is refused.
     """
@@ -141,7 +142,8 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
         files["recipe.toml"] = recipe_mod.dumps(recipe).encode()
 
     man = M.build_manifest(net, specs, {k: sha256_bytes(v) for k, v in sorted(files.items())}, vec_info, TABLES_NPZ,
-                           created=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"))
+                           created=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+                           hardware_estimate=hardware_estimate)
     # Every path is checked before anything changes: a refusal leaves the folder as it was.
     targets = {rel: resolve_inside(out, rel, "file") for rel in files}
     stale = [old_files[rel] for rel in sorted(set(old_files) - set(files))]

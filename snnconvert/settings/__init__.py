@@ -1,7 +1,7 @@
 """Recipe settings: one module per recipe section, none of them importing torch.
 
 The pattern, the same in every section module (`data`, `frames`, `model`, `train`, `convert`,
-`sweep`, `export`):
+`hardware`, `budget`, `sweep`, `export`):
 
     KEYS: dict[str, schema.Key]      every key of the section: default, type, range, the reason
                                      for the default, and the torch-free validator it needs
@@ -26,7 +26,7 @@ from snnconvert.errors import UsageError, unknown_key_message
 from snnconvert.schema import Key
 
 # Section -> its settings module. Order is the order of the job (and of the TOML file).
-SECTIONS = ("data", "frames", "model", "train", "convert", "sweep", "export")
+SECTIONS = ("data", "frames", "model", "train", "convert", "hardware", "budget", "sweep", "export")
 
 
 @dataclasses.dataclass(frozen=True)

@@ -112,7 +112,7 @@ def latency(net: IntNetwork, res) -> dict:
 
 
 def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 0.5, quiet: bool = False,
-            float_accuracy: float | None = None) -> dict:
+            float_accuracy: float | None = None, hardware=None, budget=None) -> dict:
     """All metrics of one conversion on a labelled test set (X float frames (N, C, H, W), y (N,)).
 
     `float_model` is the frame model that was converted; it may be None (frame metrics are then
@@ -120,6 +120,8 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     (`frame_model` says which; `aware_bits` gives the widths it was fine-tuned for). For an aware
     model, `float_accuracy` is the accuracy of the float model before fine-tuning (None if the
     caller does not know it); for a float model it is frame_accuracy. Prints the table unless quiet.
+    `hardware` ([hardware] section or settings, default its defaults) drives the datapath cost
+    estimate (`hardware_estimate`, `snnconvert.cost`); `budget` ([budget]) is checked against it.
     """
     X = np.asarray(X_test, dtype=np.float32)
     y = np.asarray(y_test, dtype=np.int64)
@@ -180,10 +182,15 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     out["latency"] = latency(net, res)
     out["energy"] = energy(net, out["sops_per_sample"], out["macs_per_sample"])
     out["energy_is_estimate"] = True
+    from snnconvert import cost
+    events = [res.input_payloads.reshape(len(X), -1) > 0] + [p.reshape(len(X), -1) > 0 for p in res.payloads]
+    out["hardware_estimate"] = cost.estimate(net, events, fan, hardware)
+    out["hardware_summary"] = cost.summary(out["hardware_estimate"])
     from sklearn.metrics import confusion_matrix
     out["confusion"] = confusion_matrix(y, spike_pred, labels=list(range(net.n_classes))).tolist()
     out["coding"], out["weight_bits"], out["payload_bits"] = net.coding, net.weight_bits, net.payload_bits
     out["per_channel"] = bool(net.per_channel)
+    out["budget"] = cost.check_budget(out, budget)
     if not quiet:
         console.echo(format_table(out))
     return out
@@ -268,5 +275,11 @@ def format_table(m: dict) -> str:
                                       + ("" if dense is None else f"{dense / 1e3:.2f} nJ dense integer (same widths), ")
                                       + f"{e['frame_pj_per_sample'] / 1e3:.2f} nJ float frame model per sample "
                                         f"(Horowitz 2014)"))
+    if "budget" in m:
+        rows.append(("budget", m["budget"]["message"]))
     w = max(len(r[0]) for r in rows)
-    return "\n".join(f"{k:<{w}}  {v}" for k, v in rows)
+    text = "\n".join(f"{k:<{w}}  {v}" for k, v in rows)
+    if "hardware_estimate" in m:
+        from snnconvert.cost import format_table as hardware_table
+        text += "\n\n" + hardware_table(m["hardware_estimate"])
+    return text

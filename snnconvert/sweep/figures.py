@@ -172,7 +172,8 @@ def _point_label(r: dict, multi: bool) -> str:
 
 def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, recommendation: dict,
                   note: str = ""):
-    """Accuracy against weight memory and against SOPs per sample, zoomed to the band near the
+    """Accuracy against weight memory and against SOPs per sample (and, when the points carry the cost
+    model's estimates, against worst latency and energy per sample), zoomed to the band near the
     frame model: from frame - max(5 tol, 2 pp) (lower when even the best point is further down)
     to just above the best point. Points below are left out and counted in the panel titles.
     Each point is labelled weight bits/payload bits."""
@@ -186,10 +187,16 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
     rec = recommendation.get("point") or {}
     multi = len({r["coding"] for r in rows}) > 1
     markers = {"payload": "o", "ttfs": "s", "binary": "^"}
-    fig, axes = plt.subplots(1, 2, figsize=(12, 5), sharey=True)
+    panels = [("weight_memory_bits", "pareto_memory", "weight memory (bits)"),
+              ("sops_per_sample", "pareto_sops", "SOPs per sample")]
+    if all(r.get("pareto_latency") is not None for r in rows):   # the cost model's estimates
+        panels += [("hardware_summary.latency_us", "pareto_latency", "worst latency per sample (µs, estimate)"),
+                   ("hardware_summary.energy_nj", "pareto_energy", "energy per sample (nJ, estimate)")]
+    fig, grid = plt.subplots(len(panels) // 2, 2, figsize=(12, 5 * len(panels) // 2), sharey=True, squeeze=False)
+    axes = grid.ravel()
+    fitting = (recommendation.get("within_budget") or {}).get("point") or {}
     pending = []   # labels are placed once the layout is final
-    for ax, cost, flag, label in ((axes[0], "weight_memory_bits", "pareto_memory", "weight memory (bits)"),
-                                  (axes[1], "sops_per_sample", "pareto_sops", "SOPs per sample")):
+    for ax, (cost, flag, label) in zip(axes, panels):
         ax.axhspan(frame - tol, hi, color="tab:green", alpha=0.13, lw=0, label=f"within {tol:g} pp of the frame model")
         ax.axhline(frame - tol, color="tab:green", lw=1.2)
         ax.axhline(frame, color="k", ls="--", lw=1, label=f"frame model {frame:.2f} %")
@@ -204,6 +211,9 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
         if rec:
             ax.scatter([rec[cost]], [100 * rec["spike_accuracy"]], marker="*", s=260, color="gold",
                        edgecolors="k", zorder=5, label="recommended")
+        if fitting and (recommendation.get("within_budget") or {}).get("limits"):
+            ax.scatter([fitting[cost]], [100 * fitting["spike_accuracy"]], marker="D", s=90, facecolors="none",
+                       edgecolors="navy", lw=1.6, zorder=6, label="most accurate within budget")
         labels: dict = {}
         for r in rows:
             y = 100 * r["spike_accuracy"]
@@ -228,13 +238,14 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
         if n_below:
             ax.set_title(f"{n_below} of {len(rows)} points lie below {lo:.1f} % and are left out (the heatmap "
                          "shows every point)", fontsize=8, color="dimgrey")
-    axes[0].set_ylabel("spike accuracy (%)")
-    sec = axes[1].secondary_yaxis("right", functions=(lambda a: frame - a, lambda l: frame - l))
-    sec.set_ylabel("loss against the frame model (pp)")
+    for row in grid:
+        row[0].set_ylabel("spike accuracy (%)")
+        sec = row[1].secondary_yaxis("right", functions=(lambda a: frame - a, lambda l: frame - l))
+        sec.set_ylabel("loss against the frame model (pp)")
     handles, labels_ = axes[0].get_legend_handles_labels()
     fig.legend(handles, labels_, loc="lower center", ncol=min(len(labels_), 4), fontsize=8,
                bbox_to_anchor=(0.5, -0.1), frameon=False)
-    title = ("Accuracy against hardware cost (counts, not measured energy); labels: "
+    title = ("Accuracy against hardware cost (counts and cost-model estimates, not measurements); labels: "
              + ("coding initial + " if multi else "") + "weight bits/payload bits")
     if note:
         title += "\n" + _wrap(note, 130)

@@ -3,6 +3,9 @@
     loss_pp(point)   = 100 * (frame_accuracy - spike_accuracy(point))
     recommendation   = argmin over {points with loss_pp <= tolerance_pp} of
                        (weight_memory_bits, sops_per_sample)
+    within budget    = argmax over {points that meet every [budget] limit} of spike_accuracy,
+                       ties: fewest block RAMs, then least energy (estimates of the cost model);
+                       where none fits, the limit that binds and by how much (`cost.binding_limit`)
 """
 
 from __future__ import annotations
@@ -16,9 +19,12 @@ RECOMMENDATION_VERSION = 1
 # The main metrics of a point: kept in the recommendation, and the columns of sweep.csv after the params.
 METRIC_COLUMNS = ["frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
                   "spikes_per_sample", "sops_per_sample", "macs_per_sample", "weight_memory_bits"]
+# Cost-model estimates of a point (sweep.csv columns after the metrics; flattened from hardware_summary).
+COST_COLUMNS = ["hardware_summary.block_rams", "hardware_summary.memory_bits", "hardware_summary.latency_us",
+                "hardware_summary.samples_per_s", "hardware_summary.energy_nj"]
 
 # The converter's own tolerance verdict; the sweep judges with its own tolerance instead.
-_NOT_COPIED = {"tolerance_pp", "within_tolerance"}
+_NOT_COPIED = {"tolerance_pp", "within_tolerance", "budget"}
 
 
 def loss_pp(frame_accuracy: float, accuracy: float) -> float:
@@ -62,14 +68,58 @@ def _label(row: dict) -> str:
 
 
 def _summary_point(row: dict, frame_accuracy: float) -> dict:
-    keep = PARAM_COLUMNS + [k for k in METRIC_COLUMNS if k in row]
+    keep = PARAM_COLUMNS + [k for k in METRIC_COLUMNS + COST_COLUMNS if k in row]
     out = {k: row[k] for k in keep}
     out["loss_pp"] = loss_pp(frame_accuracy, row["spike_accuracy"])
     return out
 
 
-def recommend(records: list[dict], frame_accuracy: float, tolerance_pp: float) -> dict:
-    """The cheapest point within `tolerance_pp` of the frame accuracy.
+def row_budget(row: dict, frame_accuracy: float, budget: dict | None) -> dict:
+    """`cost.check_budget` of one sweep row, its loss taken against the sweep's frame accuracy."""
+    from snnconvert.cost import check_budget
+    m = {k: row.get(k) for k in ("weight_memory_bits", "sops_per_sample", "spike_accuracy")}
+    m["conversion_loss_pp"] = loss_pp(frame_accuracy, row["spike_accuracy"])
+    m["hardware_summary"] = {k.split(".", 1)[1]: row[k] for k in COST_COLUMNS if k in row}
+    return check_budget(m, budget)
+
+
+def within_budget(rows: list[dict], frame_accuracy: float, budget: dict | None) -> dict:
+    """The second rule: the most accurate point that meets every [budget] limit (ties: fewest block
+    RAMs, then least energy, then grid order). Where none fits, `binding` names the limit that binds."""
+    from snnconvert.cost import active_limits, binding_limit
+    budget = budget.as_dict() if hasattr(budget, "as_dict") else dict(budget or {})
+    checks = [row_budget(r, frame_accuracy, budget) for r in rows]
+    limits = active_limits(budget)
+    out = {"rule": "most accurate point within every [budget] limit (block RAMs, latency and energy are "
+                   "estimates), then fewest block RAMs, then least energy",
+           "limits": limits, "fitting": sum(c["fits"] for c in checks), "point": None, "label": None,
+           "binding": None}
+    fit = [r for r, c in zip(rows, checks) if c["fits"]]
+    if fit:
+        best = min(fit, key=lambda r: (-r["spike_accuracy"], r.get("hardware_summary.block_rams", 0),
+                                       r.get("hardware_summary.energy_nj", 0.0)))
+        out["point"], out["label"] = _summary_point(best, frame_accuracy), _label(best)
+        out["message"] = (f"within budget: {_label(best)}: spike accuracy {100 * best['spike_accuracy']:.2f} %"
+                          + _cost_words(best) + ("" if limits else " (no [budget] limit set)"))
+    elif rows:
+        out["binding"] = binding_limit(checks)
+        out["label"] = "none within budget"
+        out["message"] = "no point fits the budget: " + out["binding"]["message"]
+    else:
+        out["message"] = "the sweep has no points"
+    return out
+
+
+def _cost_words(row: dict) -> str:
+    b, lat, e = (row.get(f"hardware_summary.{k}") for k in ("block_rams", "latency_us", "energy_nj"))
+    if b is None:
+        return ""
+    return f", {b} block RAMs, {lat:.1f} us worst latency, {e:.1f} nJ per sample (estimates)"
+
+
+def recommend(records: list[dict], frame_accuracy: float, tolerance_pp: float, budget: dict | None = None) -> dict:
+    """The cheapest point within `tolerance_pp` of the frame accuracy, and (`within_budget`) the most
+    accurate point within the [budget] limits.
 
     Cheapest = least weight memory bits, then fewest SOPs per sample, then the grid order.
     When no point qualifies, `point` is None and `closest` names the most accurate point.
@@ -101,6 +151,7 @@ def recommend(records: list[dict], frame_accuracy: float, tolerance_pp: float) -
     else:
         out["label"] = "no points"
         out["message"] = "the sweep has no points"
+    out["within_budget"] = within_budget(rows, frame_accuracy, budget)
     return out
 
 

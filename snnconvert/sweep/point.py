@@ -37,7 +37,8 @@ def evaluate_point(model, dataset, recipe: dict, act_max, point: dict) -> dict:
                                               point["per_channel"], point["aware_epochs"], int(recipe["seed"]))
     else:
         model = copy.deepcopy(model)
-    net, metrics = convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max, quiet=True)
+    net, metrics = convert_and_measure(model, dataset, convert_settings(recipe, point), act_max=act_max, quiet=True,
+                                       hardware=recipe.get("hardware"))
     metrics = dict(metrics)
     metrics["network_fingerprint"] = net_fingerprint(net)
     return metrics

@@ -68,12 +68,13 @@ class SweepResult:
 
 def fingerprints(model, dataset, recipe: dict) -> dict:
     """What a results.jsonl line must have been made from: the model, the data, the [convert]
-    settings the grid does not vary and the seed."""
+    settings the grid does not vary, the seed and the [hardware] of the cost estimate ([budget]
+    changes no point: the recommendation applies it)."""
     swept = {"coding", "weight_bits", "payload_bits", "per_channel", "tolerance_pp"}  # the last changes no metric
     settings = {k: v for k, v in recipe["convert"].items() if k not in swept}
     return {"model": files.fingerprint({k: v for k, v in model.state_dict().items()}),
             "data": str(dataset.fingerprint),
-            "settings": files.fingerprint(settings, recipe.get("seed"))}
+            "settings": files.fingerprint(settings, recipe.get("seed"), recipe.get("hardware"))}
 
 
 def run_points(points: list[dict], task: Callable, log: ResultsLog, executor: Executor,
@@ -145,7 +146,7 @@ def run_sweep(source, settings: SweepSettings, out_dir=None, *, executor: Execut
     records, computed = run_points(points, task, log, executor, progress)
     t2 = time.perf_counter()
     frame = reference_accuracy(records, model, dataset)
-    rec = recommend(records, frame, settings.tolerance_pp)
+    rec = recommend(records, frame, settings.tolerance_pp, recipe.get("budget"))
     rec["checkpoint"] = checkpoint_info(ckpt.get("aware"), settings.aware, settings.aware_epochs)
     result = SweepResult(out, records, frame, settings.tolerance_pp, rec, computed, len(points) - computed,
                          log.fingerprints)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import csv
 import io
 
-from snnconvert.sweep.front import METRIC_COLUMNS, loss_pp, pareto_front, record_row
+from snnconvert.sweep.front import COST_COLUMNS, METRIC_COLUMNS, loss_pp, pareto_front, record_row
 from snnconvert.sweep.grid import PARAM_COLUMNS
 
 
@@ -19,12 +19,16 @@ def table_rows(records: list[dict], frame_accuracy: float, tolerance_pp: float) 
         r["within_tolerance"] = r["loss_pp"] <= tolerance_pp + 1e-9
         r["tolerance_pp"] = tolerance_pp
         r["pareto_memory"], r["pareto_sops"] = a, b
+    for col, flag in (("hardware_summary.latency_us", "pareto_latency"), ("hardware_summary.energy_nj", "pareto_energy")):
+        if rows and all(isinstance(r.get(col), (int, float)) for r in rows):
+            for r, f in zip(rows, pareto_front([r[col] for r in rows], [r["spike_accuracy"] for r in rows])):
+                r[flag] = f
     return rows
 
 
 def csv_text(rows: list[dict]) -> str:
-    first = PARAM_COLUMNS + METRIC_COLUMNS + ["loss_pp", "tolerance_pp", "within_tolerance", "pareto_memory",
-                                              "pareto_sops"]
+    first = PARAM_COLUMNS + METRIC_COLUMNS + COST_COLUMNS + ["loss_pp", "tolerance_pp", "within_tolerance", "pareto_memory",
+                                              "pareto_sops", "pareto_latency", "pareto_energy"]
     extra = sorted({k for r in rows for k in r} - set(first))
     cols = [c for c in first if any(c in r for r in rows)] + extra
     buf = io.StringIO()
@@ -82,4 +86,7 @@ def format_table(rows: list[dict], recommendation: dict) -> str:
         lines.append(f"{line} {mark}")
     lines.append("* on the accuracy / weight-memory Pareto front   < recommended" +
                  ("   steps: latency in time steps   nJ: energy estimate per sample" if multi else ""))
+    wb = recommendation.get("within_budget")
+    if wb and wb.get("message"):
+        lines.append(wb["message"])
     return "\n".join(lines)
