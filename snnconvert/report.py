@@ -678,8 +678,12 @@ def _export(run: Path) -> str:
     if v is None:
         out.append(_missing("Not verified (verify.json is missing). Run `snnconvert verify` on the export folder."))
     elif v.get("passed"):
-        out.append(f'<p class="ok">verify passed: {_e(_fmt(v.get("samples", "n/a")))} golden samples re-simulated '
-                   "bit-exactly from the export folder alone.</p>")
+        vec = (man or {}).get("vectors") or {}
+        directed = len(vec.get("directed") or []) if isinstance(vec, dict) else 0
+        n = v.get("samples")
+        what = (f"{_e(_fmt(n))} golden vectors ({_e(_fmt(n - directed))} test samples and {directed} directed "
+                "vectors)") if isinstance(n, int) and 0 < directed <= n else f"{_e(_fmt(n if n is not None else 'n/a'))} golden vectors"
+        out.append(f'<p class="ok">verify passed: {what} re-simulated bit-exactly from the export folder alone.</p>')
     else:
         mm = v.get("first_mismatch")
         where = _fmt(mm) if isinstance(mm, dict) else _fmt(mm)

@@ -183,7 +183,10 @@ def test_report_of_a_real_run(tmp_path):
     for name, bits in m["accumulator_bits"].items():
         assert f'<td class="l">{name}</td><td>{bits}</td>' in accu
     assert "Estimate, not a measurement." in section(text, "energy")
-    assert "verify passed: 2 golden samples" in section(text, "export")   # [export] vectors = 2 above
+    # [export] vectors = 2 above, plus the directed vectors the export lists in its manifest
+    directed = len(json.loads((run / "export" / "manifest.json").read_text())["vectors"]["directed"])
+    assert (f"verify passed: {2 + directed} golden vectors (2 test samples and {directed} directed vectors)"
+            in section(text, "export"))
     # two confusion matrices: the frame model's (train/) and the spike model's (net/)
     assert len(re.findall(r"<img ", section(text, "confusion"))) == 2
     stages = re.findall(r'<tr><td class="l">([a-z]+)</td><td class="l">done</td>', section(text, "overview"))

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from snnconvert import console, files
+from snnconvert import files
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
 from snnconvert.interop import require_onnx
