@@ -110,5 +110,5 @@ def test_a_command_needing_torch_names_the_missing_extra(tmp_path):
     """, "train", "recipes/default.toml", "--out", str(tmp_path / "t"), "--quiet")
     assert r.returncode == 1
     assert r.stderr.splitlines()[-1] in {
-        f"error: this command needs {m}, which this install lacks (only `snnconvert verify` runs without it); "
+        f"error: this command needs {m}, which this install lacks (only verify, compare, cmodel, verilog run without it); "
         f"install the full set: pip install 'snnconvert[full]'" for m in ("torch", "scipy", "sklearn", "matplotlib")}
