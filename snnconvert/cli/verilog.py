@@ -6,8 +6,8 @@ HELP = "write a behavioural Verilog model of an exported network and a testbench
 
 
 def add_arguments(p) -> None:
-    p.add_argument("export_dir", metavar="EXPORT_DIR", help="export folder holding manifest.json, memory files and vectors")
-    p.add_argument("--out", metavar="DIR", help="folder for the Verilog files (default: EXPORT_DIR/verilog)")
+    from snnconvert.cli.cmodel import add_model_arguments
+    add_model_arguments(p, "Verilog", "verilog")
 
 
 def run(args) -> int:
