@@ -159,6 +159,7 @@ QUIET_CASES = [
     (["export", "missing", "out"], "network folder missing holds no network.json (run `snnconvert convert` first)"),
     (["verify", "missing"], "export folder not found: missing"),
     (["cmodel", "missing"], "export folder missing holds no manifest.json (run `snnconvert export` first)"),
+    (["verilog", "missing"], "export folder not found: missing"),
     (["compare", "missing", "trace"], "export folder missing holds no manifest.json (run `snnconvert export` first)"),
     (["report", "missing"], "run folder not found: missing"),
     (["run", "missing"], "recipe file not found: missing"),

@@ -326,6 +326,34 @@ def test_reexport_replaces_old_files_and_refuses_foreign_folders(tmp_path):
         export_network(net2, tmp_path / "other", x, y, progress=False)
 
 
+def test_reexport_replaces_the_model_folders_and_lists_them(tmp_path):
+    """c/ and verilog/ belong to the export: written by it, they are listed with their sha256; a later
+    export replaces them (or removes them when not asked for), so no stale model outlives its tables."""
+    import hashlib
+    from snnconvert.cli import main
+    from snnconvert.export.verify import verify
+    x, y = small_inputs()
+    out = tmp_path / "e"
+    export_network(small_net(), out, x, y, vectors=2, progress=False, verilog=True, c_model=True)
+    man = json.loads((out / "manifest.json").read_text())
+    written = {p.relative_to(out).as_posix() for p in out.rglob("*") if p.is_file()} - {"manifest.json"}
+    assert set(man["files"]) == written and {"c/snn_model.c", "c/snn_main.c", "verilog/snn_tb.v"} <= written
+    for rel in written:
+        assert hashlib.sha256((out / rel).read_bytes()).hexdigest() == man["files"][rel]
+    n = man["vectors"]["count"]
+    assert len(list((out / "verilog" / "trace").iterdir())) == n     # empty folders for the testbench's trace
+    (out / "c" / "snn_model").write_bytes(b"an old build")
+    (out / "verilog" / "trace" / "sample_0000" / "input.csv").write_text("addr,t,payload\n")
+    assert verify(out, progress=False).passed                          # neither the build nor the trace disturbs it
+    export_network(small_net("ttfs"), out, x, y, vectors=2, progress=False)
+    assert not (out / "c").exists() and not (out / "verilog").exists()
+    assert main(["cmodel", str(out), "--quiet"]) == 0 and main(["verilog", str(out), "--quiet"]) == 0
+    assert not any(k.startswith(("c/", "verilog/")) for k in json.loads((out / "manifest.json").read_text())["files"])
+    assert verify(out, progress=False).passed                          # generated later: present but not listed
+    with pytest.raises(UsageError, match="the C model needs golden vectors"):
+        export_network(small_net(), out, x, y, vectors=0, progress=False, c_model=True)
+
+
 @pytest.mark.parametrize("x,labels,vectors,match", [
     (np.zeros((2, 1, 5, 5), np.int64), None, 1, r"must be an int array of shape \(None, 1, 6, 6\)"),
     (np.full((2, 1, 6, 6), 2), None, 1, r"must hold payloads in \[0, 1\]. Got values in \[2, 2\] instead"),

@@ -33,6 +33,14 @@ def _python(code: str, *args: str) -> subprocess.CompletedProcess:
                           text=True, env=env, cwd=ROOT, timeout=120, check=False)
 
 
+def _cli(*args: str) -> subprocess.CompletedProcess:
+    """`python -m snnconvert ARGS` with the blocked packages."""
+    return _python("""
+        import runpy
+        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
+    """, *args)
+
+
 @pytest.fixture(scope="module")
 def exports(tmp_path_factory):
     root = tmp_path_factory.mktemp("notorch")
@@ -72,10 +80,7 @@ def test_readers_reference_and_arith_import_and_run_without_torch():
 @pytest.mark.parametrize("coding", ["payload", "ttfs"])
 def test_cli_verify_passes_without_torch(exports, tmp_path, coding):
     res = tmp_path / "verify.json"
-    r = _python("""
-        import runpy
-        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
-    """, "verify", str(exports / coding), "--json", str(res), "--quiet")
+    r = _cli("verify", str(exports / coding), "--json", str(res), "--quiet")
     assert r.returncode == 0, r.stderr
     # 4 test samples plus the directed vectors the export adds (listed in its manifest)
     n = json.loads((exports / coding / "manifest.json").read_text())["vectors"]["count"]
@@ -94,21 +99,55 @@ def test_cli_verify_names_a_corrupt_table_word_without_torch(exports, tmp_path):
     lines = path.read_text().split("\n")
     lines[4] = format(new & 0xF, "x")          # word 0 follows the 4 '//' header lines; 4-bit two's complement
     path.write_text("\n".join(lines))
-    r = _python("""
-        import runpy
-        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
-    """, "verify", str(folder), "--quiet")
+    r = _cli("verify", str(folder), "--quiet")
     assert r.returncode == 1, r.stderr
     assert r.stdout.startswith(f"verify: FAILED: table mismatch in {spec['file']} line 5: layer L2_conv2, "
                                f"word 0 [0, 0, 0, 0]: expected {orig}, got {new} (")
 
 
 def test_a_command_needing_torch_names_the_missing_extra(tmp_path):
-    r = _python("""
-        import runpy
-        runpy.run_module("snnconvert", run_name="__main__", alter_sys=True)
-    """, "train", "recipes/default.toml", "--out", str(tmp_path / "t"), "--quiet")
+    r = _cli("train", "recipes/default.toml", "--out", str(tmp_path / "t"), "--quiet")
     assert r.returncode == 1
     assert r.stderr.splitlines()[-1] in {
-        f"error: this command needs {m}, which this install lacks (only `snnconvert verify` runs without it); "
+        f"error: this command needs {m}, which this install lacks (only verify, compare, cmodel, verilog run without it); "
         f"install the full set: pip install 'snnconvert[full]'" for m in ("torch", "scipy", "sklearn", "matplotlib")}
+
+
+@pytest.mark.parametrize("coding", ["payload", "ttfs"])
+def test_cli_cmodel_and_verilog_generate_the_models_without_torch(exports, tmp_path, coding):
+    """Both reference models come from the export folder alone; the same files as generated with torch loaded."""
+    import shutil
+    from snnconvert.export import cmodel, verilog
+    folder = shutil.copytree(exports / coding, tmp_path / "export")
+    for command in ("cmodel", "verilog"):
+        r = _cli(command, str(folder), "--quiet")
+        assert r.returncode == 0, r.stderr
+        assert r.stdout.startswith(f"{command}: ") and r.stderr == ""
+    assert {n: (folder / "c" / n).read_text() for n in cmodel.FILES} == cmodel.c_sources(exports / coding)
+    for name in (verilog.MODEL, verilog.TESTBENCH):
+        assert (folder / "verilog" / name).read_bytes() == (verilog.sources(*verilog.read_export(exports / coding))
+                                                             [f"verilog/{name}"])
+    n = json.loads((folder / "manifest.json").read_text())["vectors"]["count"]
+    assert sorted(p.name for p in (folder / "verilog" / "trace").iterdir()) == [f"sample_{s:04d}" for s in range(n)]
+
+
+def test_cli_compare_without_torch(exports, tmp_path):
+    """The export's own vectors/ folder is a trace in the golden-vector layout: it matches; one potential
+    changed in a copy is named (exit 1)."""
+    import shutil
+    folder = exports / "payload"
+    n = json.loads((folder / "manifest.json").read_text())["vectors"]["count"]
+    r = _cli("compare", str(folder), str(folder / "vectors"), "--quiet")
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.split("\n")[-2].startswith(f"compare: passed: ") and f" of {n} samples " in r.stdout
+    trace = shutil.copytree(folder / "vectors", tmp_path / "trace")
+    path = trace / "sample_0001" / "L2_conv2.potentials.csv"
+    lines = path.read_text().split("\n")
+    addr, v = lines[3].split(",")
+    lines[3] = f"{addr},{int(v) + 1}"
+    path.write_text("\n".join(lines))
+    r = _cli("compare", str(folder), str(trace), "--quiet")
+    assert r.returncode == 1, r.stderr
+    assert r.stdout.split("\n")[-2] == (f"compare: FAILED: first mismatch: sample 1, layer L2_conv2, potential, neuron "
+                                        f"2 (0, 1, 0): expected {v}, got {int(v) + 1} "
+                                        f"[sample_0001/L2_conv2.potentials.csv]")

@@ -147,7 +147,6 @@ def test_injected_overflows_are_counted_per_layer(mode):
     lim = simulate(net, x)
     lo, hi = -32, 31                                      # 6-bit two's complement range (common practice)
     conv_idx = [i for i, L in enumerate(net.layers) if L.weight is not None]
-    z = [None] * len(net.layers)
     # expected overflow counts from the unlimited potentials of the first layer (same inputs)
     first = conv_idx[0]
     v0, _ = weighted_sum(net.layers[first], torch.from_numpy(x))

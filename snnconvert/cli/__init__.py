@@ -3,7 +3,7 @@
 Each command lives in its own module `snnconvert/cli/<command>.py` exposing
 `HELP` (one line), `add_arguments(parser)` and `run(args) -> int`.
 
-Only `verify` runs on the base install (numpy alone); the other commands need the "full" extra,
+The NUMPY_ONLY commands run on the base install (numpy alone); the others need the "full" extra,
 and say so in one line (exit 1) when one of its packages is missing.
 
 Exit codes: 0 success, 1 unexpected failure (or a failed check such as verify), 2 usage error
@@ -26,7 +26,10 @@ from snnconvert.errors import UsageError
 FULL_ONLY = ("torch", "scipy", "sklearn", "matplotlib", "joblib", "threadpoolctl")
 
 # Order is the order of the job; `run` chains them all.
-COMMANDS = ["events", "train", "import", "convert", "simulate", "sweep", "export", "verify", "cmodel", "compare", "report", "run"]
+COMMANDS = ["events", "train", "import", "convert", "simulate", "sweep", "export", "verify", "cmodel", "verilog",
+            "compare", "report", "run"]
+# Commands that read only an export folder and run on the base install (numpy alone).
+NUMPY_ONLY = ("verify", "compare", "cmodel", "verilog")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -76,7 +79,7 @@ def main(argv: list[str] | None = None) -> int:
         if (exc.name or "").split(".")[0] not in FULL_ONLY:
             return _unexpected(exc)
         console.error(f"this command needs {exc.name.split('.')[0]}, which this install lacks (only "
-                      f"`snnconvert verify` runs without it); install the full set: pip install 'snnconvert[full]'")
+                      f"{', '.join(NUMPY_ONLY)} run without it); install the full set: pip install 'snnconvert[full]'")
         return 1
     except KeyboardInterrupt:
         console.error("interrupted; finished stages and files are intact")

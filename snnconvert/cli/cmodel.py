@@ -5,9 +5,14 @@ from __future__ import annotations
 HELP = "write a C99 model of an exported network and a main that checks every golden vector"
 
 
-def add_arguments(p) -> None:
+def add_model_arguments(p, language: str, folder: str) -> None:
+    """The arguments of a command that generates a reference model from an export folder."""
     p.add_argument("export_dir", metavar="EXPORT_DIR", help="export folder holding manifest.json, memory files and vectors")
-    p.add_argument("--out", metavar="DIR", help="folder for the C files (default: EXPORT_DIR/c)")
+    p.add_argument("--out", metavar="DIR", help=f"folder for the {language} files (default: EXPORT_DIR/{folder})")
+
+
+def add_arguments(p) -> None:
+    add_model_arguments(p, "C", "c")
 
 
 def run(args) -> int:

@@ -27,7 +27,8 @@ def add_arguments(p) -> None:
                    help="also write the behavioural Verilog model and its self-checking testbench under verilog/ "
                         "(default: recipe [export] verilog, off)")
     p.add_argument("--c", action="store_true",
-                   help="also write the C99 reference model to OUT_DIR/c (the same as `snnconvert cmodel OUT_DIR`)")
+                   help="also write the C99 reference model to OUT_DIR/c (the same files as `snnconvert cmodel OUT_DIR`, "
+                        "but listed in the manifest)")
 
 
 def run(args) -> int:
@@ -47,7 +48,7 @@ def run(args) -> int:
         check_int(args.pack_bits, "pack_bits", "export", 0, 4096)
     man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,
                                inputs=args.inputs, progress=not args.quiet, coe_mif=args.coe_mif,
-                               pack_bits=args.pack_bits, verilog=args.verilog)
+                               pack_bits=args.pack_bits, verilog=args.verilog, c_model=args.c)
     man = load_json(man_path)
     out = Path(args.out_dir)
     vec = man["vectors"]
@@ -55,6 +56,5 @@ def run(args) -> int:
     console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
                  f"{vec['count'] - directed} golden vectors and {directed} directed vectors -> {out}")
     if args.c:
-        from snnconvert.export.cmodel import write_c_model
-        console.echo(f"export: C model -> {write_c_model(out)}")
+        console.echo(f"export: C model -> {out / 'c'}")
     return 0

@@ -36,13 +36,14 @@ def test_inputs(net: IntNetwork, recipe: dict, progress: bool = True, dataset=No
 def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int | None = None,
                     csv: bool | None = None, intel_hex: bool | None = None, inputs=None,
                     progress: bool = True, settings: ExportSettings | None = None, dataset=None,
-                    coe_mif: bool | None = None, pack_bits: int | None = None, verilog: bool | None = None) -> Path:
+                    coe_mif: bool | None = None, pack_bits: int | None = None, verilog: bool | None = None,
+                    c_model: bool = False) -> Path:
     """Export the network in `net_dir` to `out_dir`; returns the manifest path.
 
     recipe: the resolved recipe (default: net_dir/recipe.toml). settings: its checked [export] section
     (default: built from the recipe). vectors/csv/intel_hex/coe_mif/pack_bits/verilog: None keeps the
     setting. inputs: an NPZ path to use instead of the data set's test split. dataset: the recipe's
-    data set, if already loaded.
+    data set, if already loaded. c_model: also write the C99 model under c/ (listed in the manifest).
     """
     from snnconvert import recipe as recipe_mod
     from snnconvert.export.writer import export_network
@@ -71,7 +72,8 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     else:
         x, y = test_inputs(net, recipe, progress, dataset)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
-                          progress=progress, hardware_estimate=_hardware_estimate(net_dir), **opts)
+                          progress=progress, hardware_estimate=_hardware_estimate(net_dir),
+                          c_model=c_model, **opts)
 
 
 def _hardware_estimate(net_dir: Path) -> dict | None:

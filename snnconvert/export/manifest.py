@@ -47,7 +47,9 @@ MANIFEST_FIELDS = {
                "directed vector: sample, kind, layer, neuron, words), directed_kinds (code in the summary's "
                "directed column; 0 = test sample), peak_events per stream, NPZ file and its keys, columns of the "
                "NPZ event tables, CSV folder; each layer's golden file names are in its golden field",
-    "files": "sha256 of every other file in the folder, keyed by path relative to the folder",
+    "files": "sha256 of every file the export wrote, keyed by path relative to the folder; the C and Verilog "
+             "models under c/ and verilog/ are listed when export wrote them (--c, --verilog), not when "
+             "`snnconvert cmodel` or `snnconvert verilog` generated them later; trace folders are never listed",
     "hardware_estimate": "the datapath cost model's ESTIMATE (not a synthesis result) measured on the test split at "
                          "conversion: per layer and total memory bits, block RAMs, bus widths, cycles, latency, "
                          "samples/s and energy, with the [hardware] settings and the model's assumptions (null when "

@@ -9,8 +9,12 @@ Generated from the export folder alone (manifest, `.mem` tables, vectors.npz; nu
                        the first mismatch (sample, layer, neuron, expected, got)
     tb_<stream>_events.mem, tb_<stream>_count.mem, tb_potentials.mem, tb_decision.mem
                        the golden vectors as $readmemh files (see `testbench_data`)
+    trace/sample_NNNN/ empty folders, one per vector, for the trace (Verilog cannot create folders)
 Both read their files by paths relative to the export folder: run the simulator there, e.g.
     cd EXPORT && iverilog -g2005 -o snn_tb.vvp verilog/snn_tb.v verilog/snn_model.v && vvp snn_tb.vvp
+`vvp snn_tb.vvp +trace` also writes what the model computed for every vector to verilog/trace in the
+golden-vector layout that `snnconvert compare` reads (`+trace=DIR`: to DIR, whose sample_NNNN folders
+must exist); with a trace the testbench still names the first mismatch but runs every vector.
 
 What the model computes (the manifest's rules, written out once in Verilog):
     V = B + sum W * a                 each input event adds W * payload to its fan-out (ttfs: adds W to a
@@ -40,6 +44,10 @@ MODEL = "snn_model.v"
 TESTBENCH = "snn_tb.v"
 INPUT = "input"
 EVENT_WORD = 96          # testbench event word: {addr[95:64], t[63:32], payload[31:0]}
+TRACE = "trace"          # default trace folder of the testbench, under the verilog folder
+# the two lines that hold the rounding rule and the accumulation (each written once in snn_model.v)
+ROUND_LINE = "      biased = v * m + (64'sd1 <<< (n - 1));   // V * M0 + 2^(n-1)"
+ACC_LINE = "      acc = v + x;"
 
 
 def _stream_ids(net: IntNetwork, ids: list[str]) -> list[tuple[str, int | None]]:
@@ -101,7 +109,7 @@ def _task_receive(net: IntNetwork, i: int, ids: list[str]) -> list[str]:
     out = [f"  // layer {i} ({ids[i]}): one event arrives", f"  task recv_l{i};",
            "    input integer addr, t, payload;",
            "    integer c, y, x, ky, kx, oy, ox, o, n, k;", "    begin"]
-    add = (f"i_l{i}[n] = i_l{i}[n] + w_l{i}[k];" if ttfs else f"v_l{i}[n] = v_l{i}[n] + w_l{i}[k] * payload;")
+    add = (f"i_l{i}[n] = acc(i_l{i}[n], w_l{i}[k]);" if ttfs else f"v_l{i}[n] = acc(v_l{i}[n], w_l{i}[k] * payload);")
     if ttfs and L.kind in ("conv", "dense"):
         out.append(f"      advance_l{i}(t);   // integrate the steps before this event")
     if L.kind == "dense":
@@ -177,7 +185,7 @@ def _helpers(net: IntNetwork, i: int, ttfs: bool) -> list[str]:
         out += [f"  task advance_l{i};   // add the current to the potential once per step, up to step `upto`",
                 "    input integer upto;", "    integer n;", "    begin",
                 f"      while (step_l{i} < upto) begin",
-                f"        for (n = 0; n < {n_out}; n = n + 1) v_l{i}[n] = v_l{i}[n] + i_l{i}[n];",
+                f"        for (n = 0; n < {n_out}; n = n + 1) v_l{i}[n] = acc(v_l{i}[n], i_l{i}[n]);",
                 f"        step_l{i} = step_l{i} + 1;", "      end", "    end", "  endtask", ""]
     return out
 
@@ -225,17 +233,25 @@ def model_source(net: IntNetwork, ids: list[str], specs: dict) -> str:
         for kind, name in (("weight", "w"), ("bias", "b"), ("m0", "m0"), ("shift", "sh")):
             lines.append(f'    $readmemh("{specs[i][kind]["file"]}", {name}_l{i});')
     lines += ["  end", ""]
-    lines += ["  // requantization, the manifest's rounding rule: a = clamp((V*M0 + 2^(n-1)) >>> n, 0, Q);",
-              "  // >>> is an arithmetic shift (floor), so exact halves round up (towards +infinity)",
-              "  function integer requantize;", "    input signed [63:0] v;", "    input [63:0] m0;",
-              "    input integer n, q;", "    reg signed [63:0] m, r;", "    begin",
+    lines += ["  // the manifest's rounding rule, written once: V*M0 + 2^(n-1), then an arithmetic shift >>> n",
+              "  // (floor), so exact halves round up (towards +infinity)",
+              "  function signed [63:0] biased;", "    input signed [63:0] v;", "    input [63:0] m0;",
+              "    input integer n;", "    reg signed [63:0] m;", "    begin",
               "      m = m0;                                   // zero-extended: M0 is unsigned",
-              "      r = (v * m + (64'sd1 <<< (n - 1))) >>> n;",
+              ROUND_LINE, "    end", "  endfunction", "",
+              "  // requantization: a = clamp((V*M0 + 2^(n-1)) >>> n, 0, Q)",
+              "  function integer requantize;", "    input signed [63:0] v;", "    input [63:0] m0;",
+              "    input integer n, q;", "    reg signed [63:0] r;", "    begin",
+              "      r = biased(v, m0, n) >>> n;",
               "      requantize = r < 0 ? 0 : (r > q ? q : r);", "    end", "  endfunction", "",
               "  // ttfs falling threshold at step t: V*M0 + 2^(n-1) >= (Q - t) * 2^n",
               "  function crosses;", "    input signed [63:0] v;", "    input [63:0] m0;", "    input integer n, q, t;",
-              "    reg signed [63:0] m, qt;", "    begin", "      m = m0; qt = q - t;",
-              "      crosses = v * m + (64'sd1 <<< (n - 1)) >= (qt <<< n);", "    end", "  endfunction", ""]
+              "    reg signed [63:0] qt;", "    begin", "      qt = q - t;",
+              "      crosses = biased(v, m0, n) >= (qt <<< n);", "    end", "  endfunction", "",
+              "  // the accumulation of a potential (or a ttfs current), written once: full width, no clip here;",
+              "  // the declared accumulator limit applies at window close",
+              "  function signed [63:0] acc;", "    input signed [63:0] v, x;", "    begin", ACC_LINE, "    end",
+              "  endfunction", ""]
     if lim:
         lo, hi = -(1 << (lim - 1)), (1 << (lim - 1)) - 1
         if net.overflow == "saturate":
@@ -323,6 +339,45 @@ def testbench_data(net: IntNetwork, ids: list[str], arrays: dict) -> tuple[dict[
     return files, sizes
 
 
+def _trace_tasks(net: IntNetwork, streams, out_i: int) -> list[str]:
+    """Tasks of the testbench that write one vector's trace in the golden-vector layout (see compare):
+    TRACE/sample_NNNN/input.csv, <layer id>.csv, <layer id>.potentials.csv, potentials.csv."""
+    L = ["  task open_trace;   // f = TRACE/sample_NNNN/<name> opened for writing",
+         "    input integer s; input [8*96:1] name;", "    begin",
+         '      $sformat(path, "%0s/sample_%04d/%0s", trace_dir, s, name);', '      f = $fopen(path, "w");',
+         "      if (f == 0) begin",
+         '        $display("error: cannot write %0s (the trace folder needs a sample_NNNN folder per vector)", path);',
+         "        $finish;", "      end", "    end", "  endtask", "",
+         "  task write_trace;   // one vector's trace: every layer's events and potentials, the decisions",
+         "    input integer s;", "    integer k;", "    begin",
+         '      $fdisplay(fs, "%0d,%0d,%0d", s, dut.decision, dut.early_decision);']
+    for sid, i in streams:
+        n_, a, t, p = (("dut.n_in", "dut.ea_in", "dut.et_in", "dut.ep_in") if i is None else
+                       (f"dut.n_l{i}", f"dut.ea_l{i}", f"dut.et_l{i}", f"dut.ep_l{i}"))
+        L += [f'      open_trace(s, "{sid}.csv"); $fdisplay(f, "addr,t,payload");',
+              f'      for (k = 0; k < {n_}; k = k + 1) $fdisplay(f, "%0d,%0d,%0d", {a}[k], {t}[k], {p}[k]);',
+              "      $fclose(f);"]
+    ids = dict((i, sid) for sid, i in streams if i is not None)
+    for i, layer in enumerate(net.layers):
+        if layer.kind in ("conv", "dense"):
+            L += [f'      open_trace(s, "{ids[i]}.potentials.csv"); $fdisplay(f, "addr,potential");',
+                  f"      for (k = 0; k < {int(np.prod(layer.out_shape))}; k = k + 1)",
+                  f'        $fdisplay(f, "%0d,%0d", k, dut.v_l{i}[k]);', "      $fclose(f);"]
+    L += ['      open_trace(s, "potentials.csv"); $fdisplay(f, "class,potential");',
+          f'      for (k = 0; k < {int(net.n_classes)}; k = k + 1) $fdisplay(f, "%0d,%0d", k, dut.v_l{out_i}[k]);',
+          "      $fclose(f);", "    end", "  endtask", ""]
+    return L
+
+
+def trace_folders(verilog_dir, samples: int) -> Path:
+    """Create the testbench's default trace folder verilog_dir/trace with one sample_NNNN folder per
+    vector (Verilog's $fopen cannot create folders); returns it."""
+    root = Path(verilog_dir) / TRACE
+    for s in range(int(samples)):
+        (root / f"sample_{s:04d}").mkdir(parents=True, exist_ok=True)
+    return root
+
+
 def testbench_source(net: IntNetwork, ids: list[str], sizes: dict, data_dir: str) -> str:
     """snn_tb.v: stream, compare, print PASS or the first mismatch and stop."""
     n, C = sizes["samples"], int(net.n_classes)
@@ -338,32 +393,47 @@ def testbench_source(net: IntNetwork, ids: list[str], sizes: dict, data_dir: str
     L += [f"  reg [63:0] pot [0:{n * C - 1}];", f"  reg [63:0] dec [0:{n - 1}];"]
     for sid, npl in sizes["layer_potentials"].items():
         L.append(f"  reg [63:0] pot_{sid} [0:{n * npl - 1}];")
-    L += ["  integer s, k, c, got_n, exp_n, checked;", f"  reg [{EVENT_WORD - 1}:0] e;", "",
-          "  task fail_event;   // the first differing event of a layer; stops the simulation",
+    L += ["  integer s, k, c, got_n, exp_n, checked, failed;", f"  reg [{EVENT_WORD - 1}:0] e;",
+          "  integer tracing, f, fs;            // +trace[=DIR]: also write a trace of every vector",
+          "  reg [8*512:1] trace_dir, path;", "",
+          "  task stop;   // after the first mismatch: stop, unless a trace is being written",
+          "    begin", "      failed = 1;", "      if (!tracing) $finish;", "    end", "  endtask", "",
+          "  task fail_event;   // the first differing event of a layer",
           "    input integer s; input [8*64:1] layer; input has_exp; input [95:0] e;",
-          "    input has_got; input integer ga, gt, gp;", "    begin",
-          "      $write(\"FAIL: first mismatch: sample %0d, layer %0s, neuron %0d: expected \", s, layer,",
-          "             has_exp ? e[95:64] : ga);",
-          "      if (has_exp) $write(\"(addr %0d, t %0d, payload %0d)\", e[95:64], e[63:32], e[31:0]);",
-          "      else $write(\"no event\");",
-          "      if (has_got) $display(\", got (addr %0d, t %0d, payload %0d)\", ga, gt, gp);",
-          "      else $display(\", got no event\");", "      $finish;", "    end", "  endtask", "",
-          "  task fail_value;   // a potential or decision that differs; stops the simulation",
+          "    input has_got; input integer ga, gt, gp;", "    begin", "      if (!failed) begin",
+          "        $write(\"FAIL: first mismatch: sample %0d, layer %0s, neuron %0d: expected \", s, layer,",
+          "               has_exp ? e[95:64] : ga);",
+          "        if (has_exp) $write(\"(addr %0d, t %0d, payload %0d)\", e[95:64], e[63:32], e[31:0]);",
+          "        else $write(\"no event\");",
+          "        if (has_got) $display(\", got (addr %0d, t %0d, payload %0d)\", ga, gt, gp);",
+          "        else $display(\", got no event\");", "      end", "      stop;", "    end", "  endtask", "",
+          "  task fail_value;   // a potential or decision that differs",
           "    input integer s; input [8*64:1] layer; input [8*24:1] what; input integer neuron;",
           "    input signed [63:0] expected, got;", "    begin",
-          "      $display(\"FAIL: first mismatch: sample %0d, layer %0s, %0s %0d: expected %0d, got %0d\",",
-          "               s, layer, what, neuron, expected, got);", "      $finish;", "    end", "  endtask", "",
-          "  initial begin"]
+          "      if (!failed)",
+          "        $display(\"FAIL: first mismatch: sample %0d, layer %0s, %0s %0d: expected %0d, got %0d\",",
+          "                 s, layer, what, neuron, expected, got);", "      stop;", "    end", "  endtask", ""]
+    L += _trace_tasks(net, streams, out_i)
+    L += ["  initial begin"]
     for k, (sid, _) in enumerate(streams):
         L += [f'    $readmemh("{data_dir}/tb_{sid}_events.mem", ev{k});',
               f'    $readmemh("{data_dir}/tb_{sid}_count.mem", cnt{k});', f"    base{k} = 0;"]
     L += [f'    $readmemh("{data_dir}/tb_potentials.mem", pot);', f'    $readmemh("{data_dir}/tb_decision.mem", dec);']
     for sid in sizes["layer_potentials"]:
         L.append(f'    $readmemh("{data_dir}/tb_{sid}_potentials.mem", pot_{sid});')
-    L += ["    checked = 0;", f"    for (s = 0; s < {n}; s = s + 1) begin", "      dut.start_window;",
+    L += ["    checked = 0; failed = 0; tracing = 0;", f'    trace_dir = "{data_dir}/{TRACE}";',
+          '    if ($value$plusargs("trace=%s", trace_dir)) tracing = 1;',
+          '    else if ($test$plusargs("trace")) tracing = 1;',
+          "    if (tracing) begin",
+          '      $sformat(path, "%0s/summary.csv", trace_dir);', '      fs = $fopen(path, "w");',
+          "      if (fs == 0) begin",
+          '        $display("error: cannot write %0s (the trace folder must exist)", path);', "        $finish;",
+          "      end", '      $fdisplay(fs, "sample,decision,early_decision");', "    end",
+          f"    for (s = 0; s < {n}; s = s + 1) begin", "      dut.start_window;",
           "      for (k = 0; k < cnt0[s]; k = k + 1) begin",
           "        e = ev0[base0 + k];", "        dut.input_event(e[95:64], e[63:32], e[31:0]);", "      end",
-          "      base0 = base0 + cnt0[s];", "      dut.close_window;"]
+          "      base0 = base0 + cnt0[s];", "      dut.close_window;",
+          "      if (tracing) write_trace(s);"]
     for k, (sid, i) in enumerate(streams[1:], start=1):
         L += [f"      // {sid}: events", f"      got_n = dut.n_l{i}; exp_n = cnt{k}[s];",
               "      for (c = 0; c < (got_n > exp_n ? got_n : exp_n); c = c + 1) begin",
@@ -385,7 +455,10 @@ def testbench_source(net: IntNetwork, ids: list[str], sizes: dict, data_dir: str
           "      if ($signed(dec[s][31:0]) != dut.early_decision)",
           f'        fail_value(s, "{ids[out_i]}", "early_decision", 0, $signed(dec[s][31:0]), dut.early_decision);',
           "    end",
-          f'    $display("PASS: %0d samples, {len(streams) - 1} layers, %0d events, the potentials and decisions '
+          "    if (tracing) begin",
+          "      $fclose(fs);", f'      $display("trace: {n} samples -> %0s", trace_dir);', "    end",
+          "    if (!failed)",
+          f'      $display("PASS: %0d samples, {len(streams) - 1} layers, %0d events, the potentials and decisions '
           f'match", {n}, checked);',
           "    $finish;", "  end", "endmodule", ""]
     return "\n".join(L)
@@ -444,4 +517,5 @@ def write_verilog(export_dir, out_dir=None) -> Path:
     files = sources(net, ids, specs, arrays, folder=rel)
     for path, data in files.items():
         atomic_write_bytes(folder / path, data)
+    trace_folders(folder / rel, int(np.asarray(arrays["x"]).shape[0]))
     return folder / rel / TESTBENCH

@@ -25,6 +25,9 @@ from snnconvert.intnet import IntNetwork
 MANIFEST = "manifest.json"
 TABLES_NPZ = "tables.npz"
 VECTORS_NPZ = "vectors.npz"
+# Folders of the generated reference models (C: export.cmodel, Verilog: export.verilog). They belong to the
+# export: every export into a folder removes them and writes them anew when asked, so none is left stale.
+MODEL_FOLDERS = ("c", "verilog")
 # File suffix of each table kind: <layer id>_<suffix>.mem / .csv
 TABLE_SUFFIX = {"weight": "weights", "bias": "bias", "m0": "m0", "shift": "shift"}
 
@@ -66,7 +69,7 @@ def _check_inputs(net, x_int, labels, vectors):
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
                    recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
                    progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False,
-                   directed: bool = True, hardware_estimate: dict | None = None) -> Path:
+                   directed: bool = True, hardware_estimate: dict | None = None, c_model: bool = False) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
@@ -74,11 +77,13 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     csv: also CSV tables and vector files; intel_hex: also an Intel HEX file per table.
     coe_mif: also a Xilinx .coe and an Intel .mif block-RAM image per table, with `pack_bits` > 0
     packing floor(pack_bits / bits) table words into one memory word (fpga.LANE_ORDER).
-    verilog: also the behavioural Verilog model and its self-checking testbench (export.verilog).
+    verilog: also the behavioural Verilog model and its self-checking testbench (export.verilog), with
+    empty trace folders verilog/trace/sample_NNNN; c_model: also the C99 model (export.cmodel) under c/.
+    Both need vectors > 0; their files are listed in the manifest with their sha256 like every other.
     directed: with vectors > 0, also the directed vectors of export/directed.py after the test samples.
     hardware_estimate: the cost model's estimate of the network (metrics.json), copied to the manifest.
-    An existing export in `out_dir` is replaced (its files that the new export lacks are removed);
-    a non-empty folder that holds no export is refused.
+    An existing export in `out_dir` is replaced (its files that the new export lacks are removed, and
+    its c/ and verilog/ folders as a whole: MODEL_FOLDERS); a non-empty folder that holds no export is refused.
     """
     x, labels, vectors = _check_inputs(net, x_int, labels, vectors)
     csv = check_bool(csv, "csv", "export")
@@ -86,6 +91,9 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     coe_mif = check_bool(coe_mif, "coe_mif", "export")
     pack_bits = check_int(pack_bits, "pack_bits", "export", 0, fpga.MAX_PACK_BITS)
     verilog = check_bool(verilog, "verilog", "export")
+    c_model = check_bool(c_model, "c_model", "export")
+    if c_model and not vectors:
+        raise UsageError("the C model needs golden vectors (its main checks them); export with vectors >= 1")
     out = Path(out_dir)
     old_files = previous_export_files(out)
 
@@ -152,9 +160,31 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     (out / MANIFEST).unlink(missing_ok=True)
     for path in stale:
         path.unlink(missing_ok=True)
+    for name in MODEL_FOLDERS:
+        remove_model_folder(out / name)
     for rel, data in files.items():
         atomic_write_bytes(targets[rel], data)
+    if verilog:
+        verilog_mod.trace_folders(out / verilog_mod.FOLDER, idx.size)
+    if not c_model:
+        return atomic_write_json(out / MANIFEST, man)
+    # The C model is generated from the written folder alone (as `snnconvert cmodel` does), then listed.
+    from snnconvert.export import cmodel
+    atomic_write_json(out / MANIFEST, man)
+    src = {f"{cmodel.FOLDER}/{k}": v.encode() for k, v in cmodel.c_sources(out).items()}
+    for rel, data in src.items():
+        atomic_write_bytes(resolve_inside(out, rel, "file"), data)
+    man["files"] = dict(sorted({**man["files"], **{rel: sha256_bytes(d) for rel, d in src.items()}}.items()))
     return atomic_write_json(out / MANIFEST, man)
+
+
+def remove_model_folder(path: Path) -> None:
+    """Remove a generated model folder of an earlier export (a link is unlinked, never followed)."""
+    import shutil
+    if path.is_symlink() or path.is_file():
+        path.unlink()
+    elif path.is_dir():
+        shutil.rmtree(path)
 
 
 def add_directed(net: IntNetwork, x, idx, labels):
