@@ -368,3 +368,34 @@ def _print_summary(s: dict) -> None:
     for k, v in rows:
         console.echo(f"  {k:<{w}}  {fmt(k, v)}")
     console.echo(f"  {'report':<{w}}  {s['paths']['report']}")
+
+
+# --- a model from elsewhere: the data and train stages of a run, from an ONNX graph ------------
+def import_run(model_path, recipe_path, out=None, overrides=(), quiet: bool = False) -> dict:
+    """Import `model_path` with the recipe's data into the run folder `out` (default runs/<recipe name>).
+    Returns the train metrics (with an "imported" entry: source file, hash, onnxruntime agreement)."""
+    from snnconvert.interop import require_onnx
+    require_onnx("snnconvert import")
+    from snnconvert.interop.importer import check_fits, read_onnx_file, write_train_folder
+    from snnconvert.interop.onnx_read import read_graph
+    from snnconvert.settings.model import ModelSettings
+
+    r, settings = recipe_mod.load_settings(recipe_path, overrides)
+    out = check_output_path(Path(out) if out else default_out(r), "--out" if out else "", "folder")
+    proto, data = read_onnx_file(model_path)
+    try:
+        graph = read_graph(proto)
+    except UsageError as exc:
+        raise UsageError(f"{model_path}: {exc}") from None
+    r = {**r, "model": {**r["model"], "layers": graph.layers}}
+    settings = {**settings, "model": ModelSettings.from_section({"layers": graph.layers})}
+    run_ = Run(r, settings, out, force="train")
+    ds = run_.dataset()
+    check_fits(graph, ds, model_path)
+    out.mkdir(parents=True, exist_ok=True)
+    recipe_mod.save(r, out)
+    run_.stage("data", lambda: _data_stage(run_))
+    result = {}
+    run_.stage("train", lambda: result.update(write_train_folder(out / "train", r, ds, proto, data, graph,
+                                                                 Path(model_path))))
+    return result

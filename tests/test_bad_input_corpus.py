@@ -266,7 +266,7 @@ CASES = [
      f"Got 99 instead."),
     ("net-recipe-unknown-section", ["net"], _set(NJ, ["meta", "recipe", "writer"], {"folder": "/"}), SIM,
      f"{J}: its stored recipe is invalid: Unknown section [writer] in the recipe. Valid sections: data, frames, "
-     f"model, train, convert, sweep, export."),
+     f"model, train, convert, hardware, budget, sweep, export."),
     ("net-recipe-relative-base", ["net"], _set(NJ, ["meta", "recipe", "_base_dir"], "../.."), SIM,
      f"The 'recipe._base_dir' field of {J} must be an absolute folder path. Got '../..' instead."),
     ("net-recipe-index-not-str", ["net"], _set(NJ, ["meta", "recipe", "data", "recordings_index"], 7), SIM,

@@ -207,7 +207,7 @@ def test_error_while_reading_quiet_and_not(tmp_path, capsys, command, before):
     assert capsys.readouterr().err == before + BAD_BIN.format(d=tmp_path) + "\n"
     assert cli.main(argv) == 2
     err = capsys.readouterr().err
-    assert BAR.search(err) and "reading:" in err  # the bar is drawn without --quiet
+    assert BAR.search(err) and "frames:" in err  # the folder's frames bar is drawn without --quiet
     assert clean_lines(err) == [*before.splitlines(), BAD_BIN.format(d=tmp_path)]
 
 

@@ -126,7 +126,7 @@ def test_a_run_builds_each_setting_once_and_loads_the_data_once(tmp_path, monkey
     def convert_checkpoint(train_dir, settings, quiet=False, dataset=None, hardware=None, budget=None):
         given["convert"], given["convert_data"] = settings, dataset
         given["hardware"], given["budget"] = hardware, budget
-        return real_checkpoint(train_dir, settings, quiet, dataset, hardware, budget)
+        return real_checkpoint(train_dir, settings, quiet=quiet, dataset=dataset, hardware=hardware, budget=budget)
 
     def export_from_run(net_dir, out_dir, recipe=None, **kw):
         given["export"], given["export_data"] = kw["settings"], kw["dataset"]

@@ -22,10 +22,11 @@ def run(args) -> int:
     from pathlib import Path
 
     from snnconvert import recipe as recipe_mod
-    from snnconvert.interop.importer import import_onnx, summary_lines
+    from snnconvert.interop.importer import summary_lines
+    from snnconvert.pipeline import import_run
     from snnconvert.pipeline import default_out
 
-    metrics = import_onnx(args.model, args.recipe, args.out, args.overrides, quiet=args.quiet)
+    metrics = import_run(args.model, args.recipe, args.out, args.overrides, quiet=args.quiet)
     out = Path(args.out) if args.out else default_out(recipe_mod.load(args.recipe, args.overrides))
     for line in summary_lines(metrics, out):
         console.echo(line)

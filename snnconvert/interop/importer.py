@@ -1,6 +1,6 @@
 """The import job: an ONNX frame model + a recipe -> a run folder whose train stage is that model.
 
-`import_onnx(model_path, recipe_path, out)` writes
+`pipeline.import_run(model_path, recipe_path, out)` writes
     out/recipe.toml      the recipe with [model] layers = the imported layer list
     out/stages.json      data and train recorded as done, so `snnconvert run out/recipe.toml --out out`
                          reuses them and goes on with convert, sweep, export, verify, report
@@ -22,7 +22,6 @@ import numpy as np
 from snnconvert import files
 from snnconvert import recipe as recipe_mod
 from snnconvert.errors import UsageError
-from snnconvert.interop import require_onnx
 
 # Both sides compute in float (float32 in torch); 1e-4 on scores of order 1-10 leaves room for the
 # summation order of the two runtimes and catches any misread weight or layer.
@@ -110,35 +109,6 @@ def agreement(proto, graph, model, x: np.ndarray) -> dict:
         got = model(torch.as_tensor(np.asarray(x, np.float32))).double().numpy()   # (N, classes)
     return {"frames": int(len(x)), "max_abs_diff": float(np.abs(ref - got).max()) if len(x) else 0.0,
             "decisions_equal": int((ref.argmax(1) == got.argmax(1)).sum()), "limit": AGREE_LIMIT}
-
-
-def import_onnx(model_path, recipe_path, out=None, overrides=(), quiet: bool = False) -> dict:
-    """Import `model_path` with the recipe's data into the run folder `out` (default runs/<recipe name>).
-    Returns the train metrics (with an "imported" entry: source file, hash, onnxruntime agreement)."""
-    require_onnx("snnconvert import")
-    from snnconvert import pipeline
-    from snnconvert.interop.onnx_read import read_graph
-    from snnconvert.settings.model import ModelSettings
-
-    r, settings = recipe_mod.load_settings(recipe_path, overrides)
-    out = files.check_output_path(Path(out) if out else pipeline.default_out(r), "--out" if out else "", "folder")
-    proto, data = read_onnx_file(model_path)
-    try:
-        graph = read_graph(proto)
-    except UsageError as exc:
-        raise UsageError(f"{model_path}: {exc}") from None
-    r = {**r, "model": {**r["model"], "layers": graph.layers}}
-    settings = {**settings, "model": ModelSettings.from_section({"layers": graph.layers})}
-    run_ = pipeline.Run(r, settings, out, force="train")
-    ds = run_.dataset()
-    check_fits(graph, ds, model_path)
-    out.mkdir(parents=True, exist_ok=True)
-    recipe_mod.save(r, out)
-    run_.stage("data", lambda: pipeline._data_stage(run_))
-    result = {}
-    run_.stage("train", lambda: result.update(write_train_folder(out / "train", r, ds, proto, data, graph,
-                                                                 Path(model_path))))
-    return result
 
 
 def check_fits(graph, ds, source) -> None:
