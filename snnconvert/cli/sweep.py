@@ -23,6 +23,16 @@ def add_arguments(p) -> None:
                    help="accuracy loss allowed for the recommendation, in percentage points (default 0.5)")
 
 
+def frame_ci(records) -> str:
+    """' (95 % CI [..] %)' of the frame accuracy, read from a post-training point; '' when none has it."""
+    from snnconvert.stats import percent_interval
+    for r in records:
+        ci = r["metrics"].get("frame_accuracy_ci")
+        if not r["params"]["aware"] and isinstance(ci, list) and len(ci) == 2:
+            return f" (95 % CI {percent_interval(ci)})"
+    return ""
+
+
 def run(args) -> int:
     from snnconvert import console
     from snnconvert import sweep
@@ -57,7 +67,7 @@ def run(args) -> int:
     rows = sweep.table_rows(result.records, result.frame_accuracy, result.tolerance_pp)
     console.echo(sweep.format_table(rows, result.recommendation))
     console.echo(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
-                 f"frame accuracy {100 * result.frame_accuracy:.2f} %")
+                 f"frame accuracy {100 * result.frame_accuracy:.2f} %{frame_ci(result.records)}")
     console.echo(result.recommendation["message"])
     console.echo(f"outputs in {result.out_dir}")
     return 0
