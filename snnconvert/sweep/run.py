@@ -15,7 +15,7 @@ from typing import Any, Callable
 from snnconvert import console, files, plots
 from snnconvert.errors import UsageError
 from snnconvert.settings.sweep import SweepSettings
-from snnconvert.sweep.executor import Executor, local_executor
+from snnconvert.sweep.executor import Executor, close_executor, executor_for
 from snnconvert.sweep.figures import codings_figure, plot_heatmap, plot_pareto
 from snnconvert.sweep.front import checkpoint_info, recommend, reference_accuracy
 from snnconvert.sweep.grid import make_points
@@ -88,11 +88,13 @@ def run_points(points: list[dict], task: Callable, log: ResultsLog, executor: Ex
     pending = [p for p in points if p["key"] not in done]
     results = executor.map_points(task, pending)
     bar = console.bar(results, total=len(pending), desc="sweep", unit="point", enabled=progress and bool(pending))
+    status = getattr(executor, "status", None)   # engines that know it: points running and failed
     for point, metrics, timing in bar:
         rec = make_record(point, metrics, timing, log.fingerprints)
         log.append(rec)
         done[point["key"]] = rec
-        bar.set_postfix_str(point["key"])
+        bar.set_postfix_str((f"running {status['running']}, failed {status['failed']}, " if status else "")
+                            + point["key"])
     return [done[p["key"]] for p in points], len(pending)
 
 
@@ -125,11 +127,21 @@ def run_sweep(source, settings: SweepSettings, out_dir=None, *, executor: Execut
     source: an `Inputs`, or a training folder (loaded with its checkpoint's recipe). The recipe
     supplies the [convert] settings, the seed, and the [convert] coding when `settings.codings` is
     empty; it is saved beside the outputs as given. out_dir: default the folder `sweep` beside the
-    training folder. executor: where the points run (default `local_executor(settings.jobs)`).
+    training folder. executor: where the points run (default `executor_for(settings)`, closed at
+    the end; an executor passed in is left open for its owner).
     point_fn(model, dataset, recipe, act_max, point) -> metrics replaces the real conversion (tests).
     """
+    owned = executor is None
+    executor = executor if executor is not None else executor_for(settings)
+    try:
+        return _run_sweep(source, settings, out_dir, executor, point_fn, progress)
+    finally:
+        if owned:
+            close_executor(executor)
+
+
+def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, point_fn, progress: bool) -> SweepResult:
     t0 = time.perf_counter()
-    executor = executor if executor is not None else local_executor(settings.jobs)
     if not isinstance(source, Inputs):
         executor.start()  # workers come up while the model and the data set load
         source = load_inputs(source, progress=progress)
@@ -160,7 +172,10 @@ def run_from_recipe(train_dir, recipe: dict, out_dir, progress: bool = True, *, 
     """The sweep of a pipeline run: grid and options from the recipe's [sweep] section; `dataset`,
     when the caller holds it, is used instead of loading it again."""
     settings = SweepSettings.from_section(recipe["sweep"])
-    executor = local_executor(settings.jobs)
-    executor.start()
-    inputs = load_inputs(train_dir, recipe=recipe, dataset=dataset, progress=progress)
-    return run_sweep(inputs, settings, out_dir, executor=executor, progress=progress)
+    executor = executor_for(settings)
+    try:
+        executor.start()
+        inputs = load_inputs(train_dir, recipe=recipe, dataset=dataset, progress=progress)
+        return run_sweep(inputs, settings, out_dir, executor=executor, progress=progress)
+    finally:
+        close_executor(executor)
