@@ -21,6 +21,8 @@ def add_arguments(p) -> None:
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run the points on Dask: local:N starts N worker processes here, tcp://HOST:PORT uses a "
                         "running scheduler (needs snnconvert[cluster])")
+    p.add_argument("--seeds", metavar="GRID",
+                   help="training seeds, e.g. 0-4: one model per seed, points judged on the mean (default: recipe seed)")
     p.add_argument("--out", metavar="DIR", help="output folder (default: 'sweep' beside TRAIN_DIR)")
     p.add_argument("--tolerance-pp", type=float, metavar="PP",
                    help="accuracy loss allowed for the recommendation, in percentage points (default 0.5)")
@@ -45,7 +47,7 @@ def run(args) -> int:
     given = {"weight_bits": args.weight_bits, "payload_bits": args.payload_bits,
              "codings": ",".join(args.coding) if args.coding else None, "per_channel": args.per_channel,
              "aware": args.aware, "aware_epochs": args.aware_epochs, "jobs": args.jobs,
-             "tolerance_pp": args.tolerance_pp, "scheduler": args.scheduler}
+             "tolerance_pp": args.tolerance_pp, "scheduler": args.scheduler, "seeds": args.seeds}
     given = {k: v for k, v in given.items() if v is not None}
     flags = sweep.SweepSettings.from_section(given)   # typos are reported before the model and data load
     if flags.scheduler:
@@ -75,6 +77,10 @@ def run(args) -> int:
         sweep.close_executor(executor)
     rows = sweep.table_rows(result.records, result.frame_accuracy, result.tolerance_pp)
     console.echo(sweep.format_table(rows, result.recommendation))
+    if result.summary:
+        from snnconvert.sweep.seeds import format_summary
+        console.echo(f"over seeds {', '.join(map(str, result.recommendation['seeds']))}:")
+        console.echo(format_summary(result.summary))
     console.echo(f"{len(result.records)} points ({result.computed} computed, {result.reused} from results.jsonl); "
                  f"frame accuracy {100 * result.frame_accuracy:.2f} %{frame_ci(result.records)}")
     console.echo(result.recommendation["message"])

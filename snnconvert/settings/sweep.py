@@ -101,6 +101,13 @@ def _scheduler_validator(value, key: str, section: str) -> str:
     return parse_scheduler(value, key, section)
 
 
+def _seeds_validator(value, key: str, section: str) -> list[int]:
+    """'' or [] -> [] (the recipe seed only); else a grid of seeds, e.g. "0-4"."""
+    if value == "" or value == []:
+        return []
+    return parse_grid(value, key, section, 0, 2**31 - 1)
+
+
 def _grid_validator(lo: int, hi: int):
     def check(value, key: str, section: str) -> list[int]:
         return parse_grid(value, key, section, lo, hi)
@@ -126,6 +133,8 @@ KEYS: dict[str, Key] = {
                 lo=0, hi=256),
     "scheduler": Key("", "any", "empty: this machine's process pool; 'local:N' or 'tcp://HOST:PORT' run the points on a "
                      "Dask cluster", validator=_scheduler_validator),
+    "seeds": Key("", "any", "empty: the recipe seed only; '0-4' trains one model per seed and judges points on the mean",
+                 validator=_seeds_validator),
     "tolerance_pp": Key(0.5, "float", "half a point of accuracy is within run-to-run noise of small test sets",
                         lo=0.0, hi=100.0),
 }
@@ -148,4 +157,5 @@ class SweepSettings(Section):
     aware_epochs: int
     jobs: int
     scheduler: str
+    seeds: list[int]
     tolerance_pp: float

@@ -64,6 +64,8 @@ class SweepResult:
     reused: int                         # points taken from results.jsonl
     fingerprints: dict = field(default_factory=dict)
     seconds: dict = field(default_factory=dict)   # wall time of "load", "points", "outputs"
+    per_seed: dict = field(default_factory=dict)  # several seeds: {seed: that seed's SweepResult}
+    summary: list = field(default_factory=list)   # several seeds: mean, std and range per point (seeds.csv)
 
 
 def fingerprints(model, dataset, recipe: dict) -> dict:
@@ -145,13 +147,14 @@ def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, poi
     if not isinstance(source, Inputs):
         executor.start()  # workers come up while the model and the data set load
         source = load_inputs(source, progress=progress)
+    if settings.seeds and settings.seeds != [int(source.recipe.get("seed", 0))]:
+        return _run_seeds(source, settings, out_dir, executor, point_fn, progress)
     model, ckpt, dataset, recipe = source.model, source.checkpoint, source.dataset, source.recipe
     if settings.aware and ckpt.get("aware"):
         raise UsageError(f"{source.train_dir} holds a conversion-aware checkpoint; an aware sweep fine-tunes each "
                          "point from a float checkpoint: pass the float model's training folder")
     points = make_points(settings, recipe["convert"]["coding"])
-    base = source.train_dir if source.train_dir.is_dir() else source.train_dir.parent
-    out = Path(out_dir) if out_dir is not None else base.parent / "sweep"
+    out = _out_dir(source, out_dir)
     log = ResultsLog(out / "results.jsonl", fingerprints(model, dataset, recipe))
     t1 = time.perf_counter()
     task = PointTask(point_fn or evaluate_point, model, lean(dataset), recipe, ckpt.get("act_max"))
@@ -165,6 +168,33 @@ def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, poi
     write_outputs(result, recipe)
     result.seconds = {"load": round(t1 - t0, 3), "points": round(t2 - t1, 3),
                       "outputs": round(time.perf_counter() - t2, 3)}
+    return result
+
+
+def _out_dir(source: Inputs, out_dir) -> Path:
+    base = source.train_dir if source.train_dir.is_dir() else source.train_dir.parent
+    return Path(out_dir) if out_dir is not None else base.parent / "sweep"
+
+
+def _run_seeds(source: Inputs, settings: SweepSettings, out_dir, executor, point_fn, progress) -> SweepResult:
+    """The sweep over several training seeds (sweep.seeds): one sub-sweep per seed in seed-N/, then
+    the per-seed table, the summary and the recommendation on the means in the sweep folder."""
+    import dataclasses
+
+    from snnconvert.sweep import seeds as S
+    out = _out_dir(source, out_dir)
+    one = dataclasses.replace(settings, seeds=[])
+    per = {}
+    for s in settings.seeds:
+        d = out / f"seed-{s}"
+        per[s] = _run_sweep(S.seed_inputs(source, s, d, progress), one, d, executor, point_fn, progress)
+    rows, summary, frame, rec, means = S.combine(per, settings.tolerance_pp, source.recipe.get("budget"))
+    rec["checkpoint"] = per[settings.seeds[0]].recommendation.get("checkpoint")
+    result = SweepResult(out, means, frame, settings.tolerance_pp, rec, sum(r.computed for r in per.values()),
+                         sum(r.reused for r in per.values()), per_seed=per, summary=summary)
+    write_outputs(result, source.recipe)
+    files.atomic_write_text(out / "sweep.csv", csv_text(rows))       # one row per point and seed
+    S.write_summary(out, summary)
     return result
 
 
