@@ -19,7 +19,7 @@ import cloudpickle  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).parent))
 import test_sweep as fake  # noqa: E402
-from test_sweep_real import TINY  # noqa: E402
+from test_sweep_real import trained  # noqa: E402,F401  (the tiny trained checkpoint, a module fixture)
 
 from snnconvert import sweep  # noqa: E402
 from snnconvert.cli import main  # noqa: E402
@@ -37,19 +37,6 @@ def cluster():
     ex.start()
     yield ex
     ex.close()
-
-
-@pytest.fixture(scope="module")
-def trained(tmp_path_factory):
-    """A tiny CNN trained on 300 simulated-sensor digits (scikit-learn's bundled set)."""
-    from snnconvert import data, recipe, train
-    root = tmp_path_factory.mktemp("tiny")
-    raw = json.loads(json.dumps(TINY))
-    raw["data"]["cache_dir"] = str(root / "cache")
-    r = recipe.from_dict(raw)
-    ds = data.load_dataset(r)
-    train.train(r, ds, root / "train", quiet=True)
-    return root / "train", ds
 
 
 def _external(cluster):
