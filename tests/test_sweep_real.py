@@ -136,11 +136,16 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
     assert code == 0
     lines = capsys.readouterr().out.splitlines()
     rec = json.loads((out / "recommendation.json").read_text())
-    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "loss", "pp", "weight", "kbit", "SOPs/sample",
-                                 "steps", "nJ", "(est.)"]  # two codings: latency and energy columns too
+    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "95", "%", "CI", "loss", "pp", "p", "weight", "kbit",
+                                 "SOPs/sample", "steps", "nJ", "(est.)"]  # two codings: latency and energy columns too
     assert [ln.split()[:3] for ln in lines[2:6]] == [["payload", "3", "1"], ["payload", "3", "2"],
                                                     ["ttfs", "3", "1"], ["ttfs", "3", "2"]]
-    assert lines[-3] == f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} %"
+    # the interval: scipy.stats.binomtest(k, n).proportion_ci(method="wilson") (Wilson 1927)
+    from scipy.stats import binomtest
+    n = json.loads((out / "results.jsonl").read_text().splitlines()[0])["metrics"]["samples"]
+    ci = binomtest(round(rec["frame_accuracy"] * n), n).proportion_ci(method="wilson")
+    assert lines[-3] == (f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} % "
+                         f"(95 % CI [{100 * ci.low:.1f}, {100 * ci.high:.1f}] %)")
     assert lines[-2] == rec["message"] and lines[-1] == f"outputs in {out}"
     # with a 100 pp tolerance every point qualifies: the cheapest is the one with the least weight memory,
     # then the fewest SOPs per sample (the rule in the recommendation), checked against the logged points
