@@ -315,6 +315,7 @@ def _summary(run_: Run) -> dict:
         paths["sweep"] = "sweep/sweep.csv"
     keys = ["frame_accuracy", "frame_model", "aware_bits", "float_accuracy", "loss_vs_float_pp",
             "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "within_tolerance", "agreement",
+            "frame_accuracy_ci", "spike_accuracy_ci", "conversion_loss_p", "frame_only_correct", "spike_only_correct",
             "weight_bits", "payload_bits", "coding", "spikes_per_sample", "sops_per_sample",
             "macs_per_sample", "max_spikes_per_neuron", "weight_memory_bits", "hardware_summary", "budget"]
     s = {k: m.get(k) for k in keys}
@@ -338,10 +339,11 @@ def _print_summary(s: dict) -> None:
         if isinstance(v, bool):
             return "yes" if v else "no"
         if isinstance(v, float):
-            return f"{v:.4g}"
+            return f"{v:.4g}" + stats.annotation(s, k.split(" ")[0])
         if isinstance(v, dict):
             return v.get("label") or ", ".join(f"{k} {v[k]}" for k in list(v)[:4])
         return str(v)
+    from snnconvert import stats
     from snnconvert.sim.metrics import tolerance_verdict
     rows = [(k, s[k]) for k in ("frame_accuracy", "spike_accuracy", "conversion_loss_pp")]
     if s.get("conversion_loss_pp") is not None:

@@ -12,7 +12,7 @@ import html
 import re
 from pathlib import Path
 
-from snnconvert import files, plots
+from snnconvert import files, plots, stats
 from snnconvert.errors import FormatError, UsageError
 
 # (id, title) of every section, in page order; tests check each id is present.
@@ -197,6 +197,18 @@ def _pct(v) -> str:
     return "n/a" if not isinstance(v, (int, float)) or isinstance(v, bool) else f"{100 * float(v):.2f} %"
 
 
+def _pct_ci(v, ci) -> str:
+    """'98.61 % (95 % CI [96.8, 99.4] %)': an accuracy with its Wilson interval when there is one."""
+    if isinstance(ci, (list, tuple)) and len(ci) == 2 and _pct(v) != "n/a":
+        return f"{_pct(v)} (95 % CI {stats.percent_interval(ci)})"
+    return _pct(v)
+
+
+def _pp_p(v, p) -> str:
+    """'0.28 pp (McNemar p = 1.0)': a conversion loss with its paired p-value when there is one."""
+    return _pp(v) + (f" (McNemar {stats.p_text(p)})" if isinstance(p, (int, float)) and _pp(v) != "n/a" else "")
+
+
 def _pp(v) -> str:
     return "n/a" if not isinstance(v, (int, float)) or isinstance(v, bool) else f"{float(v):.2f} pp"
 
@@ -313,8 +325,12 @@ def _training(run: Path) -> str:
         out = [_missing("No training metrics (train/metrics.json).")]
     else:
         aware = m.get("aware")
+        ci = None
+        if isinstance(m.get("test_correct"), int) and isinstance(m.get("test_count"), int) \
+                and 0 <= m["test_correct"] <= m["test_count"]:
+            ci = stats.wilson_interval(m["test_correct"], m["test_count"])
         rows = [["test accuracy of the frame model" + (" (aware, fake-quantized)" if aware else ""),
-                 _pct(m.get("frame_accuracy"))]]
+                 _pct_ci(m.get("frame_accuracy"), ci)]]
         if "test_correct" in m and "test_count" in m:
             rows.append(["test frames classified correctly", f"{_fmt(m['test_correct'])} of {_fmt(m['test_count'])}"])
         if m.get("best_val_accuracy") is not None:
@@ -381,21 +397,28 @@ def _accuracy(run: Path) -> str:
     if fm["kind"] == "aware":
         b = fm["bits"] or {}
         rows = [[f"frame model: aware (fake-quantized, fine-tuned for k={_fmt(b.get('weight_bits'))} "
-                 f"p={_fmt(b.get('payload_bits'))})", _pct(m.get("frame_accuracy"))],
+                 f"p={_fmt(b.get('payload_bits'))})", _pct_ci(m.get("frame_accuracy"), m.get("frame_accuracy_ci"))],
                 ["float model before fine-tuning", _pct(fm["float_accuracy"])]]
     else:
-        rows = [["frame model: float", _pct(m.get("frame_accuracy"))]]
-    rows += [["integer network, evaluated densely", _pct(m.get("quantized_accuracy"))],
-             ["single-spike network, event-driven", _pct(spike)]]
+        rows = [["frame model: float", _pct_ci(m.get("frame_accuracy"), m.get("frame_accuracy_ci"))]]
+    rows += [["integer network, evaluated densely", _pct_ci(m.get("quantized_accuracy"), m.get("quantized_accuracy_ci"))],
+             ["single-spike network, event-driven", _pct_ci(spike, m.get("spike_accuracy_ci"))]]
     out = [_table(["model", "test accuracy"], rows)]
     loss = m.get("conversion_loss_pp")
-    losses = [[f"against the {'aware' if fm['kind'] == 'aware' else 'float'} frame model", _pp(loss)]]
+    losses = [[f"against the {'aware' if fm['kind'] == 'aware' else 'float'} frame model",
+               _pp_p(loss, m.get("conversion_loss_p"))]]
     if fm["kind"] == "aware":
         lf = m.get("loss_vs_float_pp")
         if lf is None and isinstance(fm["float_accuracy"], (int, float)) and isinstance(spike, (int, float)):
             lf = 100.0 * (fm["float_accuracy"] - spike)
         losses.append(["against the float model before fine-tuning", _pp(lf)])
     out.append(_table(["loss of the single-spike network", "percentage points"], losses))
+    if isinstance(m.get("conversion_loss_p"), (int, float)):
+        out.append(f'<p class="note">Intervals: 95 % Wilson score intervals on the {_e(_fmt(m.get("samples")))} test '
+                   f"samples. The loss is paired (both models decide on the same samples): McNemar's exact test on "
+                   f"the {_e(_fmt(m.get('frame_only_correct')))} samples only the frame model gets right and the "
+                   f"{_e(_fmt(m.get('spike_only_correct')))} only the spike network gets right; a large p means the "
+                   "loss cannot be told from noise on this test set.</p>")
     verdict = _within_words(loss, m.get("tolerance_pp"), m.get("within_tolerance"))
     if verdict:
         ok = "yes" in verdict.split("(")[0]
@@ -447,7 +470,10 @@ def _sweep(run: Path) -> str:
             out.append(_table([what, "value"], [
                 ["coding", pt.get("coding", "n/a")], ["weight bits", pt.get("weight_bits", "n/a")],
                 ["payload bits", pt.get("payload_bits", "n/a")],
-                ["spike accuracy", _pct(pt.get("spike_accuracy"))], ["loss against the frame model", _pp(pt.get("loss_pp"))],
+                ["spike accuracy", _pct_ci(pt.get("spike_accuracy"), [pt.get("spike_accuracy_ci_low"),
+                                                                     pt.get("spike_accuracy_ci_high")]
+                                           if pt.get("spike_accuracy_ci_low") is not None else None)],
+                ["loss against the frame model", _pp_p(pt.get("loss_pp"), pt.get("conversion_loss_p"))],
                 ["weight memory (bits)", pt.get("weight_memory_bits", "n/a")],
                 ["SOPs per sample", pt.get("sops_per_sample", "n/a")]]))
         out.append(f'<p class="note">Rule: {_e(rec.get("rule", ""))}. '

@@ -33,8 +33,11 @@ def test_train_command_writes_outputs_and_summary(small_data, tmp_path, capsys):
     m = json.loads((out / "metrics.json").read_text())
     assert {"frame_accuracy", "per_class_accuracy", "epochs", "train_seconds"} <= set(m)
     lines = captured.out.splitlines()
-    assert lines[0].startswith(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/100 test frames); "
-                               f"1 epoch in ")
+    # the interval: scipy.stats.binomtest(k, n).proportion_ci(method="wilson") (Wilson 1927)
+    from scipy.stats import binomtest
+    ci = binomtest(m["test_correct"], 100).proportion_ci(method="wilson")
+    assert lines[0].startswith(f"frame accuracy {100 * m['frame_accuracy']:.2f}% (95 % CI [{100 * ci.low:.1f}, "
+                               f"{100 * ci.high:.1f}] %; {m['test_correct']}/100 test frames); 1 epoch in ")
     assert lines[1] == (f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png, "
                         f"model.onnx")
     assert "seed = 2" in (out / "recipe.toml").read_text()

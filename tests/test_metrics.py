@@ -46,7 +46,21 @@ def test_counts_match_the_reference_simulator(kind, coding, pc, capsys):
         assert m["latency"]["window_steps"] == 2 + 4 * 16           # input window Q_in + 1 = 2, then 4 layer windows of 2^4
     else:
         assert m["early_accuracy"] is None
-    assert "spike_accuracy" in capsys.readouterr().out
+    # intervals and the paired test, checked against scipy on the counts of this test set
+    from scipy.stats import binomtest
+    n = len(yte)
+    for k in ("frame_accuracy", "quantized_accuracy", "spike_accuracy"):
+        ref = binomtest(round(m[k] * n), n).proportion_ci(method="wilson")   # Wilson 1927
+        assert m[k + "_ci"] == pytest.approx([ref.low, ref.high], abs=1e-12)
+    frame_right = model(torch.from_numpy(xte)).argmax(1).numpy() == yte
+    spike_right = np.array([t.decision == y for t, y in zip(traces, yte)])
+    b, c = int((frame_right & ~spike_right).sum()), int((spike_right & ~frame_right).sum())
+    assert (m["frame_only_correct"], m["spike_only_correct"]) == (b, c)
+    assert b - c == round(m["conversion_loss_pp"] * n / 100)                # the loss is the discordant difference
+    ref_p = binomtest(b, b + c, 0.5).pvalue if b + c else 1.0               # McNemar 1947, exact form
+    assert m["conversion_loss_p"] == pytest.approx(ref_p, rel=1e-9)
+    printed = capsys.readouterr().out
+    assert "spike_accuracy" in printed and "95 % CI [" in printed and "(McNemar p " in printed
 
 
 def test_macs_memory_and_energy_follow_their_formulas():

@@ -291,6 +291,18 @@ def test_aware_frame_model_is_named_with_both_losses(tmp_path, net_keys, train_k
     assert "frame model: float" not in acc
 
 
+def test_accuracies_carry_intervals_and_the_loss_its_p_value(tmp_path):
+    net = dict(NET, samples=360, frame_accuracy_ci=[0.9639, 0.9905], quantized_accuracy_ci=[0.915, 0.966],
+               spike_accuracy_ci=[0.915, 0.966], conversion_loss_p=0.0002, frame_only_correct=14,
+               spike_only_correct=1)
+    text, _ = check_page(report.write_report(write_run(tmp_path, net=net)))
+    acc = visible_text(section(text, "accuracy"))
+    assert re.search(r"frame model: float\s+98.00 % \(95 % CI \[96.4, 99.1\] %\)", acc)
+    assert re.search(r"single-spike network, event-driven\s+94.39 % \(95 % CI \[91.5, 96.6\] %\)", acc)
+    assert re.search(r"3.61 pp \(McNemar p < 0.001\)", acc)
+    assert "the 14 samples only the frame model gets right and the 1 only the spike network" in acc
+
+
 def test_float_frame_model_has_one_loss(tmp_path):
     text, _ = check_page(report.write_report(write_run(tmp_path, net=dict(NET, frame_model="float"))))
     acc = visible_text(section(text, "accuracy"))

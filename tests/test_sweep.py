@@ -415,8 +415,8 @@ def test_several_codings_add_latency_and_energy(tmp_path):
     table = sweep.format_table(rows, sweep.recommend(recs, 0.98, 0.5)).splitlines()
     assert table[0].endswith("steps  nJ (est.)")
     # ttfs w3 p2: window_steps = 3 * 2^2 = 12 steps; energy 1000 pJ * 2 = 2.0 nJ (values of _records)
-    assert [ln for ln in table if ln.startswith("ttfs      3  2")][0].split()[7:9] == ["12", "2.0"]
-    assert [ln for ln in table if ln.startswith("payload   3  2")][0].split()[7:9] == ["4", "4.0"]
+    assert [ln for ln in table if ln.startswith("ttfs      3  2")][0].split()[9:11] == ["12", "2.0"]
+    assert [ln for ln in table if ln.startswith("payload   3  2")][0].split()[9:11] == ["4", "4.0"]
     import matplotlib.pyplot as plt
     fig = sweep.codings_figure(rows)
     try:

@@ -136,11 +136,16 @@ def test_cli_prints_table_and_recommendation(trained, tmp_path, capsys):
     assert code == 0
     lines = capsys.readouterr().out.splitlines()
     rec = json.loads((out / "recommendation.json").read_text())
-    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "loss", "pp", "weight", "kbit", "SOPs/sample",
-                                 "steps", "nJ", "(est.)"]  # two codings: latency and energy columns too
+    assert lines[0].split() == ["coding", "W", "P", "spike", "%", "95", "%", "CI", "loss", "pp", "p", "weight", "kbit",
+                                 "SOPs/sample", "steps", "nJ", "(est.)"]  # two codings: latency and energy columns too
     assert [ln.split()[:3] for ln in lines[2:6]] == [["payload", "3", "1"], ["payload", "3", "2"],
                                                     ["ttfs", "3", "1"], ["ttfs", "3", "2"]]
-    assert lines[-3] == f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} %"
+    # the interval: scipy.stats.binomtest(k, n).proportion_ci(method="wilson") (Wilson 1927)
+    from scipy.stats import binomtest
+    n = json.loads((out / "results.jsonl").read_text().splitlines()[0])["metrics"]["samples"]
+    ci = binomtest(round(rec["frame_accuracy"] * n), n).proportion_ci(method="wilson")
+    assert lines[-3] == (f"4 points (4 computed, 0 from results.jsonl); frame accuracy {100 * rec['frame_accuracy']:.2f} % "
+                         f"(95 % CI [{100 * ci.low:.1f}, {100 * ci.high:.1f}] %)")
     assert lines[-2] == rec["message"] and lines[-1] == f"outputs in {out}"
     # with a 100 pp tolerance every point qualifies: the cheapest is the one with the least weight memory,
     # then the fewest SOPs per sample (the rule in the recommendation), checked against the logged points
@@ -167,3 +172,30 @@ def test_aware_point_fine_tunes_from_the_float_checkpoint(trained, tmp_path):
     assert 0.0 <= rec["metrics"]["spike_accuracy"] <= 1.0 and rec["metrics"]["max_spikes_per_neuron"] <= 1
     again = sweep.run_sweep(train_dir, aware, tmp_path / "aw2", progress=False)
     assert again.records[0]["metrics"] == rec["metrics"]  # seeded: the same fine-tuning twice
+
+
+def test_seeds_axis_trains_one_model_per_seed_and_judges_the_mean(trained, tmp_path, capsys):
+    import csv
+    import statistics
+    train_dir, ds = trained
+    inputs = sweep.load_inputs(train_dir, dataset=ds)
+    settings = _settings(weight_bits="2,4", payload_bits="2", seeds="0-1", jobs=1, tolerance_pp=100)
+    res = sweep.run_sweep(inputs, settings, tmp_path / "sw", progress=False)
+    assert sorted(res.per_seed) == [0, 1] and (tmp_path / "sw" / "seed-1" / "train" / "model.pt").is_file()
+    assert not (tmp_path / "sw" / "seed-0" / "train").exists()         # seed 0 is the checkpoint's own
+    rows = list(csv.DictReader((tmp_path / "sw" / "sweep.csv").open()))
+    assert [(r["seed"], r["weight_bits"]) for r in rows] == [("0", "2"), ("0", "4"), ("1", "2"), ("1", "4")]
+    summary = list(csv.DictReader((tmp_path / "sw" / "seeds.csv").open()))
+    for i, row in enumerate(summary):
+        accs = [float(r["spike_accuracy"]) for r in rows if r["weight_bits"] == row["weight_bits"]]
+        # reference: Python's statistics module (sample standard deviation)
+        assert float(row["spike_accuracy_mean"]) == pytest.approx(statistics.mean(accs), abs=1e-12)
+        assert float(row["spike_accuracy_std"]) == pytest.approx(statistics.stdev(accs), abs=1e-12)
+        assert (float(row["spike_accuracy_min"]), float(row["spike_accuracy_max"])) == (min(accs), max(accs))
+        assert res.records[i]["metrics"]["spike_accuracy"] == pytest.approx(statistics.mean(accs), abs=1e-12)
+    rec = json.loads((tmp_path / "sw" / "recommendation.json").read_text())
+    assert rec["seeds"] == [0, 1] and "on the mean over 2 training seeds" in rec["rule"]
+    assert rec["point"]["weight_bits"] == 2                               # cheapest within a 100 pp tolerance
+    assert rec["frame_accuracy"] == pytest.approx(statistics.mean(r.frame_accuracy for r in res.per_seed.values()))
+    again = sweep.run_sweep(inputs, settings, tmp_path / "sw", progress=False)   # resumes every seed
+    assert (again.computed, again.reused) == (0, 4)

@@ -35,7 +35,10 @@ def run(args) -> int:
         a = m["aware"]
         aware = (f" (conversion-aware: {a['weight_bits']}-bit weights, {a['payload_bits']}-bit payloads; "
                  f"float model {100 * m['float_frame_accuracy']:.2f}%)")
-    console.echo(f"frame accuracy {100 * m['frame_accuracy']:.2f}% ({m['test_correct']}/{m['test_count']} test frames)"
+    from snnconvert.stats import percent_interval, wilson_interval
+    ci = percent_interval(wilson_interval(m["test_correct"], m["test_count"]))
+    console.echo(f"frame accuracy {100 * m['frame_accuracy']:.2f}% (95 % CI {ci}; {m['test_correct']}/{m['test_count']} "
+                 f"test frames)"
                  f"{aware}; {console.plural(m['epochs'], 'epoch')} in {m['train_seconds']:.1f} s; {m['params']:,} parameters, "
                  f"{m['macs']:,} MACs per sample")
     console.echo(f"wrote {out}/model.pt, recipe.toml, metrics.json, history.csv, curves.png, confusion.png"

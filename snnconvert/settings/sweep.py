@@ -82,6 +82,32 @@ def parse_codings(value, name: str = "codings", owner: str = "sweep") -> list[st
     return out
 
 
+_SCHEDULER = re.compile(r"^(?:local:(\d+)|(?:tcp|tls)://[^\s/:]+:\d+/?)$")
+
+
+def parse_scheduler(value, name: str = "scheduler", owner: str = "sweep") -> str:
+    """'' (this machine's process pool), 'local:N' (a Dask cluster of N worker processes started here,
+    N in [1, 256]) or 'tcp://HOST:PORT' / 'tls://HOST:PORT' (a running Dask scheduler)."""
+    m = _SCHEDULER.match(value.strip()) if isinstance(value, str) else None
+    if isinstance(value, str) and value.strip() == "":
+        return ""
+    if m is None or (m.group(1) is not None and not 1 <= int(m.group(1)) <= 256):
+        raise UsageError(f"The '{name}' parameter of {owner} must be '' (this machine), 'local:N' (N worker "
+                         f"processes, 1 to 256) or 'tcp://HOST:PORT' (a running scheduler). Got {value!r} instead.")
+    return value.strip()
+
+
+def _scheduler_validator(value, key: str, section: str) -> str:
+    return parse_scheduler(value, key, section)
+
+
+def _seeds_validator(value, key: str, section: str) -> list[int]:
+    """'' or [] -> [] (the recipe seed only); else a grid of seeds, e.g. "0-4"."""
+    if value == "" or value == []:
+        return []
+    return parse_grid(value, key, section, 0, 2**31 - 1)
+
+
 def _grid_validator(lo: int, hi: int):
     def check(value, key: str, section: str) -> list[int]:
         return parse_grid(value, key, section, lo, hi)
@@ -105,6 +131,10 @@ KEYS: dict[str, Key] = {
     "aware_epochs": Key(2, "int", "a couple of epochs recover most of the loss at low bit-widths", lo=1, hi=1000),
     "jobs": Key(0, "int", "0 = one process per usable core, fewer when memory is short; points are independent",
                 lo=0, hi=256),
+    "scheduler": Key("", "any", "empty: this machine's process pool; 'local:N' or 'tcp://HOST:PORT' run the points on a "
+                     "Dask cluster", validator=_scheduler_validator),
+    "seeds": Key("", "any", "empty: the recipe seed only; '0-4' trains one model per seed and judges points on the mean",
+                 validator=_seeds_validator),
     "tolerance_pp": Key(0.5, "float", "half a point of accuracy is within run-to-run noise of small test sets",
                         lo=0.0, hi=100.0),
 }
@@ -126,4 +156,6 @@ class SweepSettings(Section):
     aware: bool
     aware_epochs: int
     jobs: int
+    scheduler: str
+    seeds: list[int]
     tolerance_pp: float

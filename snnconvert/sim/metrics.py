@@ -1,6 +1,9 @@
 """What a conversion cost: accuracy, spikes, operations, widths, memory, latency, estimated energy.
 
     conversion_loss_pp = 100 * (frame_accuracy - spike_accuracy)   (against the frame model converted)
+    *_accuracy_ci      = 95 % Wilson score interval of the accuracy on the test samples (snnconvert.stats)
+    conversion_loss_p  = McNemar's exact p-value of the paired decisions of the frame model and the spike
+                         network on the same samples (discordant: frame_only_correct, spike_only_correct)
     loss_vs_float_pp   = 100 * (float_accuracy - spike_accuracy)   (against the float model before
                          conversion-aware fine-tuning; equal to conversion_loss_pp for a float model)
     sops_per_sample    = mean over samples of sum over emitted events of the event's fan-out
@@ -31,7 +34,7 @@ from __future__ import annotations
 import numpy as np
 import torch
 
-from snnconvert import arith, console
+from snnconvert import arith, console, stats
 from snnconvert.intnet import IntNetwork
 from snnconvert.sim.reference import Tables
 from snnconvert.sim.vectorized import simulate
@@ -140,8 +143,16 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     spike_pred = res.decisions
     out["quantized_accuracy"] = float((quant_pred == y).mean())
     out["spike_accuracy"] = float((spike_pred == y).mean())
+    n = len(y)
+    for k, pred in (("frame", frame_pred if float_model is not None else None), ("quantized", quant_pred),
+                    ("spike", spike_pred)):
+        if pred is not None:
+            out[f"{k}_accuracy_ci"] = list(stats.wilson_interval(int((pred == y).sum()), n))
     if float_model is not None:
         out["conversion_loss_pp"] = 100.0 * (out["frame_accuracy"] - out["spike_accuracy"])
+        b, c = stats.discordant_pairs(frame_pred == y, spike_pred == y)
+        out["frame_only_correct"], out["spike_only_correct"] = b, c
+        out["conversion_loss_p"] = stats.mcnemar_exact_p(b, c)
         out["agreement"] = float((frame_pred == spike_pred).mean())
         out["within_tolerance"] = bool(out["conversion_loss_pp"] <= tolerance_pp)
         kind, bits = frame_model_kind(float_model)
@@ -251,11 +262,11 @@ def format_table(m: dict) -> str:
     if aware:   # the frame model that was converted is the fake-quantized one: name it, then the float one
         b = m.get("aware_bits") or {}
         rows.append((f"frame model (aware, fine-tuned for k={b.get('weight_bits')} p={b.get('payload_bits')})",
-                     f(m.get("frame_accuracy"))))
+                     f(m.get("frame_accuracy")) + stats.annotation(m, "frame_accuracy")))
         rows.append(("float model before fine-tuning", f(m.get("float_accuracy"))))
     for k in ("frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp"):
         if k in m and not (aware and k == "frame_accuracy"):
-            rows.append((k, f(m[k])))
+            rows.append((k, f(m[k]) + stats.annotation(m, k)))
     if aware:
         rows.append(("loss vs float model (pp)", f(m.get("loss_vs_float_pp"))))
     if "conversion_loss_pp" in m:

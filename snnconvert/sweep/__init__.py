@@ -10,6 +10,7 @@ One job per module, in the order a sweep runs:
     grid        the points of the grid, in a fixed order, each with a stable key
     point       one point: convert and measure (PointTask: what an executor runs)
     executor    where points run: this process or a local process pool (the seam for other engines)
+    cluster     the Dask back-end of the seam (scheduler = "local:N" or "tcp://HOST:PORT")
     log         results.jsonl: append, read with every field checked, resume
     front       the Pareto front, the reference accuracy and the recommendation
     tables      rows, sweep.csv and the printed table
@@ -25,8 +26,8 @@ One job per module, in the order a sweep runs:
 
 from snnconvert.settings.sweep import (KEYS, PAYLOAD_BITS_RANGE, WEIGHT_BITS_RANGE, SweepSettings, parse_codings,
                                        parse_grid)
-from snnconvert.sweep.executor import (Executor, LocalPool, Serial, available_memory, local_executor,
-                                       resolve_jobs, usable_cpus)
+from snnconvert.sweep.executor import (Executor, LocalPool, Serial, available_memory, close_executor, executor_for,
+                                       local_executor, resolve_jobs, usable_cpus)
 from snnconvert.sweep.figures import codings_figure, heatmap_figure, pareto_figure
 from snnconvert.sweep.front import (METRIC_COLUMNS, RECOMMENDATION_FORMAT, checkpoint_info, loss_pp, pareto_front,
                                     recommend)
@@ -36,4 +37,4 @@ from snnconvert.sweep.point import PointTask, evaluate_point
 from snnconvert.sweep.run import Inputs, SweepResult, load_inputs, run_from_recipe, run_sweep
 from snnconvert.sweep.tables import csv_text, format_table, table_rows
 
-__all__ = ['KEYS', 'PAYLOAD_BITS_RANGE', 'WEIGHT_BITS_RANGE', 'SweepSettings', 'parse_codings', 'parse_grid', 'Executor', 'LocalPool', 'Serial', 'available_memory', 'local_executor', 'resolve_jobs', 'usable_cpus', 'codings_figure', 'heatmap_figure', 'pareto_figure', 'METRIC_COLUMNS', 'RECOMMENDATION_FORMAT', 'checkpoint_info', 'loss_pp', 'pareto_front', 'recommend', 'PARAM_COLUMNS', 'make_points', 'point_key', 'RESULTS_FORMAT', 'ResultsLog', 'check_record', 'read_results', 'PointTask', 'evaluate_point', 'Inputs', 'SweepResult', 'load_inputs', 'run_from_recipe', 'run_sweep', 'csv_text', 'format_table', 'table_rows']
+__all__ = ['KEYS', 'PAYLOAD_BITS_RANGE', 'WEIGHT_BITS_RANGE', 'SweepSettings', 'parse_codings', 'parse_grid', 'Executor', 'LocalPool', 'Serial', 'available_memory', 'close_executor', 'executor_for', 'local_executor', 'resolve_jobs', 'usable_cpus', 'codings_figure', 'heatmap_figure', 'pareto_figure', 'METRIC_COLUMNS', 'RECOMMENDATION_FORMAT', 'checkpoint_info', 'loss_pp', 'pareto_front', 'recommend', 'PARAM_COLUMNS', 'make_points', 'point_key', 'RESULTS_FORMAT', 'ResultsLog', 'check_record', 'read_results', 'PointTask', 'evaluate_point', 'Inputs', 'SweepResult', 'load_inputs', 'run_from_recipe', 'run_sweep', 'csv_text', 'format_table', 'table_rows']

@@ -171,3 +171,20 @@ def local_executor(jobs=None) -> Serial | LocalPool:
     """The executor for a job count (0 or None: automatic, see resolve_jobs)."""
     n = resolve_jobs(jobs)
     return Serial() if n == 1 else LocalPool(n)
+
+
+def executor_for(settings):
+    """The executor of a [sweep] section: a Dask cluster when `scheduler` is set (sweep.cluster),
+    else the local one for `jobs`. A caller that made it calls `close_executor` when done."""
+    if getattr(settings, "scheduler", ""):
+        from snnconvert.sweep.cluster import DaskExecutor
+        return DaskExecutor(settings.scheduler)
+    return local_executor(settings.jobs)
+
+
+def close_executor(executor) -> None:
+    """End what an executor started (a Dask client and its LocalCluster); the local pools keep their
+    idle workers for the next sweep."""
+    close = getattr(executor, "close", None)
+    if close is not None:
+        close()

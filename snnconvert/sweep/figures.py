@@ -72,6 +72,8 @@ def heatmap_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float 
     rec = (recommendation or {}).get("point") or {}
     groups = _grid_groups(rows, lambda r: r["loss_pp"])
     acc = {(r["coding"], r["weight_bits"], r["payload_bits"]): 100 * r["spike_accuracy"] for r in rows}
+    spread = {(r["coding"], r["weight_bits"], r["payload_bits"]): f" \u00b1{100 * r['spike_accuracy_std']:.1f}"
+              for r in rows if isinstance(r.get("spike_accuracy_std"), float)}   # over seeds: one standard deviation
     wb = sorted({r["weight_bits"] for r in rows})
     widths = [max(1.5, len({p for _, p in g})) for _, g in groups]
     cmap, norm, edges = loss_scale([r["loss_pp"] for r in rows], tolerance_pp)
@@ -88,7 +90,7 @@ def heatmap_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float 
             i, j = wb.index(w), pb.index(p)
             rgb = cmap(norm(v))[:3]
             dark = 0.299 * rgb[0] + 0.587 * rgb[1] + 0.114 * rgb[2] < 0.5
-            ax.text(j, i, f"{acc[(cods[0], w, p)]:.1f} %\n{v:+.2f} pp", ha="center", va="center", fontsize=7,
+            ax.text(j, i, f"{acc[(cods[0], w, p)]:.1f}{spread.get((cods[0], w, p), '')} %\n{v:+.2f} pp", ha="center", va="center", fontsize=7,
                     color="white" if dark else "black")
             if v <= tolerance_pp + 1e-9:
                 ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, ec="black", lw=1.6))
@@ -205,6 +207,10 @@ def pareto_figure(rows: list[dict], frame_accuracy: float, tolerance_pp: float, 
             shown = [r for r in pts if 100 * r["spike_accuracy"] >= lo]
             ax.scatter([r[cost] for r in shown], [100 * r["spike_accuracy"] for r in shown], s=26, alpha=0.75,
                        marker=markers.get(c, "o"), label=f"{c} points", zorder=3)
+            if shown and all(isinstance(r.get("spike_accuracy_std"), float) for r in shown):   # spread over seeds
+                ax.errorbar([r[cost] for r in shown], [100 * r["spike_accuracy"] for r in shown],
+                            yerr=[100 * r["spike_accuracy_std"] for r in shown], fmt="none", ecolor="gray",
+                            elinewidth=0.8, capsize=2, zorder=2)
         front = sorted((r for r in rows if r[flag]), key=lambda r: r[cost])
         ax.step([r[cost] for r in front], [100 * r["spike_accuracy"] for r in front], where="post",
                 color="crimson", lw=1.3, label="Pareto front", zorder=2)

@@ -17,8 +17,8 @@ RECOMMENDATION_FORMAT = "snnconvert-sweep-recommendation"
 RECOMMENDATION_VERSION = 1
 
 # The main metrics of a point: kept in the recommendation, and the columns of sweep.csv after the params.
-METRIC_COLUMNS = ["frame_accuracy", "quantized_accuracy", "spike_accuracy", "conversion_loss_pp", "agreement",
-                  "spikes_per_sample", "sops_per_sample", "macs_per_sample", "weight_memory_bits"]
+METRIC_COLUMNS = ["frame_accuracy", "quantized_accuracy", "spike_accuracy", "spike_accuracy_ci_low",
+                  "spike_accuracy_ci_high", "conversion_loss_pp", "conversion_loss_p", "agreement", "spikes_per_sample", "sops_per_sample", "macs_per_sample", "weight_memory_bits"]
 # Cost-model estimates of a point (sweep.csv columns after the metrics; flattened from hardware_summary).
 COST_COLUMNS = ["hardware_summary.block_rams", "hardware_summary.memory_bits", "hardware_summary.latency_us",
                 "hardware_summary.samples_per_s", "hardware_summary.energy_nj"]
@@ -49,12 +49,15 @@ def _scalar(v) -> bool:
 
 
 def record_row(rec: dict) -> dict:
-    """Flatten a result record into params + scalar metrics; a dict of scalars becomes `name.key` columns."""
+    """Flatten a result record into params + scalar metrics; a dict of scalars becomes `name.key` columns,
+    an interval `name_ci` the columns `name_ci_low` and `name_ci_high`."""
     row = dict(rec["params"])
     for k, v in rec["metrics"].items():
         if k in _NOT_COPIED:
             continue
-        if _scalar(v):
+        if k.endswith("_ci") and isinstance(v, (list, tuple)) and len(v) == 2:
+            row[f"{k}_low"], row[f"{k}_high"] = v
+        elif _scalar(v):
             row[k] = v
         elif isinstance(v, dict):
             row.update({f"{k}.{k2}": v2 for k2, v2 in v.items() if _scalar(v2)})

@@ -24,7 +24,7 @@ VERSION = 1
 _RECORD_METRICS = {"spike_accuracy": (0.0, 1.0), "weight_memory_bits": (0, None), "sops_per_sample": (0.0, None)}
 _OPTIONAL_METRICS = {"frame_accuracy": (0.0, 1.0), "quantized_accuracy": (0.0, 1.0), "agreement": (0.0, 1.0),
                      "spikes_per_sample": (0.0, None), "macs_per_sample": (0.0, None),
-                     "conversion_loss_pp": (-100.0, 100.0)}
+                     "conversion_loss_pp": (-100.0, 100.0), "conversion_loss_p": (0.0, 1.0)}
 
 
 def make_record(point: dict, metrics: dict, timing: dict, fingerprints: dict) -> dict:

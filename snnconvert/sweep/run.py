@@ -15,7 +15,7 @@ from typing import Any, Callable
 from snnconvert import console, files, plots
 from snnconvert.errors import UsageError
 from snnconvert.settings.sweep import SweepSettings
-from snnconvert.sweep.executor import Executor, local_executor
+from snnconvert.sweep.executor import Executor, close_executor, executor_for
 from snnconvert.sweep.figures import codings_figure, plot_heatmap, plot_pareto
 from snnconvert.sweep.front import checkpoint_info, recommend, reference_accuracy
 from snnconvert.sweep.grid import make_points
@@ -64,6 +64,8 @@ class SweepResult:
     reused: int                         # points taken from results.jsonl
     fingerprints: dict = field(default_factory=dict)
     seconds: dict = field(default_factory=dict)   # wall time of "load", "points", "outputs"
+    per_seed: dict = field(default_factory=dict)  # several seeds: {seed: that seed's SweepResult}
+    summary: list = field(default_factory=list)   # several seeds: mean, std and range per point (seeds.csv)
 
 
 def fingerprints(model, dataset, recipe: dict) -> dict:
@@ -88,11 +90,13 @@ def run_points(points: list[dict], task: Callable, log: ResultsLog, executor: Ex
     pending = [p for p in points if p["key"] not in done]
     results = executor.map_points(task, pending)
     bar = console.bar(results, total=len(pending), desc="sweep", unit="point", enabled=progress and bool(pending))
+    status = getattr(executor, "status", None)   # engines that know it: points running and failed
     for point, metrics, timing in bar:
         rec = make_record(point, metrics, timing, log.fingerprints)
         log.append(rec)
         done[point["key"]] = rec
-        bar.set_postfix_str(point["key"])
+        bar.set_postfix_str((f"running {status['running']}, failed {status['failed']}, " if status else "")
+                            + point["key"])
     return [done[p["key"]] for p in points], len(pending)
 
 
@@ -125,21 +129,32 @@ def run_sweep(source, settings: SweepSettings, out_dir=None, *, executor: Execut
     source: an `Inputs`, or a training folder (loaded with its checkpoint's recipe). The recipe
     supplies the [convert] settings, the seed, and the [convert] coding when `settings.codings` is
     empty; it is saved beside the outputs as given. out_dir: default the folder `sweep` beside the
-    training folder. executor: where the points run (default `local_executor(settings.jobs)`).
+    training folder. executor: where the points run (default `executor_for(settings)`, closed at
+    the end; an executor passed in is left open for its owner).
     point_fn(model, dataset, recipe, act_max, point) -> metrics replaces the real conversion (tests).
     """
+    owned = executor is None
+    executor = executor if executor is not None else executor_for(settings)
+    try:
+        return _run_sweep(source, settings, out_dir, executor, point_fn, progress)
+    finally:
+        if owned:
+            close_executor(executor)
+
+
+def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, point_fn, progress: bool) -> SweepResult:
     t0 = time.perf_counter()
-    executor = executor if executor is not None else local_executor(settings.jobs)
     if not isinstance(source, Inputs):
         executor.start()  # workers come up while the model and the data set load
         source = load_inputs(source, progress=progress)
+    if settings.seeds and settings.seeds != [int(source.recipe.get("seed", 0))]:
+        return _run_seeds(source, settings, out_dir, executor, point_fn, progress)
     model, ckpt, dataset, recipe = source.model, source.checkpoint, source.dataset, source.recipe
     if settings.aware and ckpt.get("aware"):
         raise UsageError(f"{source.train_dir} holds a conversion-aware checkpoint; an aware sweep fine-tunes each "
                          "point from a float checkpoint: pass the float model's training folder")
     points = make_points(settings, recipe["convert"]["coding"])
-    base = source.train_dir if source.train_dir.is_dir() else source.train_dir.parent
-    out = Path(out_dir) if out_dir is not None else base.parent / "sweep"
+    out = _out_dir(source, out_dir)
     log = ResultsLog(out / "results.jsonl", fingerprints(model, dataset, recipe))
     t1 = time.perf_counter()
     task = PointTask(point_fn or evaluate_point, model, lean(dataset), recipe, ckpt.get("act_max"))
@@ -156,11 +171,41 @@ def run_sweep(source, settings: SweepSettings, out_dir=None, *, executor: Execut
     return result
 
 
+def _out_dir(source: Inputs, out_dir) -> Path:
+    base = source.train_dir if source.train_dir.is_dir() else source.train_dir.parent
+    return Path(out_dir) if out_dir is not None else base.parent / "sweep"
+
+
+def _run_seeds(source: Inputs, settings: SweepSettings, out_dir, executor, point_fn, progress) -> SweepResult:
+    """The sweep over several training seeds (sweep.seeds): one sub-sweep per seed in seed-N/, then
+    the per-seed table, the summary and the recommendation on the means in the sweep folder."""
+    import dataclasses
+
+    from snnconvert.sweep import seeds as S
+    out = _out_dir(source, out_dir)
+    one = dataclasses.replace(settings, seeds=[])
+    per = {}
+    for s in settings.seeds:
+        d = out / f"seed-{s}"
+        per[s] = _run_sweep(S.seed_inputs(source, s, d, progress), one, d, executor, point_fn, progress)
+    rows, summary, frame, rec, means = S.combine(per, settings.tolerance_pp, source.recipe.get("budget"))
+    rec["checkpoint"] = per[settings.seeds[0]].recommendation.get("checkpoint")
+    result = SweepResult(out, means, frame, settings.tolerance_pp, rec, sum(r.computed for r in per.values()),
+                         sum(r.reused for r in per.values()), per_seed=per, summary=summary)
+    write_outputs(result, source.recipe)
+    files.atomic_write_text(out / "sweep.csv", csv_text(rows))       # one row per point and seed
+    S.write_summary(out, summary)
+    return result
+
+
 def run_from_recipe(train_dir, recipe: dict, out_dir, progress: bool = True, *, dataset=None) -> SweepResult:
     """The sweep of a pipeline run: grid and options from the recipe's [sweep] section; `dataset`,
     when the caller holds it, is used instead of loading it again."""
     settings = SweepSettings.from_section(recipe["sweep"])
-    executor = local_executor(settings.jobs)
-    executor.start()
-    inputs = load_inputs(train_dir, recipe=recipe, dataset=dataset, progress=progress)
-    return run_sweep(inputs, settings, out_dir, executor=executor, progress=progress)
+    executor = executor_for(settings)
+    try:
+        executor.start()
+        inputs = load_inputs(train_dir, recipe=recipe, dataset=dataset, progress=progress)
+        return run_sweep(inputs, settings, out_dir, executor=executor, progress=progress)
+    finally:
+        close_executor(executor)

@@ -56,6 +56,16 @@ def energy_nj(row: dict):
     return v / 1000.0 if isinstance(v, (int, float)) and not isinstance(v, bool) else None
 
 
+def _ci_cell(row: dict) -> str:
+    lo, hi = row.get("spike_accuracy_ci_low"), row.get("spike_accuracy_ci_high")
+    return "-" if lo is None or hi is None else f"{100 * lo:.1f}-{100 * hi:.1f}"
+
+
+def _p_cell(row: dict) -> str:
+    p = row.get("conversion_loss_p")
+    return "-" if p is None else "<0.001" if p < 0.001 else f"{p:.3f}" if p < 0.995 else "1.0"
+
+
 def format_table(rows: list[dict], recommendation: dict) -> str:
     """The concise end-of-sweep table; '*' marks the memory Pareto front, '<' the recommendation.
 
@@ -65,7 +75,8 @@ def format_table(rows: list[dict], recommendation: dict) -> str:
     """
     rec = recommendation.get("point") or {}
     multi = len({r["coding"] for r in rows}) > 1
-    head = f"{'coding':<8} {'W':>2} {'P':>2} {'spike %':>8} {'loss pp':>8} {'weight kbit':>11} {'SOPs/sample':>12}"
+    head = (f"{'coding':<8} {'W':>2} {'P':>2} {'spike %':>8} {'95 % CI':>13} {'loss pp':>8} {'p':>6} "
+            f"{'weight kbit':>11} {'SOPs/sample':>12}")
     if multi:
         head += f" {'steps':>6} {'nJ (est.)':>10}"
     lines = []
@@ -78,12 +89,13 @@ def format_table(rows: list[dict], recommendation: dict) -> str:
         if rec and all(rec.get(k) == r.get(k) for k in PARAM_COLUMNS):
             mark += "<"
         line = (f"{r['coding']:<8} {r['weight_bits']:>2} {r['payload_bits']:>2} "
-                f"{100 * r['spike_accuracy']:>8.2f} {r['loss_pp']:>8.2f} "
+                f"{100 * r['spike_accuracy']:>8.2f} {_ci_cell(r):>13} {r['loss_pp']:>8.2f} {_p_cell(r):>6} "
                 f"{r['weight_memory_bits'] / 1000:>11.2f} {r['sops_per_sample']:>12,.0f}")
         if multi:
             steps, nj = latency_steps(r), energy_nj(r)
             line += f" {'-' if steps is None else f'{steps:,.0f}':>6} {'-' if nj is None else f'{nj:,.1f}':>10}"
         lines.append(f"{line} {mark}")
+    lines.append("95 % CI: Wilson interval of the spike accuracy   p: McNemar's exact test of the loss (paired samples)")
     lines.append("* on the accuracy / weight-memory Pareto front   < recommended" +
                  ("   steps: latency in time steps   nJ: energy estimate per sample" if multi else ""))
     wb = recommendation.get("within_budget")
