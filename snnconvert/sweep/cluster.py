@@ -40,6 +40,8 @@ def call_task(task: Callable, point: dict) -> tuple:
     return task(point)
 
 
+RETRIES = 3  # a point whose worker dies is run again at most this often: a crash that repeats is a bug, not bad luck
+
 class DaskExecutor:
     """The executor seam on Dask (module docstring). `close()` ends a LocalCluster it started."""
 
@@ -86,17 +88,37 @@ class DaskExecutor:
         from distributed import as_completed
         self.start()
         shared = self.client.scatter(task, broadcast=True, hash=False)   # the data travels once per worker
-        futures = [self.client.submit(call_task, shared, p, key=f"point-{p['key']}-{shared.key}",
-                                      pure=False) for p in points]
+        point_of, tries = {}, {}
+
+        def submit(p, data, attempt=0):
+            f = self.client.submit(call_task, data, p, key=f"point-{p['key']}-{data.key}-{attempt}", pure=False)
+            point_of[f.key] = p
+            return f
+
+        futures = [submit(p, shared) for p in points]
         self.status.update(running=len(futures), failed=0)
         first_error = None
+        queue = as_completed(futures)
         try:
-            for f in as_completed(futures):
+            for f in queue:
+                p = point_of[f.key]
+                if f.status == "cancelled":
+                    # a worker died with the point (or its copy of the inputs): the point is run again, up to
+                    # RETRIES times, on inputs scattered anew if the cluster lost them
+                    tries[p["key"]] = tries.get(p["key"], 0) + 1
+                    if tries[p["key"]] <= RETRIES:
+                        if shared.status != "finished":
+                            shared = self.client.scatter(task, broadcast=True, hash=False)
+                        g = submit(p, shared, tries[p["key"]])
+                        futures.append(g)
+                        queue.add(g)
+                        continue
                 self.status["running"] -= 1
-                if f.status == "error":
+                if f.status in ("error", "cancelled"):
                     self.status["failed"] += 1
                     if first_error is None:
-                        first_error = f.exception()
+                        first_error = (f.exception() if f.status == "error" else
+                                       RuntimeError(f"point {p['key']} was lost {RETRIES + 1} times with its worker"))
                     continue
                 yield f.result()
         finally:  # on Ctrl-C: points not finished are cancelled; finished ones were logged by the caller
