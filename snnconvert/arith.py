@@ -88,7 +88,19 @@ def round_half_even(x: np.ndarray) -> np.ndarray:
 
 def weight_scale(w: np.ndarray, bits: int, per_channel: bool, rule: str = "max",
                  percentile: float = 99.99, floor: float | None = None) -> np.ndarray:
-    """s_w = r / (2^(k-1) - 1), with r = max|w| (rule "max") or the given percentile of |w|.
+    """s_w = r / (2^(k-1) - 1), with r = max|w| (rule "max"), the given percentile of |w|
+    (rule "percentile", `percentile` = Q), or, rule "mean" with `percentile` = c:
+
+        r = min(max|w|, 2 c mean|w| (2^(k-1) - 1)),  i.e.  s_w = min(max|w| / (2^(k-1) - 1), 2 c mean|w|)
+
+    The "mean" rule sets the first rounding boundary of the grid, s_w / 2, at the threshold
+    Delta = c mean|w| of Ternary Weight Networks (Li & Liu 2016, Delta ~ 0.7 mean|w| for weights
+    spread like a normal or uniform law): at k = 2 (ternary) a weight becomes +-1 when |w| > Delta.
+    With max-abs scales a ternary grid zeroes every weight below max|w| / 2, which for a wide
+    layer is nearly all of them. The stored level is s_w = 2 Delta rather than TWN's mean of |w| above
+    Delta: one scale sets both the boundary and the level on the integer grid, and the level's
+    constant factor per layer (or channel) is absorbed by the next requantization. At wider grids
+    the same step 2 Delta holds until the grid would reach past max|w|; then the max rule takes over.
 
     Per channel, each channel's range is floored at a fraction of the layer's largest:
         r_o = max(r_o, f * max_o r_o),   f = CHANNEL_RANGE_FLOOR = 2^-8 unless `floor` is given,
@@ -111,8 +123,10 @@ def weight_scale(w: np.ndarray, bits: int, per_channel: bool, rule: str = "max",
         r = a.max(axis=1)
     elif rule == "percentile":
         r = np.percentile(a, percentile, axis=1)
+    elif rule == "mean":
+        r = np.minimum(a.max(axis=1), 2.0 * float(percentile) * a.mean(axis=1) * weight_max(bits))
     else:
-        raise ValueError(f"unknown weight scale rule {rule!r}; use 'max' or 'percentile'")
+        raise ValueError(f"unknown weight scale rule {rule!r}; use 'max', 'percentile' or 'mean'")
     r = channel_ranges(r, CHANNEL_RANGE_FLOOR if floor is None else floor)
     s = r / weight_max(bits)
     if not per_channel:

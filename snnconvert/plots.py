@@ -66,3 +66,33 @@ def confusion_figure(cm, classes, title: str = "confusion matrix"):
     ax.set_ylabel("true")
     ax.set_title(title, fontsize=9)
     return fig
+
+
+def save_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
+    """PNG file of a confusion matrix (`confusion_figure`), written atomically."""
+    return save_png(confusion_figure(cm, classes, title), path)
+
+
+def save_training_curves(history: list[dict], path, title: str = "training") -> Path:
+    """PNG: loss (left) and accuracy (right) per epoch, train and validation; aware epochs shaded."""
+    plt = pyplot()
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=100)
+    ep = [i + 1 for i in range(len(history))]
+    a1.plot(ep, [h["train_loss"] for h in history], label="train")
+    a1.plot(ep, [h["val_loss"] if h["val_loss"] is not None else float("nan") for h in history], label="validation")
+    a2.plot(ep, [100 * h["train_accuracy"] for h in history], label="train")
+    a2.plot(ep, [100 * h["val_accuracy"] if h["val_accuracy"] is not None else float("nan") for h in history],
+            label="validation")
+    aware = [e for e, h in zip(ep, history) if h["phase"] == "aware"]
+    for ax in (a1, a2):
+        if aware:
+            ax.axvspan(aware[0] - 0.5, aware[-1] + 0.5, color="orange", alpha=0.15, label="conversion-aware")
+        ax.set_xlabel("epoch")
+        ax.xaxis.get_major_locator().set_params(integer=True)  # epochs are whole numbers
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=8)
+    a1.set_ylabel("cross-entropy loss")
+    a2.set_ylabel("accuracy (%)")
+    fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return save_png(fig, path)

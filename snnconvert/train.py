@@ -1,4 +1,4 @@
-"""Train the frame CNN on CPU; optional conversion-aware fine-tuning; checkpoint and evaluation.
+"""The training loop: train the frame CNN on CPU, optionally fine-tune it conversion-aware, evaluate.
 
 One call, `train(recipe, dataset, out_dir)`, writes to out_dir:
     model.pt       checkpoint (torch.load(weights_only=True) safe: tensors and plain containers)
@@ -11,6 +11,10 @@ One call, `train(recipe, dataset, out_dir)`, writes to out_dir:
 Every random draw comes from the recipe seed: weight init and dropout (torch.manual_seed of a
 sub-seed), batch order and augmentation (a torch.Generator of another sub-seed). Same recipe,
 same data, same thread count -> bit-identical checkpoint.
+
+The checkpoint format lives in `checkpoint`, augmentation in `augment`, the figures in `plots`;
+load_checkpoint, check_checkpoint_fits, augment, plot_confusion and plot_curves stay importable
+from here.
 """
 
 from __future__ import annotations
@@ -28,15 +32,14 @@ import numpy as np
 import torch
 from torch import nn
 
-from snnconvert import console, files, models, plots
+from snnconvert import aware as aware_mod
+from snnconvert import checkpoint, console, files, models, plots
+from snnconvert.augment import augment
+from snnconvert.bnfold import fold_batchnorm
+from snnconvert.checkpoint import (CHECKPOINT_FORMAT, CHECKPOINT_VERSION, aware_weight_rule,  # noqa: F401
+                                   check_checkpoint_fits, check_model_fits, load_checkpoint)
 from snnconvert import recipe as recipe_mod
-from snnconvert.errors import (FormatError, UsageError, check_bool, check_float, check_int, check_shape,
-                               fail)
-
-CHECKPOINT_FORMAT = "snnconvert-checkpoint"
-CHECKPOINT_VERSION = 1
-
-
+from snnconvert.errors import UsageError, check_bool, check_int
 
 # ---------------------------------------------------------------- public API
 
@@ -115,29 +118,17 @@ def train(recipe: dict, dataset, out_dir, init=None, quiet: bool = False) -> tup
         "aware": aware_info,
         "data_fingerprint": str(dataset.fingerprint),
     }
-    # an aware model has no BN left, so its spec rebuilds the folded float skeleton for make_aware
-    spec = {"layers": models.spec_from_model(model), "input_shape": list(input_shape), "n_classes": n_classes,
-            "classes": [str(c) for c in dataset.classes], "input_q": int(dataset.input_q)}
-    ckpt = {
-        "format": CHECKPOINT_FORMAT, "version": CHECKPOINT_VERSION,
-        "state_dict": {k: v.detach().clone() for k, v in model.state_dict().items()},
-        "model_spec": spec,
-        "recipe": copy.deepcopy(recipe),  # keeps _base_dir so relative data paths still resolve
-        "data_fingerprint": str(dataset.fingerprint),
-        "metrics": metrics,
-        "act_max": act_max,
-        "aware": aware_info,
-    }
     out_dir.mkdir(parents=True, exist_ok=True)
+    ckpt = checkpoint.make_checkpoint(model, dataset, recipe, metrics, act_max, aware_info)
     files.atomic_torch_save(ckpt, out_dir / "model.pt")
     recipe_mod.save(recipe, out_dir)
     files.atomic_write_json(out_dir / "metrics.json", metrics)
     _write_history(history, out_dir / "history.csv")
     _write_float_onnx(float_model, input_shape, out_dir / "model.onnx", quiet)
-    plot_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training" + (
+    plots.save_training_curves(history, out_dir / "curves.png", title=f"{recipe.get('name', 'model')}: training" + (
         f" (conversion-aware fine-tuning for k={aware_info['weight_bits']} p={aware_info['payload_bits']})"
         if aware_info else ""))
-    plot_confusion(cm, dataset.classes, out_dir / "confusion.png",
+    plots.save_confusion(cm, dataset.classes, out_dir / "confusion.png",
                    f"{'conversion-aware ' if aware_info else ''}frame model, test accuracy "
                    f"{100 * ev['accuracy']:.2f}% ({ev['correct']}/{ev['count']})")
     return model, metrics
@@ -162,123 +153,6 @@ def finetune_aware(model: nn.Sequential, dataset, recipe: dict, weight_bits: int
     return aware, act_max
 
 
-def load_checkpoint(path) -> tuple[nn.Sequential, dict]:
-    """Load `model.pt` (or `folder/model.pt`) and rebuild its model in eval mode.
-
-    Refuses anything but this project's checkpoint format/version; never unpickles code.
-    """
-    path = Path(path)
-    if path.is_dir():
-        path = path / "model.pt"
-    ckpt = files.load_torch(path)
-    if not isinstance(ckpt, dict) or ckpt.get("format") != CHECKPOINT_FORMAT:
-        got = ckpt.get("format") if isinstance(ckpt, dict) else type(ckpt).__name__
-        raise FormatError(f"{path}: field 'format' must be {CHECKPOINT_FORMAT!r}. Got {got!r} instead.")
-    if ckpt.get("version") != CHECKPOINT_VERSION:
-        raise FormatError(f"{path}: field 'version' must be {CHECKPOINT_VERSION}. Got {ckpt.get('version')!r} instead.")
-    for k in ("state_dict", "model_spec", "recipe", "data_fingerprint", "metrics", "act_max", "aware"):
-        if k not in ckpt:
-            raise FormatError(f"{path}: checkpoint has no field '{k}'")
-    ckpt["recipe"] = recipe_mod.from_embedded(ckpt["recipe"], path)
-    _check_checkpoint_fields(ckpt, str(path))
-    spec = ckpt["model_spec"]
-    try:
-        model = models.build_model({"layers": spec["layers"]}, spec["input_shape"], spec["n_classes"], quiet=True)
-        if ckpt["aware"]:
-            a = ckpt["aware"]
-            model = models.make_aware(model, a["weight_bits"], a["payload_bits"], a["per_channel"],
-                                      act_max=ckpt["act_max"], learn_act_max=a.get("learn_act_max", True),
-                                      weight_rule=aware_weight_rule(a, str(path)))
-        model.load_state_dict(ckpt["state_dict"])
-    except (UsageError, KeyError, TypeError, RuntimeError) as exc:
-        raise FormatError(f"{path}: model_spec does not match state_dict ({type(exc).__name__}: "
-                          f"{' '.join(str(exc).split())[:300]})") from None
-    model.eval()
-    return model, ckpt
-
-
-def _check_checkpoint_fields(ckpt: dict, owner: str) -> None:
-    """model_spec, act_max, aware and every tensor of the state_dict, before a model is built from them.
-
-    Weights must be finite: a NaN or infinite parameter would only surface later as a conversion failure.
-    """
-    E = FormatError
-    spec = ckpt["model_spec"]
-    if not isinstance(spec, dict):
-        fail("model_spec", owner, "an object", repr(spec), "field", E)
-    spec["input_shape"] = list(check_shape(spec.get("input_shape"), "model_spec.input_shape", owner, 3, 1, "field", E))
-    check_int(spec.get("n_classes"), "model_spec.n_classes", owner, 1, 1 << 16, "field", E)
-    sd = ckpt["state_dict"]
-    if not isinstance(sd, dict):
-        fail("state_dict", owner, "a map of parameter names to tensors", repr(type(sd).__name__), "field", E)
-    for k, v in sd.items():
-        if not isinstance(v, torch.Tensor):
-            fail(f"state_dict.{k}", owner, "a tensor", repr(type(v).__name__), "field", E)
-        if v.is_floating_point() and not bool(torch.isfinite(v).all()):
-            bad = v.reshape(-1)[~torch.isfinite(v.reshape(-1))][0].item()
-            fail(f"state_dict.{k}", owner, "a tensor of finite numbers", f"{bad} among its {v.numel()} values",
-                 "field", E)
-    aware = ckpt["aware"]
-    if aware is not None:
-        if not isinstance(aware, dict):
-            fail("aware", owner, "null or an object", repr(aware), "field", E)
-        check_int(aware.get("weight_bits"), "aware.weight_bits", owner, 2, 16, "field", E)
-        check_int(aware.get("payload_bits"), "aware.payload_bits", owner, 1, 8, "field", E)
-        check_bool(aware.get("per_channel"), "aware.per_channel", owner, "field", E)
-        aware_weight_rule(aware, owner)
-    act = ckpt["act_max"]
-    if act is not None:
-        if not isinstance(act, (list, tuple)):
-            fail("act_max", owner, "null or a list of floats > 0", repr(act), "field", E)
-        for i, a in enumerate(act):
-            v = check_float(a, f"act_max[{i}]", owner, 0.0, None, lo_open=True, what="field", error=E)
-            if not math.isfinite(v):
-                fail(f"act_max[{i}]", owner, "a finite float > 0", repr(a), "field", E)
-
-
-def aware_weight_rule(aware: dict, owner: str) -> tuple[str, float]:
-    """The weight scale rule an aware checkpoint trained on, parsed (FormatError if unreadable).
-    Checkpoints written before the rule was recorded trained on the max rule."""
-    from snnconvert.convert import parse_range_rule
-    rule = aware.get("weight_scale", "max")
-    try:
-        return parse_range_rule(rule, "aware.weight_scale", owner)
-    except UsageError:
-        fail("aware.weight_scale", owner, "'max' or 'percentile:Q' with Q in (0, 100]", repr(rule), "field",
-             FormatError)
-
-
-def check_model_fits(model: nn.Module, input_shape, n_classes: int, name: str, trained_shape=None) -> None:
-    """The one check that a model and the data it is about to see agree: frame shape and class count.
-
-    `trained_shape` (a checkpoint's model_spec.input_shape) is compared first; the model is then run
-    on one zero frame, so a model without a spec is checked too. UsageError naming `name` otherwise.
-    """
-    shape = tuple(int(s) for s in input_shape)
-    if trained_shape is not None and tuple(trained_shape) != shape:
-        raise UsageError(f"{name} was trained on frames of shape {tuple(trained_shape)}, but its data now gives "
-                         f"frames of shape {shape}; use the recipe it was trained with (frames.size, frames.mode)")
-    was = model.training
-    model.eval()
-    try:
-        with torch.no_grad():
-            out = model(torch.zeros((1, *shape)))  # (1, classes)
-    except RuntimeError as exc:
-        raise UsageError(f"{name} does not accept frames of shape {shape}: "
-                         f"{' '.join(str(exc).split())[:200]}") from None
-    finally:
-        model.train(was)
-    if out.shape[1] != n_classes:
-        raise UsageError(f"{name} gives {out.shape[1]} class scores but the data has {n_classes} classes")
-
-
-def check_checkpoint_fits(model: nn.Module, ckpt: dict, dataset, path) -> None:
-    """`check_model_fits` for a loaded checkpoint and the data set about to be used with it."""
-    path = Path(path)
-    name = str(path / "model.pt" if path.is_dir() else path)
-    check_model_fits(model, dataset.input_shape, len(dataset.classes), name, ckpt["model_spec"]["input_shape"])
-
-
 def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int = 1024) -> dict:
     """accuracy = mean(argmax(model(x)) == y) in eval mode; plus the confusion matrix (rows = true)."""
     from sklearn.metrics import confusion_matrix
@@ -286,7 +160,7 @@ def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int
     was = model.training
     model.eval()
     preds = []
-    with torch.no_grad():
+    with torch.inference_mode():
         for i in range(0, len(x), batch_size):
             preds.append(model(x[i:i + batch_size]).argmax(1))  # (B,)
     model.train(was)
@@ -296,36 +170,6 @@ def evaluate(model: nn.Module, x: torch.Tensor, y: torch.Tensor, batch_size: int
     cm = confusion_matrix(y.numpy(), pred.numpy(), labels=list(range(n_out)))
     return {"accuracy": correct / len(y) if len(y) else float("nan"), "correct": correct, "count": int(len(y)),
             "confusion": cm, "pred": pred}
-
-
-def plot_confusion(cm, classes, path, title: str = "confusion matrix") -> Path:
-    """PNG file of a confusion matrix (`plots.confusion_figure`), written atomically."""
-    return plots.save_png(plots.confusion_figure(cm, classes, title), path)
-
-
-def plot_curves(history: list[dict], path, title: str = "training") -> Path:
-    """PNG: loss (left) and accuracy (right) per epoch, train and validation; aware epochs shaded."""
-    plt = plots.pyplot()
-    fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=100)
-    ep = [i + 1 for i in range(len(history))]
-    a1.plot(ep, [h["train_loss"] for h in history], label="train")
-    a1.plot(ep, [h["val_loss"] if h["val_loss"] is not None else math.nan for h in history], label="validation")
-    a2.plot(ep, [100 * h["train_accuracy"] for h in history], label="train")
-    a2.plot(ep, [100 * h["val_accuracy"] if h["val_accuracy"] is not None else math.nan for h in history],
-            label="validation")
-    aware = [e for e, h in zip(ep, history) if h["phase"] == "aware"]
-    for ax in (a1, a2):
-        if aware:
-            ax.axvspan(aware[0] - 0.5, aware[-1] + 0.5, color="orange", alpha=0.15, label="conversion-aware")
-        ax.set_xlabel("epoch")
-        ax.xaxis.get_major_locator().set_params(integer=True)  # epochs are whole numbers
-        ax.grid(alpha=0.3)
-        ax.legend(fontsize=8)
-    a1.set_ylabel("cross-entropy loss")
-    a2.set_ylabel("accuracy (%)")
-    fig.suptitle(title, fontsize=10)
-    fig.tight_layout()
-    return plots.save_png(fig, path)
 
 
 # ---------------------------------------------------------------- the loop
@@ -343,6 +187,8 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
     steps = math.ceil(n / bs)
     total = epochs * steps
     gen = torch.Generator().manual_seed(int(seed))
+    fmt = training_memory_format(model, cfg.get("memory_format", "contiguous"))
+    model.to(memory_format=fmt)
     params = [p for p in model.parameters() if p.requires_grad]
     if cfg["optimizer"] == "adam":
         opt = torch.optim.Adam(params, lr=lr, weight_decay=cfg["weight_decay"])
@@ -363,7 +209,8 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
             for g in opt.param_groups:
                 g["lr"] = _lr_at(cfg, lr, step, total, epoch)
             idx = perm[b * bs:(b + 1) * bs]
-            xb = augment(xtr[idx], cfg["shift"], cfg["event_dropout"], gen, integral)  # (B, C, H, W)
+            xb = augment(xtr[idx], cfg["jitter_px"], cfg["event_dropout"], gen, integral)  # (B, C, H, W)
+            xb = xb.contiguous(memory_format=fmt)
             yb = ytr[idx]
             if l1:
                 out, act = forward_with_activity(model, xb)  # (B, classes), scalar
@@ -387,7 +234,7 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
                "train_loss": loss_sum / n, "train_accuracy": correct / n, "val_loss": None, "val_accuracy": None}
         if len(yva):
             model.eval()
-            with torch.no_grad():
+            with torch.inference_mode():
                 out = model(xva)  # (Nv, classes)
             row["val_loss"] = float(loss_fn(out, yva))
             row["val_accuracy"] = float((out.argmax(1) == yva).float().mean())
@@ -408,8 +255,17 @@ def _fit(model, dataset, cfg, epochs, lr, seed, quiet, phase):
             if cfg["patience"] and bad >= cfg["patience"]:
                 break
     model.load_state_dict(best_state)
+    model.to(memory_format=torch.contiguous_format)
     model.eval()
     return model, history
+
+
+def training_memory_format(model: nn.Module, name: str):
+    """torch.channels_last for `name` = "channels_last" and a model with convolutions, else contiguous
+    (`[train] memory_format`; bench/train.py measures both). Same values either way up to float rounding."""
+    if name == "channels_last" and any(isinstance(m, nn.Conv2d) for m in model.modules()):
+        return torch.channels_last
+    return torch.contiguous_format
 
 
 def forward_with_activity(model: nn.Sequential, x: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
@@ -452,48 +308,26 @@ def _lr_at(cfg, lr, step, total, epoch) -> float:
     return lr
 
 
-def augment(x: torch.Tensor, shift: int, event_dropout: float, gen: torch.Generator,
-            integral: bool = True) -> torch.Tensor:
-    """Random shift of each frame by (dy, dx) in [-shift, shift]^2 (zero fill, events leaving the
-    frame are lost; no wrap-around), then event dropout: each of the x events of a pixel survives
-    with probability 1 - event_dropout (binomial thinning; for binary frames a pixel mask).
-    Non-integer frames get a per-pixel mask instead. shift = 0 and event_dropout = 0 return x.
-    """
-    if shift > 0:
-        n, c, h, w = x.shape
-        pad = torch.nn.functional.pad(x, (shift, shift, shift, shift))  # (N, C, H+2s, W+2s)
-        off = torch.randint(0, 2 * shift + 1, (n, 2), generator=gen)     # (N, 2) crop offsets
-        rows = (off[:, 0, None] + torch.arange(h))[:, None, :, None]     # (N, 1, H, 1)
-        cols = (off[:, 1, None] + torch.arange(w))[:, None, None, :]     # (N, 1, 1, W)
-        bidx = torch.arange(n)[:, None, None, None]
-        cidx = torch.arange(c)[None, :, None, None]
-        x = pad[bidx, cidx, rows, cols]                                   # (N, C, H, W)
-    if event_dropout > 0:
-        keep = torch.full_like(x, 1.0 - event_dropout)
-        if integral:
-            x = torch.binomial(x.clamp_min(0), keep, generator=gen)
-        else:
-            x = x * torch.bernoulli(keep, generator=gen)
-    return x
-
-
 def _finetune(model, dataset, recipe, weight_bits, payload_bits, per_channel, epochs, seed, quiet,
               weight_scale=None):
-    from snnconvert.convert import parse_range_rule
-    from snnconvert.convert.calibrate import hidden_ranges
+    from snnconvert.settings.convert import parse_weight_rule
+    from snnconvert.convert.calibrate import aware_start_ranges, calibration_subset
     cfg = recipe["train"]
     check_int(epochs, "aware_epochs", "train", 1, 100000)
     check_bool(per_channel, "per_channel", "convert")
-    weight_rule = parse_range_rule(recipe["convert"]["weight_scale"] if weight_scale is None else weight_scale,
+    weight_rule = parse_weight_rule(recipe["convert"]["weight_scale"] if weight_scale is None else weight_scale,
                                    "weight_scale", "convert")
-    folded = models.fold_batchnorm(model).eval()
-    # a_max starts at the converter's range statistic (0 for a dead layer), with the act_percentile rule
-    act0 = hidden_ranges(folded, dataset.train[0], "percentile", cfg["act_percentile"])
-    aware = models.make_aware(folded, weight_bits, payload_bits, per_channel, act_max=act0,
+    folded = fold_batchnorm(model).eval()
+    # a_max starts at the converter's range statistic (act_percentile rule), or lower at few payload
+    # bits (see aware_start_ranges), over the converter's calibration subset of the training split
+    x_train = np.asarray(dataset.train[0])
+    x_cal = x_train[calibration_subset(len(x_train), int(recipe["convert"].get("calib_samples", 512)))]
+    act0 = aware_start_ranges(folded, x_cal, payload_bits, cfg["act_percentile"])
+    aware = aware_mod.make_aware(folded, weight_bits, payload_bits, per_channel, act_max=act0,
                               learn_act_max=cfg["learn_act_max"], weight_rule=weight_rule)
     torch.manual_seed(int(seed))
     aware, hist = _fit(aware, dataset, cfg, epochs, cfg["aware_lr"], int(seed) ^ 0x5EED, quiet, "aware")
-    act_max = [float(m.a_max.detach().clamp_min(1e-6)) for m in aware if isinstance(m, models.ClipQuant)]
+    act_max = [float(m.a_max.detach().clamp_min(1e-6)) for m in aware if isinstance(m, aware_mod.ClipQuant)]
     return aware, act_max, hist
 
 
@@ -540,14 +374,19 @@ def _n_outputs(model) -> int:
     return last[-1].out_features if last else 0
 
 
-# Below this many multiply-accumulates per training step, handing work to a second thread costs
-# more than it saves (bench/train.py measures 1 vs 2 threads on the default model).
-SMALL_STEP_MACS = 50_000_000
+# Below this many multiply-accumulates per training step (forward), one thread is the choice.
+# bench/train.py on the 28x28 default model (2.9 M MACs per sample, 93-370 M per step at batch 32-128):
+# on a shared 2-core machine (load ~7) a second thread made training 4-8x SLOWER (187 -> 24
+# samples/s at batch 32, 668 -> 168 at batch 128), while on an idle one it can at best halve the
+# time. The choice may depend on the model size only, never on the load (same machine, same
+# weights), so the second thread is kept for steps where its best case clearly pays.
+SMALL_STEP_MACS = 1_000_000_000
 
 
 def resolve_threads(threads: int, macs_per_step: int | None = None) -> int:
     """threads > 0: as given. 0 (auto): 1 for small steps (< SMALL_STEP_MACS multiply-accumulates,
-    forward only), else the available cores, at most 2 (the target laptop)."""
+    forward only), else the cores this process may use, at most 2 (the target laptop). Never reads
+    the machine load: on one machine the thread count, and so the weights, depend on the model alone."""
     if threads:
         return int(threads)
     if macs_per_step is not None and macs_per_step < SMALL_STEP_MACS:
@@ -579,3 +418,7 @@ def _write_history(history, path) -> None:
         w.writerow({k: ("" if h.get(k) is None else h[k]) for k in cols})
     files.atomic_write_text(path, buf.getvalue())
 
+
+# public names of the figures, as callers import them from here
+plot_confusion = plots.save_confusion
+plot_curves = plots.save_training_curves

@@ -244,3 +244,31 @@ def test_channel_ranges_are_floored_at_a_fraction_of_the_layer_and_zero_layers_u
     r = np.array([0.5, 1e-12, 0.25, 0.0])
     np.testing.assert_array_equal(A.channel_ranges(torch.from_numpy(r)).numpy(), A.channel_ranges(r))
     np.testing.assert_array_equal(A.channel_ranges(torch.zeros(3, dtype=torch.float64)).numpy(), np.ones(3))
+
+
+# ------------------------------------------------------------------ weight rule "mean:c" (ternary threshold)
+
+@pytest.mark.parametrize("per_channel", [False, True])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_mean_rule_gives_the_ternary_weight_network_threshold(seed, per_channel):
+    # Ternary Weight Networks (Li & Liu 2016, eq. 5-6): W = sign(w) if |w| > Delta else 0,
+    # Delta = 0.7 * mean|w| (per layer; here also per output channel)
+    w = np.random.default_rng(seed).standard_normal((8, 4, 3, 3)) * 0.1
+    a = np.abs(w.reshape(8, -1))
+    delta = 0.7 * (a.mean(axis=1, keepdims=True) if per_channel else a.mean())
+    want = (np.sign(w.reshape(8, -1)) * (a > delta)).reshape(w.shape).astype(np.int64)
+    s = A.weight_scale(w, 2, per_channel, "mean", 0.7)
+    assert np.array_equal(A.quantize_weights(w, s, 2), want)
+    # with max-abs scales the same grid keeps only |w| > max|w| / 2: under half as many non-zero weights
+    kept_max = np.count_nonzero(A.quantize_weights(w, A.weight_scale(w, 2, per_channel), 2))
+    assert kept_max < np.count_nonzero(want) / 2
+
+
+@pytest.mark.parametrize("bits,c,expect", [
+    (2, 0.5, 0.5),             # s = 2 c mean|w| = 0.5 while the grid (1 level) stays inside max|w| = 3
+    (3, 0.5, 0.5),             # 3 levels of 0.5 reach 1.5 <= 3
+    (4, 0.5, 3.0 / 7),         # 7 levels of 0.5 would reach 3.5 > 3: the max rule's step 3 / 7
+])
+def test_mean_rule_step_is_capped_by_the_max_rule(bits, c, expect):
+    w = np.array([[3.0, 0.5, -0.5, 0.5, -0.5, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, -1.0]])  # mean|w| = 6 / 12 = 0.5
+    assert A.weight_scale(w, bits, False, "mean", c)[0] == expect

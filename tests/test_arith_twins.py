@@ -32,7 +32,7 @@ def _weights(kind: str, seed: int, dtype) -> np.ndarray:
 
 
 KINDS = ["random", "near_dead", "dead_channel", "all_zero", "ties", "duplicates"]
-RULES = [("max", 100.0), ("percentile", 99.9), ("percentile", 50.0), ("percentile", 12.5)]
+RULES = [("max", 100.0), ("percentile", 99.9), ("percentile", 50.0), ("percentile", 12.5), ("mean", 0.7), ("mean", 3.0)]
 
 
 @pytest.mark.parametrize("kind", KINDS)

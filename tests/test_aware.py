@@ -84,3 +84,35 @@ def test_train_with_aware_flag_writes_an_aware_checkpoint(float_run, ds, tmp_pat
     # an aware checkpoint is not a valid start for another aware fine-tuning
     with pytest.raises(UsageError, match="already conversion-aware"):
         T.train(r, ds, tmp_path / "again", init=tmp_path, quiet=True)
+
+
+@pytest.mark.parametrize("payload_bits", [1, 2, 4])
+def test_aware_start_ranges_take_the_smaller_of_percentile_and_step_size_start(payload_bits):
+    # one hidden unit whose activation is relu(x): the statistics are those of the positive inputs
+    import numpy as np
+    from snnconvert.convert.calibrate import aware_start_ranges
+    model = torch.nn.Sequential(torch.nn.Linear(1, 1), torch.nn.ReLU(), torch.nn.Linear(1, 2)).double()
+    with torch.no_grad():
+        model[0].weight.fill_(1.0)
+        model[0].bias.zero_()
+    x = np.concatenate([np.linspace(-1, 0, 50), np.linspace(0.01, 1.0, 100), [40.0]]).reshape(-1, 1)
+    pos = x[x > 0]
+    q = (1 << payload_bits) - 1
+    # learned step size start s0 = 2 mean|v| / sqrt(Q) (Esser et al. 2020), a_max = Q s0; percentile 99 of pos
+    want = min(float(np.percentile(pos, 99.0)), 2.0 * np.sqrt(q) * float(pos.mean()))
+    got = aware_start_ranges(model, x, payload_bits, 99.0)
+    assert got == [pytest.approx(want, rel=1e-12)]
+
+
+def test_two_bit_aware_model_with_the_mean_rule_keeps_most_weights(float_run, ds):
+    # with max-abs scales a ternary grid zeroes every weight below max|w| / 2; the mean:0.7 rule
+    # keeps those above 0.7 mean|w| (Li & Liu 2016): well over a third of the largest trained layer
+    _, model, _ = float_run
+    folded = M.fold_batchnorm(model).eval()
+    kept = {}
+    for rule in (("max", 100.0), ("mean", 0.7)):
+        aw = M.make_aware(folded, 2, 2, False, weight_rule=rule)
+        big = max((m for m in aw if isinstance(m, (M.QConv2d, M.QLinear))), key=lambda m: m.weight.numel())
+        W = big.quantized_weight() / big.weight_scale().float().reshape(-1, *[1] * (big.weight.dim() - 1))
+        kept[rule[0]] = float((W.round() != 0).float().mean())
+    assert kept["mean"] > 0.35 and kept["max"] < kept["mean"] / 2

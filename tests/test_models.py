@@ -236,3 +236,13 @@ def test_hidden_ranges_max_is_the_largest_relu_output():
         h1 = m[1](m[0](x))
         h2 = m[4](m[3](m[2](h1)))
     assert r == pytest.approx([float(h1.max()), float(h2.max())])
+
+
+def test_tiny_budget_recipe_is_the_48k_mac_network():
+    # three 5x5 maps without padding on 28x28: 24*24*3*25 = 43,200 MACs; 2x2 pool -> 3*12*12 = 432;
+    # dense 432*10 = 4,320: 47,520 multiply-accumulates per sample (counted by hand)
+    from pathlib import Path
+    from snnconvert import recipe
+    r = recipe.load(Path(__file__).resolve().parents[1] / "recipes" / "tiny_budget.toml")
+    d = M.describe(M.build_model(r["model"], (1, 28, 28), 10, quiet=True), (1, 28, 28))
+    assert d["macs"] == 47_520 and d["params"] == 3 * 25 + 3 + 432 * 10 + 10

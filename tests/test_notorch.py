@@ -139,7 +139,7 @@ def test_cli_compare_without_torch(exports, tmp_path):
     n = json.loads((folder / "manifest.json").read_text())["vectors"]["count"]
     r = _cli("compare", str(folder), str(folder / "vectors"), "--quiet")
     assert r.returncode == 0, r.stderr
-    assert r.stdout.split("\n")[-2].startswith(f"compare: passed: ") and f" of {n} samples " in r.stdout
+    assert r.stdout.split("\n")[-2].startswith("compare: passed: ") and f" of {n} samples " in r.stdout
     trace = shutil.copytree(folder / "vectors", tmp_path / "trace")
     path = trace / "sample_0001" / "L2_conv2.potentials.csv"
     lines = path.read_text().split("\n")

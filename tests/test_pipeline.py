@@ -149,10 +149,10 @@ def test_saccade_ttfs_recipe_runs(tmp_path):
     assert net["max_spikes_per_neuron"] <= 1
 
 
-def test_recipes_folder_ships_the_six_scenarios():
+def test_recipes_folder_ships_the_seven_scenarios():
     names = sorted(p.name for p in RECIPES.glob("*.toml"))
     assert names == ["budget_fpga.toml", "default.toml", "idx_files.toml", "recordings.toml", "saccade_recordings.toml",
-                     "saccade_ttfs.toml"]
+                     "saccade_ttfs.toml", "tiny_budget.toml"]
 
 
 def test_interrupt_keeps_finished_stages_and_the_rerun_reuses_them(tmp_path, monkeypatch, capsys):

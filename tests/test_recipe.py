@@ -149,3 +149,29 @@ def test_relative_paths_resolve_in_the_recipe_folder(tmp_path):
     r = R.load(write(tmp_path, "seed = 1\n"))
     assert R.resolve_path(r, "data/x.idx") == tmp_path.resolve() / "data" / "x.idx"
     assert R.resolve_path(r, "/abs/x.idx") == Path("/abs/x.idx")
+
+
+@pytest.mark.parametrize("section,old,new", [(s, o, n) for s, m in R.renamed().items() for o, n in m.items()])
+def test_every_renamed_key_reads_under_its_new_name(section, old, new, tmp_path, capsys):
+    value = R.schemas()[section][new].default
+    (tmp_path / "old.toml").write_text(f"[{section}]\n{old} = {value!r}\n")
+    got = R.load(tmp_path / "old.toml")[section]
+    assert got[new] == value and old not in got
+    assert f"[{section}] {old} is now called {new}" in capsys.readouterr().err
+    assert ("train", "shift", "jitter_px") in [(s, o, n) for s, m in R.renamed().items() for o, n in m.items()]
+
+
+@pytest.mark.parametrize("value,rule", [("max", ("max", 100.0)), ("percentile:99", ("percentile", 99.0)),
+                                        ("mean:0.7", ("mean", 0.7)), ("mean:10", ("mean", 10.0))])
+def test_weight_scale_rules_parse(value, rule):
+    r = R.from_dict({"convert": {"weight_scale": value}})
+    from snnconvert.settings.convert import ConvertSettings
+    assert ConvertSettings.from_section(r["convert"]).weight_rule == rule
+
+
+@pytest.mark.parametrize("value", ["mean", "mean:0", "mean:11", "mean:x", "median:0.7", "percentile:0"])
+def test_weight_scale_rule_refused(value):
+    with pytest.raises(UsageError) as e:
+        R.from_dict({"convert": {"weight_scale": value}})
+    assert str(e.value) == ("The 'weight_scale' parameter of convert must be 'max', 'percentile:Q' with Q in (0, 100] "
+                            f"or 'mean:C' with C in (0, 10]. Got {value!r} instead.")

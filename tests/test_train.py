@@ -36,7 +36,7 @@ def digits_frames(n_train=600, n_val=150, n_test=300, seed=0):
 
 
 def small_recipe(*overrides):
-    base = ["train.epochs=3", "train.threads=1", "train.lr=0.01", "train.batch_size=16", "train.shift=0", "train.event_dropout=0.0", f"model.layers={_toml_layers(SMALL_LAYERS)}"]
+    base = ["train.epochs=3", "train.threads=1", "train.lr=0.01", "train.batch_size=16", "train.jitter_px=0", "train.event_dropout=0.0", f"model.layers={_toml_layers(SMALL_LAYERS)}"]
     return R.load(R.Path(__file__).resolve().parents[1] / "recipes" / "default.toml", base + list(overrides))
 
 
@@ -127,13 +127,13 @@ def test_missing_and_corrupt_checkpoints(tmp_path):
 
 
 def test_same_recipe_gives_bit_identical_checkpoints(ds, tmp_path):
-    r = small_recipe("train.epochs=2", "seed=5", "train.shift=1", "train.event_dropout=0.1")  # augmentation draws too
+    r = small_recipe("train.epochs=2", "seed=5", "train.jitter_px=1", "train.event_dropout=0.1")  # augmentation draws too
     T.train(r, ds, tmp_path / "a", quiet=True)
     T.train(r, ds, tmp_path / "b", quiet=True)
     a = torch.load(tmp_path / "a" / "model.pt", weights_only=True)["state_dict"]
     b = torch.load(tmp_path / "b" / "model.pt", weights_only=True)["state_dict"]
     assert a.keys() == b.keys() and all(torch.equal(a[k], b[k]) for k in a)
-    T.train(small_recipe("train.epochs=2", "seed=6", "train.shift=1", "train.event_dropout=0.1"), ds, tmp_path / "c", quiet=True)
+    T.train(small_recipe("train.epochs=2", "seed=6", "train.jitter_px=1", "train.event_dropout=0.1"), ds, tmp_path / "c", quiet=True)
     c = torch.load(tmp_path / "c" / "model.pt", weights_only=True)["state_dict"]
     assert not all(torch.equal(a[k], c[k]) for k in a)
 
@@ -182,7 +182,7 @@ def test_augment_shift_moves_events_without_wrapping():
     x = torch.zeros(200, 1, 7, 7)
     x[:, 0, 3, 3] = 1.0   # centre: always stays inside
     x[:, 0, 0, 0] = 1.0   # corner: leaves the frame for some shifts, never wraps around
-    y = T.augment(x, shift=1, event_dropout=0.0, gen=g)
+    y = T.augment(x, jitter_px=1, event_dropout=0.0, gen=g)
     ys, xs = torch.nonzero(y[:, 0, 2:5, 2:5], as_tuple=True)[1:]
     assert len(ys) == 200  # one centre event per frame, moved by at most 1 pixel
     assert y[:, 0, 5:, :].sum() == 0 and y[:, 0, :, 5:].sum() == 0  # nothing wrapped to the far side
@@ -193,7 +193,7 @@ def test_augment_shift_moves_events_without_wrapping():
 def test_event_dropout_is_binomial_thinning():
     g = torch.Generator().manual_seed(0)
     x = torch.full((100, 1, 10, 10), 3.0)  # 30,000 events
-    y = T.augment(x, shift=0, event_dropout=0.25, gen=g)
+    y = T.augment(x, jitter_px=0, event_dropout=0.25, gen=g)
     assert torch.equal(y, y.round()) and bool((y <= x).all())
     kept = float(y.sum()) / 30000
     # Binomial(30000, 0.75): std of the fraction is sqrt(0.75*0.25/30000) ~ 0.0025; allow 5 std
@@ -289,3 +289,22 @@ def test_activity_l1_lowers_the_mean_hidden_activation(ds, tmp_path):
 def test_activity_l1_is_validated(value, pattern):
     with pytest.raises((UsageError, TypeError), match=pattern):
         small_recipe(f"train.activity_l1={value}")
+
+
+def test_auto_threads_follow_the_model_size_only(monkeypatch):
+    # the choice reads the step size and the cores this process may use, never the machine load
+    monkeypatch.setattr(T.os, "sched_getaffinity", lambda pid: {0, 1, 2, 3}, raising=False)
+    monkeypatch.setattr(T.os, "getloadavg", lambda: (99.0, 99.0, 99.0), raising=False)
+    assert T.resolve_threads(0, T.SMALL_STEP_MACS - 1) == 1
+    assert T.resolve_threads(0, T.SMALL_STEP_MACS) == 2
+    assert T.resolve_threads(3, 1) == 3
+
+
+def test_auto_threads_give_bit_identical_weights(ds, tmp_path):
+    r = small_recipe("train.epochs=1", "train.threads=0", "seed=2")
+    T.train(r, ds, tmp_path / "a", quiet=True)
+    T.train(r, ds, tmp_path / "b", quiet=True)
+    a = torch.load(tmp_path / "a" / "model.pt", weights_only=True)
+    b = torch.load(tmp_path / "b" / "model.pt", weights_only=True)
+    assert a["metrics"]["threads"] == b["metrics"]["threads"]
+    assert all(torch.equal(a["state_dict"][k], b["state_dict"][k]) for k in a["state_dict"])

@@ -356,8 +356,10 @@ def test_old_and_new_sensor_key_together_are_refused(tmp_path, capsys):
 
 
 def test_shipped_recipes_use_the_new_name():
+    import tomllib
     for f in RECIPES.glob("*.toml"):
         assert "sensor_size" not in f.read_text(), f
+        assert "shift" not in tomllib.loads(f.read_text()).get("train", {}), f
 
 
 # ------------------------------------------------------------------ every shipped recipe, scaled down

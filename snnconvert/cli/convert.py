@@ -29,7 +29,7 @@ def run(args) -> int:
     from snnconvert.errors import UsageError
     from snnconvert.files import check_output_path
     from snnconvert.sim.metrics import format_table
-    from snnconvert.train import load_checkpoint
+    from snnconvert.checkpoint import load_checkpoint
 
     if args.out:
         check_output_path(args.out, "--out", "folder")
@@ -52,4 +52,3 @@ def run(args) -> int:
     write_outputs(net, metrics, {**ckpt_recipe, "convert": settings.as_dict()}, out)
     console.echo(f"wrote {out}/network.json, network.npz, metrics.json, recipe.toml, confusion.png")
     return 0
-

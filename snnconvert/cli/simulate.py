@@ -31,7 +31,7 @@ def _load_data(net, source, progress: bool):
         return None, *ds.test
     path = Path(source)
     if path.is_dir():
-        from snnconvert.train import check_checkpoint_fits, load_checkpoint
+        from snnconvert.checkpoint import check_checkpoint_fits, load_checkpoint
         model, ckpt = load_checkpoint(path / "model.pt")
         ds = load_dataset(ckpt["recipe"], progress=progress)
         check_checkpoint_fits(model, ckpt, ds, path / "model.pt")

@@ -91,18 +91,18 @@ def convert_and_measure(model, dataset, settings: ConvertSettings | dict, act_ma
 def convert_checkpoint(train_dir, settings: ConvertSettings | dict, quiet: bool = False, dataset=None,
                        loaded=None, hardware=None, budget=None):
     """Load `train_dir/model.pt`, then `convert_and_measure` on `dataset` (default: the data set of the
-    checkpoint's recipe, loaded here). `loaded`: the (model, ckpt) pair `train.load_checkpoint` already
+    checkpoint's recipe, loaded here). `loaded`: the (model, ckpt) pair `checkpoint.load_checkpoint` already
     returned for that file, so a caller that read it first does not read it again. `hardware`, `budget`:
     default the checkpoint recipe's sections. Returns (net, metrics)."""
     path = Path(train_dir) / "model.pt"
     if loaded is None:
-        from snnconvert.train import load_checkpoint
+        from snnconvert.checkpoint import load_checkpoint
         loaded = load_checkpoint(path)
     model, ckpt = loaded
     if dataset is None:
         from snnconvert.data import load_dataset
         dataset = load_dataset(ckpt["recipe"], progress=not quiet)
-    from snnconvert.train import check_checkpoint_fits
+    from snnconvert.checkpoint import check_checkpoint_fits
     check_checkpoint_fits(model, ckpt, dataset, path)
     # an aware checkpoint keeps the test accuracy of the float model it was fine-tuned from
     net, metrics = convert_and_measure(model, dataset, settings, act_max=ckpt.get("act_max"), quiet=quiet,
@@ -118,12 +118,12 @@ def write_outputs(net, metrics: dict, recipe: dict, out: Path) -> None:
     """network.json/.npz, metrics.json, recipe.toml and confusion.png of one conversion, each atomic."""
     from snnconvert import files
     from snnconvert import recipe as recipe_mod
-    from snnconvert.train import plot_confusion
+    from snnconvert.plots import save_confusion
     net.save(out)
     files.atomic_write_json(out / "metrics.json", metrics)
     recipe_mod.save(recipe, out)
     classes = net.meta.get("classes") or [str(i) for i in range(net.n_classes)]
-    plot_confusion(metrics["confusion"], classes, out / "confusion.png",
+    save_confusion(metrics["confusion"], classes, out / "confusion.png",
                    title=f"spike model ({net.coding}, k={net.weight_bits}, p={net.payload_bits}): "
                          f"{100 * metrics['spike_accuracy']:.2f}%")
 

@@ -20,7 +20,7 @@ import torch
 from torch import nn
 
 from snnconvert.errors import UsageError
-from snnconvert.models import fold_batchnorm
+from snnconvert.bnfold import fold_batchnorm
 
 SUPPORTED = ("Conv2d", "Linear", "ReLU", "AvgPool2d", "MaxPool2d", "Flatten", "BatchNorm1d", "BatchNorm2d",
              "Dropout", "ClipQuant", "QConv2d", "QLinear")

@@ -112,7 +112,7 @@ def _layers(man, net) -> list[_Layer]:
 def _header(man, net, layers) -> str:
     ttfs = net.coding == "ttfs"
     c, h, w = net.input_shape
-    m = [f"/* snnconvert C reference model: generated from the export folder (manifest.json and memory files).",
+    m = ["/* snnconvert C reference model: generated from the export folder (manifest.json and memory files).",
          f" * coding {net.coding}, {len(layers)} layers, {net.n_classes} classes. Integer arithmetic only. */",
          "#ifndef SNN_MODEL_H", "#define SNN_MODEL_H", "", "#include <stdint.h>", "",
          f"#define SNN_CODING_TTFS {1 if ttfs else 0}",

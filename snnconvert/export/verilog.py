@@ -154,8 +154,8 @@ def _task_close(net: IntNetwork, i: int, ids: list[str], windows: list[int]) -> 
         elif ttfs:
             out += [f"      for (t = 0; t < {L.q_out}; t = t + 1)      // falling threshold, step by step",
                     f"        for (n = 0; n < {n_out}; n = n + 1)",
-                    f"          // fires at the first crossing: the threshold only falls, so a neuron that crossed",
-                    f"          // at step t - 1 has fired already (each neuron fires at most once)",
+                    "          // fires at the first crossing: the threshold only falls, so a neuron that crossed",
+                    "          // at step t - 1 has fired already (each neuron fires at most once)",
                     f"          if (crosses(v_l{i}[n], m0_l{i}[n / {S}], sh_l{i}[n / {S}], {L.q_out}, t) &&",
                     f"              (t == 0 || !crosses(v_l{i}[n], m0_l{i}[n / {S}], sh_l{i}[n / {S}], {L.q_out}, t - 1)))",
                     f"            emit_l{i}(n, t, {L.q_out} - t);"]

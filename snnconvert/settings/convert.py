@@ -33,6 +33,37 @@ def _rule_validator(value, key, section):
     return value
 
 
+# the largest c of the weight rule "mean:c": beyond a few mean|w| every grid is the max rule's
+MEAN_RULE_MAX = 10.0
+
+
+def parse_weight_rule(value, key: str = "weight_scale", section: str = "convert") -> tuple[str, float]:
+    """Parse a weight scale rule: a range statistic (`parse_range_rule`), or "mean:c" -> ("mean", c),
+    0 < c <= 10: the grid's first rounding boundary at c mean|w| (see `arith.weight_scale`; c = 0.7
+    is the ternary threshold of Ternary Weight Networks, Li & Liu 2016)."""
+    check_str(value, key, section)
+    head, sep, tail = value.strip().partition(":")
+    if head == "mean" and sep:
+        try:
+            c = float(tail)
+        except ValueError:
+            c = float("nan")
+        if 0.0 < c <= MEAN_RULE_MAX:
+            return "mean", c
+    elif head != "mean":
+        try:
+            return parse_range_rule(value, key, section)
+        except UsageError:
+            pass
+    raise UsageError(f"The '{key}' parameter of {section} must be 'max', 'percentile:Q' with Q in (0, 100] or "
+                     f"'mean:C' with C in (0, {MEAN_RULE_MAX:g}]. Got {value!r} instead.")
+
+
+def _weight_rule_validator(value, key, section):
+    parse_weight_rule(value, key, section)
+    return value
+
+
 def check_binary_payload(coding, payload_bits) -> None:
     """A binary spike carries no payload: coding "binary" needs payload_bits = 1 (refused otherwise)."""
     if coding == "binary" and payload_bits != 1:
@@ -49,8 +80,9 @@ KEYS: dict[str, Key] = {
     "per_channel": Key(False, "bool", "one scale per layer is the simplest hardware; per-channel is opt-in"),
     "calibration": Key("percentile:99.9", "any", "the 99.9th percentile ignores rare outliers (Rueckauer et al. 2017)",
                        validator=_rule_validator),
-    "weight_scale": Key("max", "any", "max-abs keeps every weight representable without clipping",
-                        validator=_rule_validator),
+    "weight_scale": Key("max", "any", "max-abs keeps every weight representable without clipping; "
+                        "'mean:0.7' (ternary threshold from the weight statistics) suits 2-3-bit weights",
+                        validator=_weight_rule_validator),
     "calib_samples": Key(512, "int", "512 training samples give stable percentiles in about a second", lo=1),
     "multiplier_bits": Key(16, "int", "a 16-bit multiplier mantissa keeps requantization error below 2^-16",
                            lo=2, hi=31),
@@ -95,5 +127,5 @@ class ConvertSettings(Section):
 
     @property
     def weight_rule(self) -> tuple[str, float]:
-        """The weight scale statistic, parsed: ("max", 100.0) or ("percentile", Q)."""
-        return parse_range_rule(self.weight_scale, "weight_scale", self.SECTION)
+        """The weight scale rule, parsed: ("max", 100.0), ("percentile", Q) or ("mean", c)."""
+        return parse_weight_rule(self.weight_scale, "weight_scale", self.SECTION)

@@ -7,6 +7,10 @@ from dataclasses import dataclass
 from snnconvert.schema import Key
 from snnconvert.settings import Section
 
+# keys that were renamed: old name -> new name (recipe.from_dict reads the old name with a note);
+# "shift" also named the requantization shift n
+RENAMED = {"shift": "jitter_px"}
+
 KEYS: dict[str, Key] = {
     "optimizer": Key("adam", "choice", "Adam needs no learning-rate search for small CNNs", choices=("adam", "sgd")),
     "lr": Key(0.003, "float", "a little above Adam's usual 1e-3: small batches of binary frames train stably at it",
@@ -23,14 +27,18 @@ KEYS: dict[str, Key] = {
                   lo=1, hi=10000),
     "patience": Key(0, "int", "0 = no early stop: with a cosine schedule the last epochs are the best; "
                     "the best-validation model is kept either way", lo=0),
-    "shift": Key(1, "int", "shifting frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
+    "jitter_px": Key(1, "int", "moving frames by up to 1 pixel mimics small fixation changes", lo=0, hi=8),
     "event_dropout": Key(0.05, "float", "removing 5% of input events mimics sensor noise; 10-20% cost accuracy on digits",
                          lo=0.0, hi=0.9),
     "activity_l1": Key(0.0, "float", "0 = off: the fan-out weighted L1 penalty on hidden activations (ramped in "
                        "over the first quarter of the steps) trades accuracy for fewer synaptic operations, "
                        "so it is opt-in", lo=0.0, hi=100.0),
-    "threads": Key(0, "int", "0 = auto: 1 thread for small models (thread hand-off dominates), else up to 2 cores",
+    "threads": Key(0, "int", "0 = auto: 1 thread below 1e9 multiply-accumulates per step (a second thread was 4-8x "
+                   "slower on a loaded 2-core machine), else up to 2 cores; never chosen by load",
                    lo=0, hi=256),
+    "memory_format": Key("contiguous", "choice", "bench/train.py: channels_last trained 9-31 % faster at batch "
+                         "32 on one thread in three runs, but its float rounding differs, so it is opt-in and "
+                         "the default recipe's figures stay as measured", choices=("contiguous", "channels_last")),
     "aware": Key(False, "bool", "conversion-aware fine-tuning is opt-in: plain float training is the baseline"),
     "aware_epochs": Key(3, "int", "a few epochs recover most accuracy lost to low-bit weights and payloads",
                         lo=1, hi=1000),
@@ -60,10 +68,11 @@ class TrainSettings(Section):
     batch_size: int
     epochs: int
     patience: int
-    shift: int
+    jitter_px: int
     event_dropout: float
     activity_l1: float
     threads: int
+    memory_format: str
     aware: bool
     aware_epochs: int
     aware_lr: float

@@ -68,7 +68,7 @@ def tolerance_verdict(loss_pp: float, tolerance_pp: float) -> str:
 def frame_model_kind(model) -> tuple[str, dict | None]:
     """("aware", {"weight_bits": k, "payload_bits": p}) for a conversion-aware (fake-quantized) frame
     model, read from its quantizing layers; ("float", None) otherwise."""
-    from snnconvert.models import ClipQuant
+    from snnconvert.aware import ClipQuant
     wb = sorted({int(m.weight_bits) for m in model.modules() if hasattr(m, "quantized_weight")})
     levels = sorted({int(m.levels) for m in model.modules() if isinstance(m, ClipQuant)})
     if not wb and not levels:

@@ -1,0 +1,95 @@
+"""Accuracy at low bit widths: float, 4/4 plain, 3/3 and 2/2 conversion-aware, and 1-bit payloads.
+
+    loss_pp = 100 * (float frame accuracy - spike accuracy), measured against the float model
+    goals (28x28 digits): spike >= 98.5 % and loss <= 0.2 pp at 4/4 plain; aware loss <= 0.5 pp
+    at 3/3 and <= 1.5 pp at 2/2 (k/p = weight bits / payload bits); tiny budget network >= 97 % at 4/4
+
+Data sets: the default digits recipe, and 8,000 28x28 thin-stroke digits with a held-out test split
+made from other originals (bench/digits28.py). Aware runs fine-tune the float model with the
+recipe's [train] settings; weight rule "max" and "mean:0.7" (ternary threshold from the weight
+statistics) side by side at 2/2. Nothing is tuned on the test split.
+Run: .venv/bin/python bench/lowbit.py [--sets digits,digits28,tiny] [--epochs E]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "bench"))
+# (weight bits, payload bits, aware, weight rule)
+POINTS = [(4, 4, False, "max"), (3, 3, True, "max"), (2, 2, True, "max"), (2, 2, True, "mean:0.7"),
+          (4, 1, True, "max"), (2, 1, True, "mean:0.7")]
+GOALS = {"4/4 plain": 0.2, "3/3 aware max": 0.5, "2/2 aware mean:0.7": 1.5}
+
+
+def run_points(name: str, recipe: dict, ds, points, log) -> dict:
+    from snnconvert import train
+    from snnconvert.convert import convert_and_measure
+    with tempfile.TemporaryDirectory(prefix="bench-lowbit-") as tmp:
+        r = dict(recipe, train=dict(recipe["train"], aware=False))
+        fm, m = train.train(r, ds, Path(tmp) / "float", quiet=True)
+    fa = m["frame_accuracy"]
+    log(f"[{name}] float frame accuracy {100 * fa:.2f}% ({m['test_count']} test samples, {m['epochs']} epochs)")
+    out = {"float": fa}
+    for k, p, aware, rule in points:
+        conv = dict(recipe["convert"], weight_bits=k, payload_bits=p, weight_scale=rule, coding="payload")
+        rk = dict(recipe, convert=conv)
+        act = None
+        model = fm
+        if aware:
+            model, act = train.finetune_aware(fm, ds, rk, k, p, bool(conv.get("per_channel", False)),
+                                              recipe["train"]["aware_epochs"], int(recipe["seed"]) + 1)
+        _, mm = convert_and_measure(model, ds, conv, act_max=act, quiet=True, float_accuracy=fa)
+        sa = mm["spike_accuracy"]
+        key = f"{k}/{p} {'aware' if aware else 'plain'} {rule}"
+        out[key] = sa
+        loss = 100 * (fa - sa)
+        goal = GOALS.get(key)
+        verdict = "" if goal is None else f"  goal loss <= {goal} pp: {'met' if loss <= goal else 'NOT met'}"
+        log(f"[{name}] {key:22s} spike {100 * sa:.2f}%  loss {loss:+.2f} pp{verdict}")
+    return out
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sets", default="digits,digits28,tiny")
+    ap.add_argument("--epochs", type=int, default=15, help="float epochs on the 28x28 digits")
+    ap.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE",
+                    help="recipe overrides for every set (e.g. train.threads=1)")
+    ap.add_argument("--points", default="all", help="'all', or 'goals' for the goal points only (4/4, 3/3, 2/2)")
+    args = ap.parse_args(argv)
+    import digits28
+    from snnconvert import data, recipe
+
+    def log(s):
+        print(s, flush=True)
+
+    log(f"load average at start: {os.getloadavg()[0]:.1f}")
+    res = {}
+    sets = args.sets.split(",")
+    points = POINTS if args.points == "all" else [p for p in POINTS if f"{p[0]}/{p[1]}" in ("4/4", "3/3", "2/2")
+                                                   and (p[1] != 2 or p[3] != "max")]
+    if "digits" in sets:
+        r = recipe.load(ROOT / "recipes" / "default.toml", args.overrides)
+        res["digits"] = run_points("digits", r, data.load_dataset(r, progress=False), points, log)
+    if "digits28" in sets or "tiny" in sets:
+        ds = digits28.dataset(n_train=8000, n_val=800, n_test=2000, seed=0)
+    if "digits28" in sets:
+        r = recipe.load(ROOT / "recipes" / "idx_files.toml", [f"train.epochs={args.epochs}", *args.overrides])
+        res["digits28"] = run_points("digits28", r, ds, points, log)
+    if "tiny" in sets:
+        r = recipe.load(ROOT / "recipes" / "tiny_budget.toml", args.overrides)
+        res["tiny"] = run_points("tiny", r, ds, [(4, 4, False, "max"), (4, 4, True, "max")], log)
+        best = max(res["tiny"]["4/4 plain max"], res["tiny"]["4/4 aware max"])
+        log(f"[tiny] best 4/4 spike {100 * best:.2f}% vs goal >= 97%: {'met' if best >= 0.97 else 'NOT met'}")
+    log(f"load average at end: {os.getloadavg()[0]:.1f}")
+    return res
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
