@@ -45,22 +45,31 @@ def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str
                threshold: int = 1, max_count: int = 4) -> np.ndarray:
     """Bin events tagged by group (window or recording index) into (n_groups, C, size, size) float32.
 
-    One np.bincount over all events: no Python loop per event or per group.
+    bin(e) = (group(e) + 1) * C * size^2 + lut[y(e) * width + x(e) + (p(e) < 0 and C == 2) * width * height],
+    lut[y * width + x] = (y * size // height) * size + x * size // width (offset by one plane for OFF);
+    then one np.bincount over all events, block 0 (negative groups: outside every window) dropped.
+    The flat index is built in place in one intp array (the type np.bincount counts without a copy):
+    no Python loop per event or per group, no temporaries of the event count beyond the group offsets.
     """
     _check(mode, size, threshold, max_count)
     c = channels(mode)
     plane = size * size
-    # lookup tables instead of per-event integer division: target row offset and column per sensor pixel
-    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size
-    lut_x = np.arange(width, dtype=np.int64) * size // width
-    idx = lut_y[y] + lut_x[x]  # (E,) target pixel
+    block = c * plane
+    # target pixel of every sensor pixel (row-major), then of every (polarity, pixel) for 2 channels
+    lut = ((np.arange(height, dtype=np.intp) * size // height)[:, None] * size
+           + (np.arange(width, dtype=np.intp) * size // width)[None, :]).ravel()  # (height * width,)
+    idx = np.asarray(y).astype(np.intp)  # (E,)
+    idx *= width
+    idx += x
     if c == 2:
-        idx += (p < 0) * plane
+        lut = np.concatenate([lut, lut + plane])
+        idx += (np.asarray(p) < 0) * (width * height)
+    lut.take(idx, out=idx, mode="clip")  # indices are in range: "clip" only skips the bounds buffer
     group = np.asarray(group)
-    if group.ndim and group.size and group.min() < 0:  # a negative group means "outside every window": counted in one spare bin, then dropped
-        group = np.where(group < 0, n_groups, group)
-    idx += group * (c * plane)
-    counts = np.bincount(idx, minlength=(n_groups + 1) * c * plane)[: n_groups * c * plane]
+    if group.ndim and group.size and group.min() < -1:  # any negative group is "outside every window"
+        group = np.maximum(group, -1)
+    idx += (group + 1) * block
+    counts = np.bincount(idx, minlength=(n_groups + 1) * block)[block:(n_groups + 1) * block]
     counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
     if mode == "binary":
         return (counts >= threshold).astype(np.float32)

@@ -194,26 +194,43 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
     return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
 
 
-def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventStream]:
-    """The streams of one chunk. .bin files (no stored sensor size: default_sensor) are decoded
-    together: one frombuffer over the concatenated bytes, the 23-bit timestamp unwrapped within each
-    file, addresses checked once for the chunk; other formats go through read_events one by one."""
+def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.ndarray, np.ndarray]:
+    """(events EVENT_DTYPE, starts (n + 1,)) of one chunk: file i is events[starts[i]:starts[i + 1]].
+
+    .bin files (no stored sensor size: default_sensor) are decoded together: one np.frombuffer over
+    the concatenated bytes, the 23-bit timestamp unwrapped within each file (its wrap count restarts
+    at the file's first event), addresses checked once for the chunk; no Python work per event. A
+    file that fails a check is read again alone, so the error names the file and the byte offset.
+    Other formats go through read_events one by one.
+    """
     from snnconvert.events.formats import WRAP_US, decode_bin
     if not all(p.endswith(".bin") for p in paths) or not default_sensor:
-        return [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
-    blobs = [Path(p).read_bytes() for p in paths]
-    sizes = np.array([len(b) for b in blobs], np.int64)
+        streams = [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
+        sizes = {(s.width, s.height) for s in streams}
+        if len(sizes) > 1:
+            raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+        starts = np.concatenate([[0], np.cumsum([len(s) for s in streams])]).astype(np.int64)
+        ev = np.concatenate([s.events for s in streams]) if streams else np.zeros(0, EVENT_DTYPE)
+        return ev, starts, sizes.pop() if sizes else tuple(default_sensor or (1, 1))
+    blobs = []
+    for p in paths:
+        with open(p, "rb") as f:
+            blobs.append(f.read())
+    sizes = np.fromiter(map(len, blobs), np.int64, len(blobs))
     bad = np.flatnonzero(sizes % 5)
     if bad.size:  # the one-file reader names the byte offset
         read_events(paths[int(bad[0])], default_sensor=default_sensor)
-    t, x, y, p = decode_bin(b"".join(blobs))
     counts = sizes // 5
     starts = np.concatenate([[0], np.cumsum(counts)])
-    if t.size:  # undo wraps counted across file boundaries: each file starts with no wrap
-        t23 = t % WRAP_US
-        wraps = np.concatenate([[0], np.cumsum(np.diff(t23) < 0)])
-        first = np.repeat(wraps[np.minimum(starts[:-1], t.size - 1)], counts)
-        t = t23 + (wraps - first) * WRAP_US
+    t, x, y, p = decode_bin(b"".join(blobs), unwrap=False)
+    if t.size > 1:  # a decrease of the 23-bit field is a wrap, except at a file's first event
+        step = np.empty(t.size, np.int64)
+        step[0] = 0
+        np.less(t[1:], t[:-1], out=step[1:])
+        step[starts[1:-1][counts[1:] > 0]] = 0
+        wraps = np.cumsum(step, out=step)
+        wraps -= np.repeat(wraps[starts[:-1][counts > 0]], counts[counts > 0])
+        t += wraps * WRAP_US
     w, h = default_sensor
     if t.size and (int(x.max()) >= w or int(y.max()) >= h):
         i = int(np.flatnonzero((x >= w) | (y >= h))[0])
@@ -221,47 +238,59 @@ def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventS
         read_events(paths[f], default_sensor=default_sensor)  # raises, naming the file and offset
     ev = np.empty(t.size, EVENT_DTYPE)
     ev["t"], ev["x"], ev["y"], ev["p"] = t, x, y, p
-    out = []
-    for i in range(len(paths)):
-        s = EventStream.__new__(EventStream)  # checked above as a whole: addresses, polarity, rising time
-        s.events, s.width, s.height = ev[starts[i]:starts[i + 1]], w, h
-        out.append(s)
-    return out
+    return ev, starts, (w, h)
 
 
 def _folder_chunk(task: tuple) -> dict:
     """Worker: read, filter and window the files of one chunk, bin all their windows in one pass;
-    return only frames and counts."""
+    return only frames (uint8) and per-file counts.
+
+    The Python loop per file only finds its windows (frames.frame_windows); reading, the window
+    bounds (one np.searchsorted per file over its own times), the group of every event (one np.repeat
+    over the chunk) and the binning (one np.bincount) are whole-chunk array operations.
+    """
     from snnconvert import frames
     paths, default_sensor, time_unit, filt, sec = task
     n, k = len(paths), frames.windows_used(sec)
     out = {"X": None, "windows": np.zeros((n, 2), np.int64), "ok": np.zeros(n, bool), "lens": np.zeros(n, np.int64),
            "events_in": np.zeros(n, np.int64), "events": np.zeros(n, np.int64), "pixels_removed": np.zeros(n, np.int64),
            "sensor": np.zeros((n, 2), np.int64)}
-    kept, groups = [], []
-    for i, s in enumerate(_read_chunk(paths, default_sensor, time_unit)):
-        s, eff = _filters.apply(s, *filt)
+    ev, starts, (w, h) = _read_chunk(paths, default_sensor, time_unit)
+    out["sensor"][:] = w, h
+    out["events_in"][:] = np.diff(starts)
+    if any(filt):  # the filters change the events: keep each file's survivors, then re-count
+        kept = []
+        for i in range(n):
+            s, eff = _filters.apply(_stream(ev[starts[i]:starts[i + 1]], w, h), *filt)
+            kept.append(s.events)
+            out["pixels_removed"][i] = eff["pixels_removed"]
+        ev = np.concatenate(kept) if kept else ev[:0]
+        starts = np.concatenate([[0], np.cumsum([len(v) for v in kept])]).astype(np.int64)
+    out["events"][:] = np.diff(starts)
+    t = ev["t"]
+    bounds = np.zeros((n, 2 * k), np.int64)  # event index where each window of each file opens / closes
+    for i in range(n):
+        s = _stream(ev[starts[i]:starts[i + 1]], w, h)
         ws, out["ok"][i] = frames.frame_windows(s, sec)
         out["windows"][i] = ws[0][0], ws[-1][1]
-        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())  # (2K,)
-        seg_len = np.diff(np.r_[0, bounds, len(s)])  # gap, window, gap, ..., gap
-        seg_val = np.full(seg_len.size, -1, np.int64)
-        seg_val[1::2] = i * k + np.arange(k)
-        groups.append(np.repeat(seg_val, seg_len))
-        kept.append(s.events)
-        out["lens"][i] = int(seg_len[1::2].sum())
-        out["events_in"][i], out["events"][i] = eff["events_in"], eff["events_out"]
-        out["pixels_removed"][i] = eff["pixels_removed"]
-        out["sensor"][i] = s.width, s.height
-    if len({tuple(v) for v in out["sensor"]}) > 1:
-        raise UsageError(f"recordings have different sensor sizes {sorted({tuple(v) for v in out['sensor']})}; "
-                         f"use one sensor per folder")
-    ev = np.concatenate(kept) if kept else np.zeros(0, EVENT_DTYPE)
-    w, h = (int(v) for v in out["sensor"][0]) if n else (1, 1)
-    X = frames.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.concatenate(groups) if groups else np.zeros(0, np.int64),
-                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+        bounds[i] = starts[i] + np.searchsorted(t[starts[i]:starts[i + 1]], np.asarray(ws, np.int64).ravel())
+    # segments of the whole chunk: gap, window, gap, window, ..., gap; windows are labelled i * k + j
+    flat = bounds.ravel()
+    seg_len = np.diff(np.concatenate([[0], flat, [t.size]]))
+    seg_val = np.full(seg_len.size, -1, np.int64)
+    seg_val[1::2] = np.arange(n * k)
+    out["lens"][:] = (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
+    X = frames.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.repeat(seg_val, seg_len), n * k, sec["mode"],
+                          sec["size"], sec["threshold"], sec["max_count"])
     out["X"] = X.reshape(n, k, *X.shape[1:]).astype(np.uint8)
     return out
+
+
+def _stream(events: np.ndarray, w: int, h: int) -> EventStream:
+    """An EventStream over events checked already as part of their chunk (addresses, polarity, time order)."""
+    s = EventStream.__new__(EventStream)
+    s.events, s.width, s.height = events, w, h
+    return s
 
 
 def folder_frames(folder: RecordingFolder, frames_section: dict, progress: bool = True, workers: int = 1,

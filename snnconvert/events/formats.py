@@ -321,16 +321,27 @@ def encode_bin(stream: EventStream) -> bytes:
     return out.tobytes()
 
 
-def decode_bin(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """(t, x, y, p) from whole 5-byte records; t unwrapped at each decrease of the 23-bit field."""
+def decode_bin(data: bytes, unwrap: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(t int64, x uint16, y uint16, p int8) from whole 5-byte records, all columns at once from one
+    np.frombuffer (no Python per event): x = b0, y = b1, p = +1 if b2 >> 7 else -1,
+    t = (b2 & 0x7F) << 16 | b3 << 8 | b4, plus 2^23 for every decrease of that field before it
+    (unwrap=False: the raw 23-bit field, for a caller that unwraps several files at once)."""
     b = np.frombuffer(data, np.uint8).reshape(-1, 5)  # (N, 5)
     x = b[:, 0].astype(np.uint16)
     y = b[:, 1].astype(np.uint16)
-    p = np.where(b[:, 2] >> 7, 1, -1).astype(np.int8)
-    t = ((b[:, 2].astype(np.int64) & 0x7F) << 16) | (b[:, 3].astype(np.int64) << 8) | b[:, 4]
-    if t.size > 1:
-        wraps = np.concatenate([[0], np.cumsum(np.diff(t) < 0)])
-        t = t + wraps * WRAP_US
+    hi = b[:, 2]
+    p = (hi >> 7).astype(np.int8)
+    p *= 2
+    p -= 1
+    t = (hi & 0x7F).astype(np.int64)
+    t <<= 16
+    t |= b[:, 3].astype(np.int64) << 8
+    t |= b[:, 4]
+    if unwrap and t.size > 1:
+        wraps = np.empty(t.size, np.int64)
+        wraps[0] = 0
+        np.less(t[1:], t[:-1], out=wraps[1:])
+        t += np.cumsum(wraps, out=wraps) * WRAP_US
     return t, x, y, p
 
 
