@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -21,6 +22,7 @@ from snnconvert.events import filters as _filters
 from snnconvert.events.formats import read_events
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
 
+SCAN_ROWS = 64  # an index with more rows checks its files by one directory scan
 CHUNK = 256  # files per worker task: large enough to hide the task overhead, small enough for a smooth bar
 
 
@@ -128,15 +130,24 @@ def read_index(index_path) -> tuple[list[Path], list[str]]:
     if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
         raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
     paths, labels = [], []
-    root = index_path.parent.resolve()  # once: resolve_inside's fast path then needs one lstat per file
+    root = index_path.parent.resolve()  # once: a plain file name then needs no system call (below)
+    # a long index: one directory scan lists the regular files (not symlinks) of the folder, so a
+    # plain file name found there is inside the folder and exists; other names go through
+    # resolve_inside and a stat, as every name of a short index does
+    regular = ({e.name for e in os.scandir(root) if e.is_file(follow_symlinks=False)}
+               if len(rows) > SCAN_ROWS else set())
     for n, row in enumerate(rows[1:], start=2):
         if not row or not "".join(row).strip():
             continue
         if len(row) != 2 or not row[0].strip() or not row[1].strip():
             raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
-        p = files.resolve_inside(root, row[0].strip(), what=f"{index_path} line {n}: file")
-        if not p.is_file():
-            raise UsageError(f"{index_path}: line {n}: file not found: {p}")
+        name = row[0].strip()
+        if name in regular and files.plain_name(name):
+            p = root / name
+        else:
+            p = files.resolve_inside(root, name, what=f"{index_path} line {n}: file")
+            if not p.is_file():
+                raise UsageError(f"{index_path}: line {n}: file not found: {p}")
         paths.append(p)
         labels.append(row[1].strip())
     if not paths:
