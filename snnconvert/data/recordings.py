@@ -205,8 +205,9 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
     return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
 
 
-def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.ndarray, np.ndarray]:
-    """(events EVENT_DTYPE, starts (n + 1,)) of one chunk: file i is events[starts[i]:starts[i + 1]].
+def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.ndarray, np.ndarray, tuple]:
+    """(events EVENT_DTYPE, starts (n + 1,), (width, height)) of one chunk: file i is
+    events[starts[i]:starts[i + 1]]; files of different sensor sizes are refused.
 
     .bin files (no stored sensor size: default_sensor) are decoded together: one np.frombuffer over
     the concatenated bytes, the 23-bit timestamp unwrapped within each file (its wrap count restarts
@@ -214,7 +215,7 @@ def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.nd
     file that fails a check is read again alone, so the error names the file and the byte offset.
     Other formats go through read_events one by one.
     """
-    from snnconvert.events.formats import WRAP_US, decode_bin
+    from snnconvert.events.formats import decode_bin
     if not all(p.endswith(".bin") for p in paths) or not default_sensor:
         streams = [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
         sizes = {(s.width, s.height) for s in streams}
@@ -231,17 +232,8 @@ def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.nd
     bad = np.flatnonzero(sizes % 5)
     if bad.size:  # the one-file reader names the byte offset
         read_events(paths[int(bad[0])], default_sensor=default_sensor)
-    counts = sizes // 5
-    starts = np.concatenate([[0], np.cumsum(counts)])
-    t, x, y, p = decode_bin(b"".join(blobs), unwrap=False)
-    if t.size > 1:  # a decrease of the 23-bit field is a wrap, except at a file's first event
-        step = np.empty(t.size, np.int64)
-        step[0] = 0
-        np.less(t[1:], t[:-1], out=step[1:])
-        step[starts[1:-1][counts[1:] > 0]] = 0
-        wraps = np.cumsum(step, out=step)
-        wraps -= np.repeat(wraps[starts[:-1][counts > 0]], counts[counts > 0])
-        t += wraps * WRAP_US
+    starts = np.concatenate([[0], np.cumsum(sizes // 5)])
+    t, x, y, p = decode_bin(b"".join(blobs), starts)  # wraps counted within each file
     w, h = default_sensor
     if t.size and (int(x.max()) >= w or int(y.max()) >= h):
         i = int(np.flatnonzero((x >= w) | (y >= h))[0])

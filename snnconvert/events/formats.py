@@ -321,11 +321,15 @@ def encode_bin(stream: EventStream) -> bytes:
     return out.tobytes()
 
 
-def decode_bin(data: bytes, unwrap: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """(t int64, x uint16, y uint16, p int8) from whole 5-byte records, all columns at once from one
+def decode_bin(data: bytes, starts=None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(t int64, x uint16, y uint16, p int8) from whole 5-byte records, every column from one
     np.frombuffer (no Python per event): x = b0, y = b1, p = +1 if b2 >> 7 else -1,
-    t = (b2 & 0x7F) << 16 | b3 << 8 | b4, plus 2^23 for every decrease of that field before it
-    (unwrap=False: the raw 23-bit field, for a caller that unwraps several files at once)."""
+    t = (b2 & 0x7F) << 16 | b3 << 8 | b4, plus 2^23 for every decrease of that field before it.
+
+    `starts` (rising record indices, first 0, last the record count) marks several files joined
+    together: the wrap count restarts at each file's first record (a file starting below the previous
+    file's last time is not a wrap). Default: one file.
+    """
     b = np.frombuffer(data, np.uint8).reshape(-1, 5)  # (N, 5)
     x = b[:, 0].astype(np.uint16)
     y = b[:, 1].astype(np.uint16)
@@ -337,11 +341,17 @@ def decode_bin(data: bytes, unwrap: bool = True) -> tuple[np.ndarray, np.ndarray
     t <<= 16
     t |= b[:, 3].astype(np.int64) << 8
     t |= b[:, 4]
-    if unwrap and t.size > 1:
-        wraps = np.empty(t.size, np.int64)
+    if t.size > 1:
+        wraps = np.empty(t.size, np.int64)  # decreases up to each record, then less those before its file
         wraps[0] = 0
         np.less(t[1:], t[:-1], out=wraps[1:])
-        t += np.cumsum(wraps, out=wraps) * WRAP_US
+        np.cumsum(wraps, out=wraps)
+        if starts is not None:
+            counts = np.diff(starts)
+            filled = counts > 0
+            wraps -= np.repeat(wraps[np.asarray(starts)[:-1][filled]], counts[filled])
+        wraps *= WRAP_US
+        t += wraps
     return t, x, y, p
 
 
