@@ -43,15 +43,38 @@ def _check(mode, size, threshold, max_count):
 
 def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str = "binary", size: int = 16,
                threshold: int = 1, max_count: int = 4) -> np.ndarray:
-    """Bin events tagged by group (window or recording index) into (n_groups, C, size, size) float32.
-
-    bin(e) = (group(e) + 1) * C * size^2 + lut[y(e) * width + x(e) + (p(e) < 0 and C == 2) * width * height],
-    lut[y * width + x] = (y * size // height) * size + x * size // width (offset by one plane for OFF);
-    then one np.bincount over all events, block 0 (negative groups: outside every window) dropped.
-    The flat index is built in place in one intp array (the type np.bincount counts without a copy):
-    no Python loop per event or per group, no temporaries of the event count beyond the group offsets.
-    """
+    """Bin events tagged by group (window or recording index) into (n_groups, C, size, size) float32;
+    a negative group is outside every window (not counted). See _binned for the one-pass rule."""
     _check(mode, size, threshold, max_count)
+    block = channels(mode) * size * size
+    group = np.asarray(group)
+    if group.ndim and group.size and group.min() < -1:
+        group = np.maximum(group, -1)
+    return _binned(x, y, p, width, height, (group + 1) * block, n_groups, mode, size, threshold, max_count)
+
+
+def bin_segments(x, y, p, width: int, height: int, bounds, mode: str = "binary", size: int = 16,
+                 threshold: int = 1, max_count: int = 4) -> np.ndarray:
+    """Frames (K, C, size, size) float32 of K windows that are contiguous runs of events: window j holds
+    events bounds[2j] .. bounds[2j + 1] - 1 (bounds rising, 2K values); the events between the runs
+    are not counted. The group of every event comes from one np.repeat over the 2K + 1 runs."""
+    _check(mode, size, threshold, max_count)
+    block = channels(mode) * size * size
+    bounds = np.asarray(bounds, np.int64).ravel()
+    k = bounds.size // 2
+    runs = np.diff(np.concatenate([[0], bounds, [len(x)]]))  # (2K + 1,) gap, window, gap, ..., gap
+    offset = np.zeros(runs.size, np.intp)
+    offset[1::2] = np.arange(1, k + 1) * block
+    return _binned(x, y, p, width, height, np.repeat(offset, runs), k, mode, size, threshold, max_count)
+
+
+def _binned(x, y, p, width: int, height: int, offset, n_groups: int, mode: str, size: int, threshold: int,
+            max_count: int) -> np.ndarray:
+    """bin(e) = offset(e) + lut[y(e) * width + x(e) + (p(e) < 0 and C == 2) * width * height],
+    lut[y * width + x] = (y * size // height) * size + x * size // width (plus one plane for OFF),
+    offset(e) = (group(e) + 1) * C * size^2 (0: outside every window); one np.bincount over all
+    events, block 0 dropped. The flat index is built in place in one intp array (the type np.bincount
+    counts without a copy): no Python loop per event or per group."""
     c = channels(mode)
     plane = size * size
     block = c * plane
@@ -65,10 +88,7 @@ def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str
         lut = np.concatenate([lut, lut + plane])
         idx += (np.asarray(p) < 0) * (width * height)
     lut.take(idx, out=idx, mode="clip")  # indices are in range: "clip" only skips the bounds buffer
-    group = np.asarray(group)
-    if group.ndim and group.size and group.min() < -1:  # any negative group is "outside every window"
-        group = np.maximum(group, -1)
-    idx += (group + 1) * block
+    idx += offset
     counts = np.bincount(idx, minlength=(n_groups + 1) * block)[block:(n_groups + 1) * block]
     counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
     if mode == "binary":
@@ -83,15 +103,10 @@ def bin_windows(stream: EventStream, windows, mode: str = "binary", size: int = 
     w = np.asarray(windows, np.int64).reshape(-1, 2)  # (K, 2)
     if w.size and (np.any(w[:, 1] < w[:, 0]) or np.any(w[1:, 0] < w[:-1, 1])):
         raise UsageError("windows must be ordered, non-overlapping (t_start, t_end) pairs")
+    # windows are contiguous index ranges of the time-ordered events: found by binary search
     bounds = np.searchsorted(stream.t, w.ravel())  # (2K,) event index where each window opens/closes
-    # one group label per event without gathering events: windows are contiguous index ranges,
-    # the gaps between them get -1
-    seg_len = np.diff(np.r_[0, bounds, len(stream)])  # (2K + 1,) gap, window, gap, window, ..., gap
-    seg_val = np.full(seg_len.size, -1, np.int64)
-    seg_val[1::2] = np.arange(len(w))
-    group = np.repeat(seg_val, seg_len)  # (E,)
-    return bin_events(stream.x, stream.y, stream.p, stream.width, stream.height, group, len(w), mode, size,
-                      threshold, max_count)
+    return bin_segments(stream.x, stream.y, stream.p, stream.width, stream.height, bounds, mode, size, threshold,
+                        max_count)
 
 
 def bin_window(stream: EventStream, t0: int, t1: int, mode: str = "binary", size: int = 16, threshold: int = 1,

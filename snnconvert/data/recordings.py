@@ -277,14 +277,10 @@ def _folder_chunk(task: tuple) -> dict:
         ws, out["ok"][i] = frames.frame_windows(s, sec)
         out["windows"][i] = ws[0][0], ws[-1][1]
         bounds[i] = starts[i] + np.searchsorted(t[starts[i]:starts[i + 1]], np.asarray(ws, np.int64).ravel())
-    # segments of the whole chunk: gap, window, gap, window, ..., gap; windows are labelled i * k + j
-    flat = bounds.ravel()
-    seg_len = np.diff(np.concatenate([[0], flat, [t.size]]))
-    seg_val = np.full(seg_len.size, -1, np.int64)
-    seg_val[1::2] = np.arange(n * k)
+    # window j of file i is the run of events bounds[i, 2j] .. bounds[i, 2j + 1] - 1 of the chunk
     out["lens"][:] = (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
-    X = frames.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.repeat(seg_val, seg_len), n * k, sec["mode"],
-                          sec["size"], sec["threshold"], sec["max_count"])
+    X = frames.bin_segments(ev["x"], ev["y"], ev["p"], w, h, bounds, sec["mode"], sec["size"], sec["threshold"],
+                            sec["max_count"])
     out["X"] = X.reshape(n, k, *X.shape[1:]).astype(np.uint8)
     return out
 
