@@ -79,10 +79,13 @@ def main(argv: list[str] | None = None) -> dict:
     fig["idx_first"] = timed(ROOT / "recipes" / "idx_files.toml", idx)
     fig["idx_second"] = timed(ROOT / "recipes" / "idx_files.toml", idx)
     c, w = fig["cold"], fig["warm"]
+    fig["load_average_end"] = os.getloadavg()
     print(f"data scale bench: {args.count:,} recordings in {folder}, {args.workers} workers, "
-          f"load average {fig['load_average'][0]:.1f}")
+          f"load average {fig['load_average'][0]:.1f} at the start, {fig['load_average_end'][0]:.1f} at the end "
+          f"(on a shared machine every time is inflated by the other load)")
     print(line("recordings cold", c["seconds"], "s", GOALS["cold_s"]))
-    print(f"  {'':<22} {c['events'] / c['seconds'] / 1e6:8.2f} M events/s, {c['recordings'] / c['seconds']:,.0f} files/s")
+    print(f"  {'':<22} {c['events'] / c['seconds'] / 1e6:8.2f} M events/s, {c['recordings'] / c['seconds']:,.0f} files/s, "
+          f"{c['seconds'] * args.workers / c['recordings'] * 1e3:.2f} ms per file per worker")
     print(line("recordings warm", w["seconds"], "s", GOALS["warm_s"]) + f"   (cache reused: {w['reused']})")
     print(line("recordings peak memory", max(c["peak_gb"], w["peak_gb"]), "GB", GOALS["peak_gb"]))
     print(line("idx first run", fig["idx_first"]["seconds"], "s", None) +
