@@ -184,25 +184,23 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
         return out["X"].astype(np.float32), out["windows"], out["ok"], out["lens"]
     from snnconvert import frames
     sec = _frames_section(frames_section)
-    n, k = len(recs), frames.windows_used(sec)
-    wins = np.zeros((n, 2), np.int64)
-    ok = np.zeros(n, bool)
-    sel, groups = [], []
+    n = len(recs)
+    wins, ok, bounds = np.zeros((n, 2), np.int64), np.zeros(n, bool), np.zeros((n, 2 * frames.windows_used(sec)), np.int64)
     for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
-        s, _ = recs[i]
-        ws, ok[i] = frames.frame_windows(s, sec)
-        wins[i] = ws[0][0], ws[-1][1]
-        for j, (t0, t1) in enumerate(ws):
-            a, b = np.searchsorted(s.t, [t0, t1])
-            sel.append(np.arange(recs.offsets[i] + a, recs.offsets[i] + b))
-            groups.append(i * k + j)
-    sizes = np.array([len(v) for v in sel], np.int64)
-    idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
-    ev = recs.events[idx]
-    X = frames.bin_events(ev["x"], ev["y"], ev["p"], recs.width, recs.height, np.repeat(np.asarray(groups, np.int64), sizes),
-                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
-    lens = np.bincount(np.repeat(np.asarray(groups, np.int64) // k, sizes), minlength=n).astype(np.int64)
-    return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
+        _window_bounds(recs[i][0], int(recs.offsets[i]), sec, i, wins, ok, bounds)
+    X = frames.bin_segments(recs.events["x"], recs.events["y"], recs.events["p"], recs.width, recs.height, bounds,
+                            sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    return X.reshape(n, -1, *X.shape[1:]), wins, ok, (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
+
+
+def _window_bounds(s: EventStream, start: int, sec: dict, i: int, wins, ok, bounds) -> None:
+    """Recording i (events start.. of the whole array) by the window rule: wins[i] spans its first to
+    its last window, ok[i] says whether the rule gave them, bounds[i] (2K,) are the event indices
+    (of the whole array) where its windows open and close, for frames.bin_segments."""
+    from snnconvert import frames
+    ws, ok[i] = frames.frame_windows(s, sec)
+    wins[i] = ws[0][0], ws[-1][1]
+    bounds[i] = start + np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())
 
 
 def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.ndarray, np.ndarray, tuple]:
@@ -270,13 +268,10 @@ def _folder_chunk(task: tuple) -> dict:
         ev = np.concatenate(kept) if kept else ev[:0]
         starts = np.concatenate([[0], np.cumsum([len(v) for v in kept])]).astype(np.int64)
     out["events"][:] = np.diff(starts)
-    t = ev["t"]
     bounds = np.zeros((n, 2 * k), np.int64)  # event index where each window of each file opens / closes
     for i in range(n):
-        s = _stream(ev[starts[i]:starts[i + 1]], w, h)
-        ws, out["ok"][i] = frames.frame_windows(s, sec)
-        out["windows"][i] = ws[0][0], ws[-1][1]
-        bounds[i] = starts[i] + np.searchsorted(t[starts[i]:starts[i + 1]], np.asarray(ws, np.int64).ravel())
+        _window_bounds(_stream(ev[starts[i]:starts[i + 1]], w, h), int(starts[i]), sec, i, out["windows"], out["ok"],
+                       bounds)
     # window j of file i is the run of events bounds[i, 2j] .. bounds[i, 2j + 1] - 1 of the chunk
     out["lens"][:] = (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
     X = frames.bin_segments(ev["x"], ev["y"], ev["p"], w, h, bounds, sec["mode"], sec["size"], sec["threshold"],
