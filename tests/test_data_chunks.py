@@ -15,7 +15,8 @@ from snnconvert import frames
 from snnconvert import recipe as R
 from snnconvert.data import generate as G
 from snnconvert.data import recordings as Rec
-from snnconvert.events import EventStream, encode_bin
+from snnconvert.errors import UsageError
+from snnconvert.events import EVENT_DTYPE, EventStream, encode_bin
 from snnconvert.events.formats import WRAP_US
 
 RECIPES = Path(__file__).resolve().parent.parent / "recipes"
@@ -125,3 +126,21 @@ def test_folder_frames_equal_the_per_event_reference(folder, extra):
         assert one["lens"][i] == sum(t0 <= e[0] < t1 for e in events for t0, t1 in ws)
         assert one["windows"][i].tolist() == [ws[0][0], ws[-1][1]] and one["ok"][i] == ok
         assert one["events"][i] == one["events_in"][i] == len(events)
+
+
+@pytest.mark.parametrize("t, x, match", [
+    ([5, 9, 1, 4], [0, 1, 2, 3], None),                   # time falls where recording 1 starts: allowed
+    ([5, 9, 4, 1], [0, 1, 2, 3], "recording 1: event field 't' decreases at index 1"),
+    ([5, 9, 1, 4], [0, 1, 34, 3], "event field 'x' at index 2 is 34, outside the sensor"),
+])
+def test_in_memory_set_is_checked_once_per_set(t, x, match):
+    ev = np.zeros(4, EVENT_DTYPE)
+    ev["t"], ev["x"], ev["p"] = t, x, 1
+    recs = Rec.RecordingSet(ev, np.array([0, 2, 4]), np.array([0, 1]), 34, 34)
+    sec = R.load(RECIPES / "default.toml", ["frames.window=all", "frames.size=34", "frames.mode=count"])["frames"]
+    if match is None:
+        X = Rec.recording_frames(recs, sec, progress=False)[0]
+        assert X.sum() == 4
+    else:
+        with pytest.raises(UsageError, match=match):
+            Rec.recording_frames(recs, sec, progress=False)

@@ -186,11 +186,30 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
     sec = _frames_section(frames_section)
     n = len(recs)
     wins, ok, bounds = np.zeros((n, 2), np.int64), np.zeros(n, bool), np.zeros((n, 2 * frames.windows_used(sec)), np.int64)
+    _check_set(recs)  # once for the set: the recordings below are views of checked events
     for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
-        _window_bounds(recs[i][0], int(recs.offsets[i]), sec, i, wins, ok, bounds)
+        ev = recs.events[recs.offsets[i]:recs.offsets[i + 1]]
+        _window_bounds(_stream(ev, recs.width, recs.height), int(recs.offsets[i]), sec, i, wins, ok, bounds)
     X = frames.bin_segments(recs.events["x"], recs.events["y"], recs.events["p"], recs.width, recs.height, bounds,
                             sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
     return X.reshape(n, -1, *X.shape[1:]), wins, ok, (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
+
+
+def _check_set(recs: RecordingSet) -> None:
+    """The checks of EventStream over every recording of a set at once: addresses on the sensor,
+    polarity +1/-1, time non-decreasing within each recording (it may fall where a recording starts)."""
+    from snnconvert.events.stream import _validate
+    ev, off = recs.events, np.asarray(recs.offsets, np.int64)
+    if off.shape != (len(recs) + 1,) or off[0] != 0 or off[-1] != ev.size or np.any(np.diff(off) < 0):
+        raise UsageError(f"recording offsets must rise from 0 to {ev.size} over {len(recs)} recordings")
+    _validate(ev["t"][:1], ev["x"], ev["y"], ev["p"], recs.width, recs.height)  # time order: per recording, below
+    t = ev["t"]
+    falls = np.flatnonzero(t[1:] < t[:-1]) + 1
+    bad = falls[~np.isin(falls, off)]
+    if bad.size:
+        i = int(bad[0])
+        r = int(np.searchsorted(off, i, side="right") - 1)
+        raise UsageError(f"recording {r}: event field 't' decreases at index {i - off[r]} ({t[i - 1]} -> {t[i]})")
 
 
 def _window_bounds(s: EventStream, start: int, sec: dict, i: int, wins, ok, bounds) -> None:
