@@ -251,7 +251,7 @@ def _feed(h, item, nested: bool = True) -> None:
     if isinstance(item, np.ndarray):
         a = np.ascontiguousarray(item)
         h.update(f"nd{a.dtype.str}{a.shape}".encode())
-        h.update(a.tobytes())
+        h.update(a.tobytes() if a.dtype.hasobject else a.reshape(-1).view(np.uint8))  # the bytes, without a copy
     elif nested and isinstance(item, dict):
         h.update(b"{")
         for k in sorted(item, key=str):
