@@ -175,8 +175,9 @@ def _binarized_recordings(images: np.ndarray, labels: np.ndarray, level: float) 
 def _folder_frames_cached(recipe: dict, dsec: dict, fsec: dict, recs: RecordingFolder, info: dict,
                           progress: bool):
     """recording_frames of a folder through the frames cache, with the frames as the uint8 array the
-    cache holds: hit -> the cache file alone; miss -> stream the files (folder_frames) and write the cache. Fills recs.events, width, height and
-    info (cache, cache_reused, filters)."""
+    cache holds: hit -> the cache file alone (one np.load; the key stats each file once); miss ->
+    stream the files (folder_frames) and write the cache. Fills recs.events, width, height and info
+    (cache, cache_reused, filters)."""
     base = Path(recipe.get("_base_dir") or ".")
     settings = (dsec["sensor_side"], dsec["time_unit"], recs.filters, sorted(fsec.items()))
     key = _cache.folder_key(Path(info["index"]), recs.paths, settings)

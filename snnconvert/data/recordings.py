@@ -185,7 +185,8 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
     from snnconvert import frames
     sec = _frames_section(frames_section)
     n = len(recs)
-    wins, ok, bounds = np.zeros((n, 2), np.int64), np.zeros(n, bool), np.zeros((n, 2 * frames.windows_used(sec)), np.int64)
+    wins, ok = np.zeros((n, 2), np.int64), np.zeros(n, bool)
+    bounds = np.zeros((n, 2 * frames.windows_used(sec)), np.int64)
     _check_set(recs)  # once for the set: the recordings below are views of checked events
     for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
         ev = recs.events[recs.offsets[i]:recs.offsets[i + 1]]
