@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import torch
 
-from snnconvert import recipe, train
+from snnconvert import checkpoint, recipe, train
 from snnconvert.cli import main
 from snnconvert.intnet import IntNetwork
 
@@ -46,12 +46,12 @@ def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
 
 
 def test_convert_reads_the_checkpoint_once(run_dir, tmp_path, monkeypatch, capsys):
-    reads, real = [], train.load_checkpoint
+    reads, real = [], checkpoint.load_checkpoint
 
     def load_checkpoint(path):
         reads.append(str(path))
         return real(path)
-    monkeypatch.setattr(train, "load_checkpoint", load_checkpoint)
+    monkeypatch.setattr(checkpoint, "load_checkpoint", load_checkpoint)   # every reader imports it from here
     assert main(["convert", str(run_dir / "train"), "--out", str(tmp_path / "net"), "--quiet"]) == 0
     assert reads == [str(run_dir / "train" / "model.pt")]
 

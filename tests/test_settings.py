@@ -62,8 +62,8 @@ def test_the_recipe_dict_is_the_settings_objects_as_data():
     ({"payload_bits": 0}, "The 'payload_bits' parameter of convert must be an int in [1, 8]. Got 0 instead."),
     ({"coding": "binary"}, "The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike "
                            "carries no payload). Got 4 instead."),
-    ({"weight_scale": "median"}, "The 'weight_scale' parameter of convert must be 'max' or 'percentile:Q' with Q in "
-                                 "(0, 100]. Got 'median' instead."),
+    ({"weight_scale": "median"}, ("The 'weight_scale' parameter of convert must be 'max', 'percentile:Q' with Q in "
+                                  "(0, 100] or 'mean:C' with C in (0, 10]. Got 'median' instead.")),
 ])
 def test_a_settings_object_is_checked_when_built(section, message):
     with pytest.raises(UsageError) as e:
