@@ -22,6 +22,9 @@ KEYS: dict[str, Key] = {
     "pick": Key("first", "choice", "the first burst of a flash is the onset: ON events of the whole shape",
                 choices=("first", "largest")),
     "bin_us": Key(1000, "int", "1 ms rate bins resolve a flash onset that lasts a few ms", lo=1),
+    "background_bins": Key(32, "int", "relative thresholds: the background is the event count of the 32 bins before "
+                           "each bin (32 ms at 1 ms bins), a causal count hardware keeps in a 32-deep FIFO; longer "
+                           "than a flash burst, shorter than the gap between stimuli", lo=1, hi=1 << 20),
     "background_percentile": Key(50.0, "float", "the median rate is the background while bursts cover under half "
                                  "of a recording (flashes); saccades move for most of it: use ~10, the quiet turns",
                                  lo=0.0, hi=100.0),
@@ -54,6 +57,7 @@ class FramesSettings(Section):
     windows: int
     pick: str
     bin_us: int
+    background_bins: int
     background_percentile: float
     relative: bool
     upper: float
