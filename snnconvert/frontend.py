@@ -11,17 +11,21 @@ Rate counter (fixed bins, no sliding)
     n = (t_last - t0) // bin_us + 1: the last bin is the one holding the last event.
     Integer thresholds per bin, absolute (relative = false):
         hi_k = upper_count,  lo_k = lower_count             (counts per bin, constants)
-    relative (relative = true), against a causal background count over the B = background_bins
-    bins before bin k (bins before t0 count 0; the current bin is not part of it):
-        S_k  = max(c_{k-B} + ... + c_{k-1},  B)            (floor: one event per bin)
+    relative (relative = true), against a causal background count: the sum of the counts of the
+    last B = background_bins closed bins before bin k (bins in which no window was open; bins
+    before t0 count 0; the current bin is not part of it). In hardware: a B-deep FIFO of bin
+    counts and its running sum, pushed at the end of every bin that ends closed, so the
+    background freezes while a window is open and a burst never raises its own threshold:
+        S_k  = max(sum of the last B closed-bin counts,  B)  (floor: one event per bin)
         hi_k = floor(U * S_k / (16 * B)) + 1                (the smallest count above upper x background)
         lo_k = ceil(L * S_k / (16 * B))                     (the smallest count at lower x background)
     U = upper_16, L = lower_16: upper and lower in sixteenths. Compare form without division:
     c_k >= hi_k  <=>  16*B*c_k > U*S_k;  c_k >= lo_k  <=>  16*B*c_k >= L*S_k. In both modes
     lo_k = min(lo_k, hi_k) (a lower above the upper acts as the upper).
-    The background is a running count over a stated past (B bins), never a statistic of the whole
-    recording (a median or percentile), which hardware cannot know in advance. It runs on during
-    a window (bins inside a window count too). Near-zero background: the floor S_k >= B makes
+    The background is a running count over a stated past (B closed bins), never a statistic of
+    the whole recording (a median or percentile), which hardware cannot know in advance.
+    A bin that closes a window (c_k < lo_k) is a closed bin and enters the background.
+    Near-zero background: the floor S_k >= B makes
     the thresholds absolute, hi = floor(U/16) + 1 and lo = ceil(L/16) (9 and 2 events per bin at
     upper = 8, lower = 2): a silent sensor keeps finite thresholds and one noise event opens nothing.
 
@@ -170,38 +174,65 @@ def rate_counts(t, params: FrontEnd, t0: int | None = None) -> tuple[int, np.nda
     return t0, np.diff(np.searchsorted(t, edges, side="left")).astype(np.int64)
 
 
-def bin_thresholds(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
-    """(hi_k, lo_k) int64 per bin (module docstring): absolute constants, or relative to
-    S_k = max(sum of the B counts before bin k, B); lo_k <= hi_k always."""
+def scan(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The counter bin by bin: (hi_k, lo_k, open_k), int64, int64, bool per bin (module docstring).
+
+    open_k: a window is open during bin k (it opened at or before k and did not close at k).
+    Relative thresholds follow the background of closed bins (a FIFO of the last B of them);
+    absolute ones are constants. lo_k <= hi_k always. One pass over the bins in Python integers.
+    """
     c = np.asarray(counts, np.int64)
+    n = c.size
     if not params.relative:
-        hi = np.full(c.shape, params.upper_count, np.int64)
-        lo = np.full(c.shape, min(params.lower_count, params.upper_count), np.int64)
-        return hi, lo
+        hi_c = params.upper_count
+        lo_c = min(params.lower_count, hi_c)
+        is_open = np.zeros(n, bool)
+        state = False
+        for k, v in enumerate(c.tolist()):
+            state = v >= lo_c if state else v >= hi_c
+            is_open[k] = state
+        return np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64), is_open
     b = params.background_bins
-    cs = np.r_[0, np.cumsum(c)]  # cs[k] = c_0 + ... + c_{k-1}
-    k = np.arange(c.size)
-    s = np.maximum(cs[k] - cs[np.maximum(k - b, 0)], b)  # (n,) the past B bins, floored at B
-    den = SCALE * b
-    hi = (params.upper_16 * s) // den + 1
-    lo = -((-params.lower_16 * s) // den)  # ceil
-    return hi, np.minimum(lo, hi)
+    u, low, den = params.upper_16, params.lower_16, SCALE * b
+    fifo = [0] * b  # the last B closed-bin counts (ring buffer), all 0 before t0
+    pos = total = 0
+    hi = np.zeros(n, np.int64)
+    lo = np.zeros(n, np.int64)
+    is_open = np.zeros(n, bool)
+    state = False
+    for k, v in enumerate(c.tolist()):
+        s = max(total, b)
+        h = u * s // den + 1
+        lw = min(-(-low * s // den), h)
+        hi[k], lo[k] = h, lw
+        state = v >= lw if state else v >= h
+        is_open[k] = state
+        if not state:  # a closed bin enters the background
+            total += v - fifo[pos]
+            fifo[pos] = v
+            pos = (pos + 1) % b
+    return hi, lo, is_open
+
+
+def bin_thresholds(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(hi_k, lo_k) int64 per bin: the opening and closing counts of `scan`."""
+    hi, lo, _ = scan(counts, params)
+    return hi, lo
+
+
+def _runs(is_open: np.ndarray) -> np.ndarray:
+    """(K, 2) [first, end) of each run of True."""
+    edges = np.diff(np.r_[0, is_open.astype(np.int8), 0])
+    return np.stack([np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)], axis=1)
 
 
 def window_bins(counts, params: FrontEnd) -> np.ndarray:
-    """Windows in bins: (K, 2) int64 [open bin, close bin), after hysteresis, merge and minimum
-    duration (module docstring). Vectorized: runs of bins with c_k >= lo_k; a run holds a window
-    from its first bin with c_k >= hi_k to its end (the hysteresis state machine, bin by bin)."""
-    c = np.asarray(counts, np.int64)
-    if not c.size:
-        return np.zeros((0, 2), np.int64)
-    hi, lo = bin_thresholds(c, params)
-    edges = np.diff(np.r_[0, (c >= lo).astype(np.int8), 0])
-    run_start, run_end = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)  # run_end exclusive
-    above = np.r_[np.flatnonzero(c >= hi), c.size]
-    first = above[np.searchsorted(above, run_start)]  # first bin at or above hi_k in (or after) each run
-    keep = first < run_end
-    raw = np.stack([first[keep], run_end[keep]], axis=1)
+    """Windows in bins: (K, 2) int64 [open bin, close bin), after hysteresis (`scan`), merge and
+    minimum duration (module docstring). A window open at the last bin closes with it."""
+    return _merge(_runs(scan(counts, params)[2]), params)
+
+
+def _merge(raw: np.ndarray, params: FrontEnd) -> np.ndarray:
     merged: list[list[int]] = []
     for a, b in raw.tolist():
         if merged and a - merged[-1][1] < params.merge_bins:
@@ -210,6 +241,15 @@ def window_bins(counts, params: FrontEnd) -> np.ndarray:
             merged.append([a, b])
     out = np.asarray(merged, np.int64).reshape(-1, 2)
     return out[out[:, 1] - out[:, 0] >= params.min_bins]
+
+
+def trace(t, params: FrontEnd, t0: int | None = None) -> dict:
+    """Everything the counter sees, for plots and reports: {"t0", "bin_us", "counts", "upper", "lower"
+    (hi_k, lo_k per bin), "windows" ((K, 2) in us)}."""
+    t0, c = rate_counts(t, params, t0)
+    hi, lo, is_open = scan(c, params)
+    return {"t0": t0, "bin_us": params.bin_us, "counts": c, "upper": hi, "lower": lo,
+            "windows": t0 + _merge(_runs(is_open), params) * params.bin_us}
 
 
 def windows(t, params: FrontEnd, t0: int | None = None) -> np.ndarray:
@@ -222,33 +262,45 @@ def windows(t, params: FrontEnd, t0: int | None = None) -> np.ndarray:
 # --- subsample, threshold and gate ------------------------------------------------------------
 
 
-def subsample(x, y, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
-    """(grid column j, grid row i) int64: j = x * size // width, i = y * size // height (floor).
-
-    Addresses outside the sensor (x >= width or y >= height) are refused."""
-    x = np.asarray(x, np.int64)
-    y = np.asarray(y, np.int64)
-    if x.size and (x.min() < 0 or x.max() >= params.width or y.min() < 0 or y.max() >= params.height):
-        raise UsageError(f"event addresses must lie on the {params.width}x{params.height} sensor of the front end")
-    return x * params.size // params.width, y * params.size // params.height
-
-
-def pixel_index(x, y, p, params: FrontEnd) -> np.ndarray:
-    """Flat grid address (c*size + i)*size + j of each event (c: 1 for OFF in polarity mode, else 0)."""
-    j, i = subsample(x, y, params)
-    idx = i * params.size + j
-    if params.channels == 2:
-        idx += (np.asarray(p) < 0) * (params.size * params.size)
+def grid_address(x, y, p, width: int, height: int, size: int, polarity: bool) -> np.ndarray:
+    """Flat grid address (c*size + i)*size + j, int64, with i = y*size//height, j = x*size//width
+    (floor division, by lookup tables) and c = 1 for OFF (p < 0) when `polarity`, else 0.
+    Addresses must lie on the width x height sensor (refused otherwise)."""
+    x = np.asarray(x)
+    y = np.asarray(y)
+    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
+        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size  # row offset per sensor row
+    lut_x = np.arange(width, dtype=np.int64) * size // width
+    idx = lut_y[y] + lut_x[x]
+    if polarity:
+        idx += (np.asarray(p) < 0) * (size * size)
     return idx
 
 
-def pixel_values(counts, params: FrontEnd) -> np.ndarray:
-    """The payload of a pixel that saw `counts` events in a window, 0 for a silent pixel:
-    binary (n >= threshold), count/polarity min(n, max_count). Same shape as counts, int64."""
+def payload(counts, mode: str, threshold: int, max_count: int) -> np.ndarray:
+    """The payload of a pixel that saw n = `counts` events in a window (0: no event), int64:
+    binary (n >= threshold), count/polarity min(n, max_count)."""
     n = np.asarray(counts, np.int64)
-    if params.mode == "binary":
-        return (n >= params.threshold).astype(np.int64)
-    return np.minimum(n, params.max_count)
+    if mode == "binary":
+        return (n >= threshold).astype(np.int64)
+    return np.minimum(n, max_count)
+
+
+def subsample(x, y, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(grid column j, grid row i) int64: j = x * size // width, i = y * size // height (floor)."""
+    idx = grid_address(x, y, None, params.width, params.height, params.size, False)
+    return idx % params.size, idx // params.size
+
+
+def pixel_index(x, y, p, params: FrontEnd) -> np.ndarray:
+    """Flat grid address (c*size + i)*size + j of each event (`grid_address` with the params)."""
+    return grid_address(x, y, p, params.width, params.height, params.size, params.channels == 2)
+
+
+def pixel_values(counts, params: FrontEnd) -> np.ndarray:
+    """`payload` with the params: binary (n >= threshold), count/polarity min(n, max_count)."""
+    return payload(counts, params.mode, params.threshold, params.max_count)
 
 
 def _fields(events):

@@ -85,14 +85,17 @@ def test_windows_are_bin_edges_in_us():
 
 
 def test_relative_thresholds_hand_computed():
-    # B = 4, U = 8.0 (128/16), L = 2.0 (32/16); S_k = max(c_{k-4} + ... + c_{k-1}, 4)
-    c = np.array([0, 0, 1, 9, 8, 2, 1])
-    hi, lo = frontend.bin_thresholds(c, fe(relative=True))
-    # hand-computed: S = [4, 4, 4, 4, 10, 18, 20]; hi = 128*S//64 + 1; lo = ceil(32*S/64)
-    assert hi.tolist() == [9, 9, 9, 9, 21, 37, 41]
-    assert lo.tolist() == [2, 2, 2, 2, 5, 9, 10]
-    # opens at bin 3 (9 >= 9), stays at bin 4 (8 >= 5), closes at bin 5 (2 < 9)
-    assert frontend.window_bins(c, fe(relative=True)).tolist() == [[3, 5]]
+    # B = 4, U = 8.0 (128/16), L = 2.0 (32/16); S_k = max(sum of the last 4 closed-bin counts, 4)
+    c = np.array([4, 8, 4, 8, 50, 30, 5, 4, 12])
+    hi, lo, is_open = frontend.scan(c, fe(relative=True))
+    # hand-computed: S = 4 (floor), 4, 12, 16, 24; bins 4-5 are open, so S stays 24 (frozen) at 5 and 6;
+    # bin 6 closes (5 < 12) and enters: S = 8+4+8+5 = 25 at 7, then 4+8+5+4 = 21 at 8
+    # hi = 128*S//64 + 1, lo = ceil(32*S/64)
+    assert hi.tolist() == [9, 9, 25, 33, 49, 49, 49, 51, 43]
+    assert lo.tolist() == [2, 2, 6, 8, 12, 12, 12, 13, 11]
+    assert is_open.tolist() == [False] * 4 + [True, True] + [False] * 3
+    # opens at bin 4 (50 >= 49), stays at bin 5 (30 >= 12: the background does not count the burst)
+    assert frontend.window_bins(c, fe(relative=True)).tolist() == [[4, 6]]
 
 
 @pytest.mark.parametrize("peak, n", [(8, 0), (9, 1)])
@@ -111,7 +114,8 @@ def test_background_is_causal():
     d[30] += 100
     h1, l1 = frontend.bin_thresholds(c, fe(relative=True))
     h2, l2 = frontend.bin_thresholds(d, fe(relative=True))
-    assert np.array_equal(h1[:31], h2[:31]) and np.array_equal(l1[:31], l2[:31]) and h2[31] > h1[31]
+    assert np.array_equal(h1[:31], h2[:31]) and np.array_equal(l1[:31], l2[:31])
+    assert not np.array_equal(h1, h2)
 
 
 @pytest.mark.parametrize("section, want", [
