@@ -196,22 +196,22 @@ def scan(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     u, low, den = params.upper_16, params.lower_16, SCALE * b
     fifo = [0] * b  # the last B closed-bin counts (ring buffer), all 0 before t0
     pos = total = 0
-    hi = np.zeros(n, np.int64)
-    lo = np.zeros(n, np.int64)
-    is_open = np.zeros(n, bool)
+    hi, lo, is_open = [0] * n, [0] * n, [False] * n
     state = False
     for k, v in enumerate(c.tolist()):
-        s = max(total, b)
+        s = max(b, total)
         h = u * s // den + 1
-        lw = min(-(-low * s // den), h)
+        lw = -(-low * s // den)
+        lw = min(lw, h)
         hi[k], lo[k] = h, lw
         state = v >= lw if state else v >= h
-        is_open[k] = state
-        if not state:  # a closed bin enters the background
+        if state:
+            is_open[k] = True
+        else:  # a closed bin enters the background
             total += v - fifo[pos]
             fifo[pos] = v
-            pos = (pos + 1) % b
-    return hi, lo, is_open
+            pos = pos + 1 if pos + 1 < b else 0
+    return np.asarray(hi, np.int64), np.asarray(lo, np.int64), np.asarray(is_open, bool)
 
 
 def bin_thresholds(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
@@ -303,30 +303,47 @@ def pixel_values(counts, params: FrontEnd) -> np.ndarray:
     return payload(counts, params.mode, params.threshold, params.max_count)
 
 
-def _fields(events):
-    if hasattr(events, "t") and hasattr(events, "x"):  # EventStream
-        return events.t, events.x, events.y, events.p
-    ev = np.asarray(events)
-    return ev["t"], ev["x"], ev["y"], ev["p"]
+@dataclass(frozen=True)
+class Columns:
+    """Contiguous t, x, y, p arrays of an event stream: a structured array's fields are strided views,
+    and a binary search on a strided view copies it, so a long stream gated window by window is
+    split into columns once (`columns`)."""
+
+    t: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    p: np.ndarray
+
+
+def columns(events) -> Columns:
+    """The Columns of an EventStream, a structured event array or Columns (returned as is)."""
+    if isinstance(events, Columns):
+        return events
+    t, x, y, p = (events.t, events.x, events.y, events.p) if hasattr(events, "x") else \
+        (np.asarray(events)[k] for k in ("t", "x", "y", "p"))
+    return Columns(*(np.ascontiguousarray(v) for v in (t, x, y, p)))
 
 
 def gate(events, window, params: FrontEnd) -> np.ndarray:
     """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
-    payload), in emission order (module docstring). events: an EventStream or an array with fields
-    t, x, y, p, time-ordered; window: (t_start, t_end), holding t_start <= t < t_end."""
-    t, x, y, p = _fields(events)
-    t = _times(t)
+    payload), in emission order (module docstring). events: an EventStream, an array with fields
+    t, x, y, p, or their `columns` (fastest for many windows of one long stream), time-ordered;
+    window: (t_start, t_end), holding t_start <= t < t_end."""
+    t, x, y, p = (events.t, events.x, events.y, events.p) if isinstance(events, Columns) else \
+        (np.asarray(getattr(events, "events", events))[k] for k in ("t", "x", "y", "p"))
     t1, t2 = int(window[0]), int(window[1])
-    a, b = np.searchsorted(t, [t1, t2], side="left")
+    a, b = np.searchsorted(t, [t1, t2], side="left")  # cost O(log E): only the window's events are touched
+    tw = _times(t[a:b])  # checked sorted within the window
     idx = pixel_index(x[a:b], y[a:b], p[a:b], params)  # (E,) grid address per window event
     plane = params.size * params.size
     if params.mode == "binary":
-        order = np.argsort(idx, kind="stable")  # events grouped by pixel, in time order within a pixel
+        key = idx.astype(np.uint16) if params.channels * plane <= 1 << 16 else idx  # 16 bits: a radix sort
+        order = np.argsort(key, kind="stable")  # events grouped by pixel, in time order within a pixel
         grouped = idx[order]
         start = np.searchsorted(grouped, grouped, side="left")  # first position of each event's pixel
         rank = np.arange(grouped.size) - start  # 0-based count of earlier events of the same pixel
         emit = np.sort(order[rank == params.threshold - 1])  # the threshold-th event of each pixel, time order
-        addr, times, payload = idx[emit], t[a:b][emit], np.ones(emit.size, np.int64)
+        addr, times, payload = idx[emit], tw[emit], np.ones(emit.size, np.int64)
     else:
         n = np.bincount(idx, minlength=params.channels * plane)
         addr = np.flatnonzero(n)

@@ -116,12 +116,13 @@ def classify_recording(net, recipe: dict, stream, path) -> tuple[Recording, list
         from snnconvert.errors import UsageError
         raise UsageError(f"the recipe's front end makes frames of shape {(params.channels, params.size, params.size)}, "
                          f"the network takes {tuple(net.input_shape)}")
-    tr = frontend.trace(stream.t, params)
-    rec = Recording(Path(path), len(stream), int(stream.t[-1] - stream.t[0]) if len(stream) else 0, tr)
+    cols = frontend.columns(stream)
+    tr = frontend.trace(cols.t, params)
+    rec = Recording(Path(path), len(stream), int(cols.t[-1] - cols.t[0]) if len(stream) else 0, tr)
     frames = []
     for s, e in tr["windows"].tolist():
-        g = frontend.gate(stream, (s, e), params)
-        n_in = int(np.searchsorted(stream.t, e) - np.searchsorted(stream.t, s))
+        g = frontend.gate(cols, (s, e), params)
+        n_in = int(np.searchsorted(cols.t, e) - np.searchsorted(cols.t, s))
         rec.rows.append({"file": str(path), "window": len(rec.rows) + 1, "start_us": s, "end_us": e,
                          "events_in": n_in, "events_gated": int(g.size)})
         frames.append(frontend.frame(g, params))
