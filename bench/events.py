@@ -3,7 +3,7 @@
 The stream is made of simulated digit flashes placed one after another (one long recording of a
 32x32 sensor). Timed stages, each the best of a few repeats, all in this one run:
     read    read_events(.npz) (load + validation)
-    window  windows.bursts (rate trace + hysteresis)
+    window  frontend.windows (integer rate counter + hysteresis)
     bin     frames.bin_windows over all bursts (binary 16x16)
     floor   np.bincount(y * width + x) on the same events, already in memory
 Goals: total <= 3x the floor, and >= 20 M events/s on one core.
@@ -58,14 +58,16 @@ def main(n_events: int = N_EVENTS) -> dict:
         threadpoolctl.threadpool_limits(1)
     except ImportError:  # pragma: no cover
         pass
-    from snnconvert import frames, windows
+    from snnconvert import frames, frontend
     from snnconvert.events import read_events, write_events
+    from snnconvert.settings.frames import FramesSettings
     stream = make_stream(n_events)
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "big.npz"
         write_events(stream, path)
         t_read, s = _best(lambda: read_events(path))
-    t_win, wins = _best(lambda: windows.bursts(s))
+    params = frontend.FrontEnd.from_section(FramesSettings.from_section({}).as_dict(), s.width, s.height)
+    t_win, wins = _best(lambda: frontend.windows(s.t, params))
     t_bin, X = _best(lambda: frames.bin_windows(s, wins, "binary", 16, 16))
     pix = s.y.astype(np.int64) * s.width + s.x  # the same pixel indices, prepared outside the timing
     t_floor, _ = _best(lambda: np.bincount(pix, minlength=s.width * s.height))

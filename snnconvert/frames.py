@@ -1,11 +1,13 @@
-"""Frames: the events of one window binned into a (C, H, W) tensor.
+"""Frames: the events of one window binned into a (C, H, W) tensor, by the rules of the front end
+(frontend.py: the same grid address and payload rule the hardware applies event by event).
 
     count[c, i, j] = #{events in [t0, t1) with  i = y * H // height,  j = x * W // width}
     binary:   1 channel,  frame = (count >= threshold)            values {0, 1}
     count:    1 channel,  frame = min(count, max_count)           values 0..max_count
     polarity: 2 channels (ON, OFF), each min(count, max_count)     values 0..max_count
 
-Subsampling is sum-pooling: sensor pixel (x, y) goes to target pixel (x*W//width, y*H//height),
+Burst windows come from the front end's integer rate counter (frontend.windows). Subsampling is
+sum-pooling: sensor pixel (x, y) goes to target pixel (x*W//width, y*H//height),
 with H = W = size. When the sensor side is not a multiple of size, target pixels gather
 floor(side/size) or ceil(side/size) sensor pixels, the larger ones spread evenly across the
 frame (no pixel is dropped or counted twice). A non-square sensor is stretched to a square frame.
@@ -14,14 +16,14 @@ Binary mode ignores polarity; in it no pixel carries more than one spike per win
 
 from __future__ import annotations
 
+import itertools
 
 import numpy as np
 
-from snnconvert import plots
+from snnconvert import frontend, plots
 from snnconvert.errors import UsageError, check_choice, check_int
 from snnconvert.events.stream import EventStream
 from snnconvert.settings.frames import MODES
-
 
 
 def channels(mode: str) -> int:
@@ -50,21 +52,14 @@ def bin_events(x, y, p, width: int, height: int, group, n_groups: int, mode: str
     _check(mode, size, threshold, max_count)
     c = channels(mode)
     plane = size * size
-    # lookup tables instead of per-event integer division: target row offset and column per sensor pixel
-    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size
-    lut_x = np.arange(width, dtype=np.int64) * size // width
-    idx = lut_y[y] + lut_x[x]  # (E,) target pixel
-    if c == 2:
-        idx += (p < 0) * plane
+    idx = frontend.grid_address(x, y, p, width, height, size, c == 2)  # (E,) target pixel
     group = np.asarray(group)
     if group.ndim and group.size and group.min() < 0:  # a negative group means "outside every window": counted in one spare bin, then dropped
         group = np.where(group < 0, n_groups, group)
     idx += group * (c * plane)
     counts = np.bincount(idx, minlength=(n_groups + 1) * c * plane)[: n_groups * c * plane]
     counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
-    if mode == "binary":
-        return (counts >= threshold).astype(np.float32)
-    return np.minimum(counts, max_count).astype(np.float32)
+    return frontend.payload(counts, mode, threshold, max_count).astype(np.float32)
 
 
 def bin_windows(stream: EventStream, windows, mode: str = "binary", size: int = 16, threshold: int = 1,
@@ -97,8 +92,8 @@ def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
     from snnconvert import windows
     kind = section["window"]
     if kind == "burst":
-        return windows.bursts(stream, section["bin_us"], section["upper"], section["lower"], section["relative"],
-                        section["min_duration_us"], section["merge_gap_us"], section["background_percentile"])
+        params = frontend.FrontEnd.from_section(section, stream.width, stream.height)
+        return [(int(a), int(b)) for a, b in frontend.windows(stream.t, params)]
     if kind == "fixed":
         return windows.fixed_windows(stream, section["window_us"])
     if kind == "all":
@@ -144,7 +139,7 @@ def frame_windows(stream: EventStream, section: dict) -> tuple[list[tuple[int, i
         return [tuple(v) for v in found[:k]], True
     t0, t1 = _whole(stream) if len(stream) else (0, 0)
     edges = [t0 + i * (t1 - t0) // k for i in range(k + 1)]
-    return list(zip(edges[:-1], edges[1:])), False
+    return list(itertools.pairwise(edges)), False
 
 
 # --- plots ----------------------------------------------------------------------------------
@@ -197,30 +192,20 @@ def _colorbar(fig, im, axes, style: dict, **kw):
     return cb
 
 
-def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresholds=None, title: str = "",
-                   mode: str | None = None, q: int | None = None):
-    """Rate trace (events/s) with the two thresholds and the bursts shaded; the frame of each
-    burst (up to 6) beside it on one fixed colour scale (`frame_style(mode, q)`).
-    rate_trace = (t_k, rate) from windows.rate_trace."""
+def plot_recording(stream: EventStream, trace: dict, frames, path, title: str = "", mode: str | None = None,
+                   q: int | None = None):
+    """The front end's rate trace (`plots.draw_rate`: events per bin, the thresholds per bin, the
+    windows shaded) with the frame of each window (up to 6) beside it on one fixed colour scale
+    (`frame_style(mode, q)`). trace: `frontend.trace`, or for other window rules a dict with
+    upper/lower None."""
     plt = plots.pyplot()
     frames = [np.asarray(f) for f in list(frames)[:6]]
     ncol = max(len(frames), 1)
     fig = plt.figure(figsize=(4.6 + 2.2 * ncol, 3.4))
     grid = fig.add_gridspec(1, 2 + ncol, width_ratios=[3.5] + [1] * ncol + [0.12])
     ax = fig.add_subplot(grid[0, 0])
-    tk, rate = rate_trace
-    ax.plot(np.asarray(tk) / 1e3, rate, lw=1, color="k", label="rate")
-    if thresholds is not None:
-        ax.axhline(thresholds[0], color="tab:red", ls="--", lw=1, label="upper")
-        ax.axhline(thresholds[1], color="tab:blue", ls=":", lw=1, label="lower")
-    for i, (s, e) in enumerate(bursts):
-        ax.axvspan(s / 1e3, e / 1e3, color="tab:orange", alpha=0.3, label="burst" if i == 0 else None)
-    ax.set_xlabel("time (ms)")
-    ax.set_yscale("symlog", linthresh=max(1.0, float(thresholds[1]) if thresholds is not None else 1.0))
-    ax.set_ylim(0, max(float(np.max(rate)) if len(rate) else 1.0, thresholds[0] if thresholds else 1.0) * 2)
-    ax.set_ylabel("events / s (log above the lower threshold)")
-    ax.set_title(title or f"{len(stream)} events, {len(bursts)} bursts", fontsize=9)
-    ax.legend(fontsize=7, loc="upper right")
+    plots.draw_rate(ax, trace)
+    ax.set_title(title or f"{len(stream)} events, {len(trace['windows'])} windows", fontsize=9)
     im = None
     if frames:
         m = mode_of(frames[0].shape, mode)
@@ -228,7 +213,7 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
     for i, f in enumerate(frames):
         a = fig.add_subplot(grid[0, 1 + i])
         im = _draw_frame(a, f, style)
-        a.set_title(f"burst {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
+        a.set_title(f"window {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
     if im is not None:
         cb = fig.colorbar(im, cax=fig.add_subplot(grid[0, 1 + ncol]))
         cb.set_label(style["label"], fontsize=7)
@@ -236,9 +221,19 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
             cb.set_ticks(style["ticks"])
     else:
         a = fig.add_subplot(grid[0, 1])
-        a.text(0.5, 0.5, "no burst", ha="center", va="center")
+        a.text(0.5, 0.5, "no window", ha="center", va="center")
         a.axis("off")
     return plots.save_png(fig, path)
+
+
+def recording_trace(stream: EventStream, section: dict) -> dict:
+    """The trace `plot_recording` draws for a resolved [frames] section: the front end's counter
+    (`frontend.trace`) with the section's windows; thresholds only for burst windows."""
+    params = frontend.FrontEnd.from_section(section, stream.width, stream.height)
+    tr = frontend.trace(stream.t, params)
+    if section["window"] != "burst":
+        tr.update(upper=None, lower=None, windows=np.asarray(windows_of(stream, section), np.int64).reshape(-1, 2))
+    return tr
 
 
 def frames_figure(X, y, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,
