@@ -3,7 +3,7 @@
 The stream is made of simulated digit flashes placed one after another (one long recording of a
 32x32 sensor). Timed stages, each the best of a few repeats, all in this one run:
     read    read_events(.npz) (load + validation)
-    window  windows.bursts (rate trace + hysteresis)
+    window  frontend.windows (integer rate counter + hysteresis)
     bin     frames.bin_windows over all bursts (binary 16x16)
     floor   np.bincount(y * width + x) on the same events, already in memory
 Goals: total <= 3x the floor, and >= 20 M events/s on one core.
@@ -84,8 +84,9 @@ def main(n_events: int = N_EVENTS) -> dict:
         threadpoolctl.threadpool_limits(1)
     except ImportError:  # pragma: no cover
         pass
-    from snnconvert import frames, windows
+    from snnconvert import frames, frontend
     from snnconvert.events import read_events, write_events
+    from snnconvert.settings.frames import FramesSettings
     stream = make_stream(n_events)
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "big.npz"
@@ -93,9 +94,10 @@ def main(n_events: int = N_EVENTS) -> dict:
         t_read, s = _best(lambda: read_events(path))
         t_bytes, _ = _best(lambda: path.read_bytes())
         t_cread, cols = _best(lambda: _read_columns(path))
-    t_win, wins = _best(lambda: windows.bursts(s))
+    params = frontend.FrontEnd.from_section(FramesSettings.from_section({}).as_dict(), s.width, s.height)
+    t_win, wins = _best(lambda: frontend.windows(s.t, params))
     t_bin, _ = _best(lambda: frames.bin_windows(s, wins, "binary", 16, 16))
-    t_cwin, cwins = _best(lambda: windows.bursts(cols))
+    t_cwin, cwins = _best(lambda: frontend.windows(cols.t, params))
     t_cbin, _ = _best(lambda: frames.bin_windows(cols, cwins, "binary", 16, 16))
     pix = s.y.astype(np.int64) * s.width + s.x  # the same pixel indices, prepared outside the timing
     t_floor, _ = _best(lambda: np.bincount(pix, minlength=s.width * s.height))
@@ -113,7 +115,7 @@ def main(n_events: int = N_EVENTS) -> dict:
     print(f"events bench: {len(s):,} events, {len(wins)} bursts, 1 thread, load average "
           f"{fig['load_average'][0]:.1f} (times are the best of 5)")
     print(f"  {'stage':<34} {'ms':>8} {'x floor':>8}")
-    for name, sec in (("read (.npz, packed records)", t_read), ("window (windows.bursts)", t_win),
+    for name, sec in (("read (.npz, packed records)", t_read), ("window (frontend.windows)", t_win),
                       ("bin (frames.bin_windows)", t_bin), ("total", total),
                       ("floor: np.bincount", t_floor), ("file bytes alone (open().read())", t_bytes)):
         print(f"  {name:<34} {sec * 1e3:8.1f} {sec / t_floor:8.2f}")

@@ -5,7 +5,7 @@ and prints its own details; this script collects the lines that state a goal and
 one table at the end. Figures are measured side by side within each benchmark, because the
 machines are noisy: compare ratios, not absolute times, between machines.
 
-    python bench/run_all.py            # all five
+    python bench/run_all.py            # all six
     python bench/run_all.py events sweep
 """
 
@@ -18,7 +18,7 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-BENCHES = ["events", "data_scale", "train", "simulate", "sweep"]
+BENCHES = ["events", "data_scale", "train", "simulate", "sweep", "classify"]
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -258,15 +258,15 @@ def fixed_point_multiplier(m: np.ndarray, bits: int = 16, acc_bits: int | None =
             continue
         mant, e2 = math.frexp(mi)                  # mi = mant * 2^e2, 0.5 <= mant < 1 (exact)
         ni = bits - e2                             # M * 2^ni = mant * 2^bits in [2^(bits-1), 2^bits)
-        q = int(round(math.ldexp(mant, bits)))     # exact: ldexp only moves the exponent
-        if q == 1 << bits:                         # rounding carried into the next power of two
-            q, ni = q >> 1, ni - 1
+        mi0 = int(round(math.ldexp(mant, bits)))   # exact: ldexp only moves the exponent
+        if mi0 == 1 << bits:                       # rounding carried into the next power of two
+            mi0, ni = mi0 >> 1, ni - 1
         if ni < 1:
             raise ValueError(f"multiplier {mi:.6g} does not fit a {bits}-bit M0 with a shift n >= 1 "
                              f"(needs M < 2^{bits - 1})")
-        if acc_bits is not None and q << (int(acc_bits) - 1) <= 1 << (ni - 1):
+        if acc_bits is not None and mi0 << (int(acc_bits) - 1) <= 1 << (ni - 1):
             continue                               # silent: no potential reaches payload 1
-        m0[i], n[i] = q, ni
+        m0[i], n[i] = mi0, ni
     return m0, n
 
 

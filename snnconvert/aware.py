@@ -131,17 +131,17 @@ def make_aware(model: nn.Sequential, weight_bits: int, payload_bits: int, per_ch
     src, div = None, 1      # the input scale seen by the next weighted layer's bias
     for m in folded:
         if isinstance(m, nn.Conv2d):
-            q = QConv2d(m.in_channels, m.out_channels, m.kernel_size, m.stride, m.padding, m.dilation, m.groups,
+            layer = QConv2d(m.in_channels, m.out_channels, m.kernel_size, m.stride, m.padding, m.dilation, m.groups,
                         m.bias is not None, weight_bits=weight_bits, per_channel=per_channel, weight_rule=weight_rule)
-            q.load_state_dict(m.state_dict())
-            q._bias_src, q._bias_div = [src], div
-            out.append(q)
+            layer.load_state_dict(m.state_dict())
+            layer._bias_src, layer._bias_div = [src], div
+            out.append(layer)
         elif isinstance(m, nn.Linear):
-            q = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits,
+            layer = QLinear(m.in_features, m.out_features, m.bias is not None, weight_bits=weight_bits,
                         per_channel=per_channel, weight_rule=weight_rule)
-            q.load_state_dict(m.state_dict())
-            q._bias_src, q._bias_div = [src], div
-            out.append(q)
+            layer.load_state_dict(m.state_dict())
+            layer._bias_src, layer._bias_div = [src], div
+            out.append(layer)
         elif isinstance(m, (nn.ReLU, ClipQuant)):
             a = act_max[j] if act_max is not None else (float(m.a_max) if isinstance(m, ClipQuant) else 1.0)
             out.append(ClipQuant(a, levels, learn=learn_act_max))

@@ -122,81 +122,106 @@ def estimate(net, events: list[np.ndarray], fanout: list[np.ndarray], hw: dict |
     events[e]: (N, units) bool, which addresses of emitter e (0 = input, j + 1 = layer j) sent an
     event in each of N samples; fanout[e]: (units,) SOPs one event of that address causes (the
     simulator's fan-out tables). hw: the [hardware] section (defaults from settings.hardware).
+    Large test sets: `EventTally` takes the events chunk by chunk (same result).
     """
-    from snnconvert.settings.hardware import HardwareSettings
-    s = hw if isinstance(hw, HardwareSettings) else HardwareSettings.from_section(hw)
-    configs = block_configs(s.block_kbits)
-    idx = stage_indices(net)
-    lanes = _per_layer(s.lanes, len(idx), "lanes")
-    scan = _per_layer(s.scan_lanes, len(idx), "scan_lanes")
-    n = len(events[0])
-    ttfs_steps = net.time_steps if net.coding == "ttfs" else 0
-    layers, cyc = [], []
-    for si, i in enumerate(idx):
-        L = net.layers[i]
-        O = int(L.weight.shape[0])
-        lane = lanes[si] or O
-        slane = scan[si] or lane
-        neurons = int(np.prod(L.out_shape))
-        e = _emitter(net, i)
-        ev = np.asarray(events[e]).reshape(n, -1).astype(np.int64)
-        fan = np.asarray(fanout[e], dtype=np.int64)
-        sops = ev @ fan                                                   # (N,)
-        ev_cycles = ev @ -(-fan // lane)                                  # ceil(fan / L) per event
-        scan_cycles = -(-neurons // slane)
-        cycles = ev_cycles + scan_cycles + ttfs_steps
-        cyc.append(cycles)
-        acc = int(L.acc_bits) if not net.acc_limit_bits else min(int(L.acc_bits), int(net.acc_limit_bits))
-        q_src = net.input_q if e == 0 else int(net.layers[e - 1].q_out)
-        units_in = int(np.prod(L.in_shape))
-        fifo_w = address_bits(units_in) + int(q_src).bit_length()
-        fifo_d = int(ev.sum(1).max(initial=0))
-        words = int(L.weight.size)
-        mem = {"fifo": (fifo_w, fifo_d),
-               "weights": (lane * net.weight_bits, -(-words // lane)),
-               "potentials": (lane * acc, -(-neurons // lane))}
-        bits = {k: w * d for k, (w, d) in mem.items()}
-        bits["weights"] = words * net.weight_bits                         # unused lanes of the last row: not bits
-        bits["potentials"] = neurons * acc
-        bits["bias"] = O * acc
-        bits["multipliers"] = O * (net.multiplier_bits + SHIFT_FIELD_BITS)
-        blk = {"fifo": blocks(fifo_w, fifo_d, configs, s.register_bits),
-               "weights": lane_blocks(net.weight_bits, mem["weights"][1], lane, configs, s.register_bits),
-               "potentials": lane_blocks(acc, mem["potentials"][1], lane, configs, s.register_bits)}
-        layers.append({
-            "name": L.name, "kind": L.kind, "lanes": lane, "scan_lanes": slane, "neurons": neurons,
-            "fan_in": int(L.fan_in), "accumulator_bits": acc,
-            "input_events_mean": float(ev.sum(1).mean()), "input_events_peak": fifo_d,
-            "sops_mean": float(sops.mean()),
-            "event_cycles_mean": float(ev_cycles.mean()), "scan_cycles": int(scan_cycles),
-            "ttfs_cycles": int(ttfs_steps),
-            "cycles_mean": float(cycles.mean()), "cycles_worst": int(cycles.max(initial=0)),
-            "bus": {"address_bits": address_bits(units_in), "payload_bits": int(q_src).bit_length()},
-            "memory_shape": {k: {"width": w, "depth": d} for k, (w, d) in mem.items()},
-            "memory_bits": {**bits, "total": int(sum(bits.values()))},
-            "block_rams": {**blk, "total": int(sum(blk.values()))},
-            "_sops": sops, "_events": ev.sum(1)})
-    total_cycles = np.sum(cyc, axis=0) if cyc else np.zeros(n, dtype=np.int64)
-    slowest = np.max(cyc, axis=0) if cyc else np.zeros(n, dtype=np.int64)
-    f = s.clock_mhz * 1e6
-    per_sample = slowest if s.pipelined else total_cycles
-    mean_cycles = float(total_cycles.mean())
-    total = {
-        "cycles_mean": mean_cycles, "cycles_worst": int(total_cycles.max(initial=0)),
-        "latency_us_mean": mean_cycles / s.clock_mhz, "latency_us_worst": float(total_cycles.max(initial=0)) / s.clock_mhz,
-        "samples_per_s": float(f / per_sample.mean()) if per_sample.mean() > 0 else None,
-        "bottleneck": layers[int(np.argmax([x["cycles_mean"] for x in layers]))]["name"] if layers else None,
-        "memory_bits": {k: int(sum(x["memory_bits"][k] for x in layers))
-                        for k in ("fifo", "weights", "bias", "multipliers", "potentials", "total")},
-        "block_rams": int(sum(x["block_rams"]["total"] for x in layers)),
-        "sops_mean": float(sum(x["sops_mean"] for x in layers)),
-    }
-    energy = _energy(net, layers)
-    for x in layers:
-        del x["_sops"], x["_events"]
-    return {"is_estimate": True, "note": ESTIMATE_NOTE, "hardware": s.as_dict(), "samples": int(n),
-            "block_configs": [list(c) for c in configs], "layers": layers, "total": total, "energy": energy,
-            "assumptions": ASSUMPTIONS}
+    tally = EventTally(net, fanout, hw)
+    tally.add(events)
+    return tally.estimate()
+
+
+class EventTally:
+    """The per-sample figures the estimate needs, gathered chunk by chunk of samples: per stage, the
+    input events, SOPs and event cycles of each sample (three int64 per sample and stage), so the
+    memory does not grow with the events of a whole test set."""
+
+    def __init__(self, net, fanout: list[np.ndarray], hw: dict | None = None):
+        from snnconvert.settings.hardware import HardwareSettings
+        self.net, self.fanout = net, [np.asarray(f, dtype=np.int64) for f in fanout]
+        self.s = hw if isinstance(hw, HardwareSettings) else HardwareSettings.from_section(hw)
+        self.idx = stage_indices(net)
+        self.lanes = _per_layer(self.s.lanes, len(self.idx), "lanes")
+        self.scan = _per_layer(self.s.scan_lanes, len(self.idx), "scan_lanes")
+        self.parts: list[list[np.ndarray]] = [[] for _ in self.idx]     # per stage: (3, n) chunks
+
+    def add(self, events: list[np.ndarray]) -> None:
+        """events[e]: (n, units) bool of this chunk's n samples, as in `estimate`."""
+        n = len(events[0])
+        for si, i in enumerate(self.idx):
+            lane = self.lanes[si] or int(self.net.layers[i].weight.shape[0])
+            e = _emitter(self.net, i)
+            ev = np.asarray(events[e]).reshape(n, -1).astype(np.int64)
+            fan = self.fanout[e]
+            self.parts[si].append(np.stack([ev.sum(1), ev @ fan, ev @ -(-fan // lane)]))   # ceil(fan / L) per event
+
+    def estimate(self) -> dict:
+        net, s = self.net, self.s
+        configs = block_configs(s.block_kbits)
+        per = [np.concatenate(p, axis=1) if p else np.zeros((3, 0), np.int64) for p in self.parts]
+        n = per[0].shape[1] if per else 0
+        ttfs_steps = net.time_steps if net.coding == "ttfs" else 0
+        layers, cyc = [], []
+        for si, i in enumerate(self.idx):
+            L = net.layers[i]
+            O = int(L.weight.shape[0])
+            lane = self.lanes[si] or O
+            slane = self.scan[si] or lane
+            neurons = int(np.prod(L.out_shape))
+            e = _emitter(net, i)
+            n_ev, sops, ev_cycles = per[si]                               # (N,) each
+            scan_cycles = -(-neurons // slane)
+            cycles = ev_cycles + scan_cycles + ttfs_steps
+            cyc.append(cycles)
+            acc = int(L.acc_bits) if not net.acc_limit_bits else min(int(L.acc_bits), int(net.acc_limit_bits))
+            q_src = net.input_q if e == 0 else int(net.layers[e - 1].q_out)
+            units_in = int(np.prod(L.in_shape))
+            fifo_w = address_bits(units_in) + int(q_src).bit_length()
+            fifo_d = int(n_ev.max(initial=0))
+            words = int(L.weight.size)
+            mem = {"fifo": (fifo_w, fifo_d),
+                   "weights": (lane * net.weight_bits, -(-words // lane)),
+                   "potentials": (lane * acc, -(-neurons // lane))}
+            bits = {k: w * d for k, (w, d) in mem.items()}
+            bits["weights"] = words * net.weight_bits                     # unused lanes of the last row: not bits
+            bits["potentials"] = neurons * acc
+            bits["bias"] = O * acc
+            bits["multipliers"] = O * (net.multiplier_bits + SHIFT_FIELD_BITS)
+            blk = {"fifo": blocks(fifo_w, fifo_d, configs, s.register_bits),
+                   "weights": lane_blocks(net.weight_bits, mem["weights"][1], lane, configs, s.register_bits),
+                   "potentials": lane_blocks(acc, mem["potentials"][1], lane, configs, s.register_bits)}
+            layers.append({
+                "name": L.name, "kind": L.kind, "lanes": lane, "scan_lanes": slane, "neurons": neurons,
+                "fan_in": int(L.fan_in), "accumulator_bits": acc,
+                "input_events_mean": float(n_ev.mean()), "input_events_peak": fifo_d,
+                "sops_mean": float(sops.mean()),
+                "event_cycles_mean": float(ev_cycles.mean()), "scan_cycles": int(scan_cycles),
+                "ttfs_cycles": int(ttfs_steps),
+                "cycles_mean": float(cycles.mean()), "cycles_worst": int(cycles.max(initial=0)),
+                "bus": {"address_bits": address_bits(units_in), "payload_bits": int(q_src).bit_length()},
+                "memory_shape": {k: {"width": w, "depth": d} for k, (w, d) in mem.items()},
+                "memory_bits": {**bits, "total": int(sum(bits.values()))},
+                "block_rams": {**blk, "total": int(sum(blk.values()))},
+                "_sops": sops, "_events": n_ev})
+        total_cycles = np.sum(cyc, axis=0) if cyc else np.zeros(n, dtype=np.int64)
+        slowest = np.max(cyc, axis=0) if cyc else np.zeros(n, dtype=np.int64)
+        f = s.clock_mhz * 1e6
+        per_sample = slowest if s.pipelined else total_cycles
+        mean_cycles = float(total_cycles.mean())
+        total = {
+            "cycles_mean": mean_cycles, "cycles_worst": int(total_cycles.max(initial=0)),
+            "latency_us_mean": mean_cycles / s.clock_mhz, "latency_us_worst": float(total_cycles.max(initial=0)) / s.clock_mhz,
+            "samples_per_s": float(f / per_sample.mean()) if per_sample.mean() > 0 else None,
+            "bottleneck": layers[int(np.argmax([x["cycles_mean"] for x in layers]))]["name"] if layers else None,
+            "memory_bits": {k: int(sum(x["memory_bits"][k] for x in layers))
+                            for k in ("fifo", "weights", "bias", "multipliers", "potentials", "total")},
+            "block_rams": int(sum(x["block_rams"]["total"] for x in layers)),
+            "sops_mean": float(sum(x["sops_mean"] for x in layers)),
+        }
+        energy = _energy(net, layers)
+        for x in layers:
+            del x["_sops"], x["_events"]
+        return {"is_estimate": True, "note": ESTIMATE_NOTE, "hardware": s.as_dict(), "samples": int(n),
+                "block_configs": [list(c) for c in configs], "layers": layers, "total": total, "energy": energy,
+                "assumptions": ASSUMPTIONS}
 
 
 ASSUMPTIONS = [

@@ -1,11 +1,13 @@
-"""Frames: the events of one window binned into a (C, H, W) tensor.
+"""Frames: the events of one window binned into a (C, H, W) tensor, by the rules of the front end
+(frontend.py: the same grid address and payload rule the hardware applies event by event).
 
     count[c, i, j] = #{events in [t0, t1) with  i = y * H // height,  j = x * W // width}
     binary:   1 channel,  frame = (count >= threshold)            values {0, 1}
     count:    1 channel,  frame = min(count, max_count)           values 0..max_count
     polarity: 2 channels (ON, OFF), each min(count, max_count)     values 0..max_count
 
-Subsampling is sum-pooling: sensor pixel (x, y) goes to target pixel (x*W//width, y*H//height),
+Burst windows come from the front end's integer rate counter (frontend.windows). Subsampling is
+sum-pooling: sensor pixel (x, y) goes to target pixel (x*W//width, y*H//height),
 with H = W = size. When the sensor side is not a multiple of size, target pixels gather
 floor(side/size) or ceil(side/size) sensor pixels, the larger ones spread evenly across the
 frame (no pixel is dropped or counted twice). A non-square sensor is stretched to a square frame.
@@ -14,14 +16,14 @@ Binary mode ignores polarity; in it no pixel carries more than one spike per win
 
 from __future__ import annotations
 
+import itertools
 
 import numpy as np
 
-from snnconvert import plots
+from snnconvert import frontend, plots
 from snnconvert.errors import UsageError, check_choice, check_int
 from snnconvert.events.stream import EventStream
 from snnconvert.settings.frames import MODES
-
 
 
 def channels(mode: str) -> int:
@@ -63,37 +65,25 @@ def bin_segments(x, y, p, width: int, height: int, bounds, mode: str = "binary",
     bounds = np.asarray(bounds, np.int64).ravel()
     k = bounds.size // 2
     runs = np.diff(np.concatenate([[0], bounds, [len(x)]]))  # (2K + 1,) gap, window, gap, ..., gap
-    offset = np.zeros(runs.size, np.intp)
+    offset = np.zeros(runs.size, np.int64)
     offset[1::2] = np.arange(1, k + 1) * block
     return _binned(x, y, p, width, height, np.repeat(offset, runs), k, mode, size, threshold, max_count)
 
 
 def _binned(x, y, p, width: int, height: int, offset, n_groups: int, mode: str, size: int, threshold: int,
             max_count: int) -> np.ndarray:
-    """bin(e) = offset(e) + lut[y(e) * width + x(e) + (p(e) < 0 and C == 2) * width * height],
-    lut[y * width + x] = (y * size // height) * size + x * size // width (plus one plane for OFF),
-    offset(e) = (group(e) + 1) * C * size^2 (0: outside every window); one np.bincount over all
-    events, block 0 dropped. The flat index is built in place in one intp array (the type np.bincount
-    counts without a copy): no Python loop per event or per group."""
+    """bin(e) = offset(e) + frontend.grid_address(e), offset(e) = (group(e) + 1) * C * size^2 (0: outside
+    every window); one np.bincount over all events, block 0 dropped, then frontend.payload. The
+    address array is int64 (the type np.bincount counts without a copy) and the offsets are added in
+    place: no Python loop per event or per group."""
     c = channels(mode)
     plane = size * size
     block = c * plane
-    # target pixel of every sensor pixel (row-major), then of every (polarity, pixel) for 2 channels
-    lut = ((np.arange(height, dtype=np.intp) * size // height)[:, None] * size
-           + (np.arange(width, dtype=np.intp) * size // width)[None, :]).ravel()  # (height * width,)
-    idx = np.asarray(y).astype(np.intp)  # (E,)
-    idx *= width
-    idx += x
-    if c == 2:
-        lut = np.concatenate([lut, lut + plane])
-        idx += (np.asarray(p) < 0) * (width * height)
-    lut.take(idx, out=idx, mode="clip")  # indices are in range: "clip" only skips the bounds buffer
+    idx = frontend.grid_address(x, y, p, width, height, size, c == 2)  # (E,) target pixel, a fresh array
     idx += offset
     counts = np.bincount(idx, minlength=(n_groups + 1) * block)[block:(n_groups + 1) * block]
     counts = counts.reshape(n_groups, c, size, size)  # (K, C, H, W)
-    if mode == "binary":
-        return (counts >= threshold).astype(np.float32)
-    return np.minimum(counts, max_count).astype(np.float32)
+    return frontend.payload(counts, mode, threshold, max_count).astype(np.float32)
 
 
 def bin_windows(stream: EventStream, windows, mode: str = "binary", size: int = 16, threshold: int = 1,
@@ -121,8 +111,8 @@ def windows_of(stream: EventStream, section: dict) -> list[tuple[int, int]]:
     from snnconvert import windows
     kind = section["window"]
     if kind == "burst":
-        return windows.bursts(stream, section["bin_us"], section["upper"], section["lower"], section["relative"],
-                        section["min_duration_us"], section["merge_gap_us"], section["background_percentile"])
+        params = frontend.FrontEnd.from_section(section, stream.width, stream.height)
+        return [(int(a), int(b)) for a, b in frontend.windows(stream.t, params)]
     if kind == "fixed":
         return windows.fixed_windows(stream, section["window_us"])
     if kind == "all":
@@ -168,7 +158,7 @@ def frame_windows(stream: EventStream, section: dict) -> tuple[list[tuple[int, i
         return [tuple(v) for v in found[:k]], True
     t0, t1 = _whole(stream) if len(stream) else (0, 0)
     edges = [t0 + i * (t1 - t0) // k for i in range(k + 1)]
-    return list(zip(edges[:-1], edges[1:])), False
+    return list(itertools.pairwise(edges)), False
 
 
 # --- plots ----------------------------------------------------------------------------------
@@ -221,30 +211,20 @@ def _colorbar(fig, im, axes, style: dict, **kw):
     return cb
 
 
-def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresholds=None, title: str = "",
-                   mode: str | None = None, q: int | None = None):
-    """Rate trace (events/s) with the two thresholds and the bursts shaded; the frame of each
-    burst (up to 6) beside it on one fixed colour scale (`frame_style(mode, q)`).
-    rate_trace = (t_k, rate) from windows.rate_trace."""
+def plot_recording(stream: EventStream, trace: dict, frames, path, title: str = "", mode: str | None = None,
+                   q: int | None = None):
+    """The front end's rate trace (`plots.draw_rate`: events per bin, the thresholds per bin, the
+    windows shaded) with the frame of each window (up to 6) beside it on one fixed colour scale
+    (`frame_style(mode, q)`). trace: `frontend.trace`, or for other window rules a dict with
+    upper/lower None."""
     plt = plots.pyplot()
     frames = [np.asarray(f) for f in list(frames)[:6]]
     ncol = max(len(frames), 1)
     fig = plt.figure(figsize=(4.6 + 2.2 * ncol, 3.4))
     grid = fig.add_gridspec(1, 2 + ncol, width_ratios=[3.5] + [1] * ncol + [0.12])
     ax = fig.add_subplot(grid[0, 0])
-    tk, rate = rate_trace
-    ax.plot(np.asarray(tk) / 1e3, rate, lw=1, color="k", label="rate")
-    if thresholds is not None:
-        ax.axhline(thresholds[0], color="tab:red", ls="--", lw=1, label="upper")
-        ax.axhline(thresholds[1], color="tab:blue", ls=":", lw=1, label="lower")
-    for i, (s, e) in enumerate(bursts):
-        ax.axvspan(s / 1e3, e / 1e3, color="tab:orange", alpha=0.3, label="burst" if i == 0 else None)
-    ax.set_xlabel("time (ms)")
-    ax.set_yscale("symlog", linthresh=max(1.0, float(thresholds[1]) if thresholds is not None else 1.0))
-    ax.set_ylim(0, max(float(np.max(rate)) if len(rate) else 1.0, thresholds[0] if thresholds else 1.0) * 2)
-    ax.set_ylabel("events / s (log above the lower threshold)")
-    ax.set_title(title or f"{len(stream)} events, {len(bursts)} bursts", fontsize=9)
-    ax.legend(fontsize=7, loc="upper right")
+    plots.draw_rate(ax, trace)
+    ax.set_title(title or f"{len(stream)} events, {len(trace['windows'])} windows", fontsize=9)
     im = None
     if frames:
         m = mode_of(frames[0].shape, mode)
@@ -252,7 +232,7 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
     for i, f in enumerate(frames):
         a = fig.add_subplot(grid[0, 1 + i])
         im = _draw_frame(a, f, style)
-        a.set_title(f"burst {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
+        a.set_title(f"window {i + 1}: {int(np.count_nonzero(f))} px", fontsize=8)
     if im is not None:
         cb = fig.colorbar(im, cax=fig.add_subplot(grid[0, 1 + ncol]))
         cb.set_label(style["label"], fontsize=7)
@@ -260,9 +240,19 @@ def plot_recording(stream: EventStream, bursts, rate_trace, frames, path, thresh
             cb.set_ticks(style["ticks"])
     else:
         a = fig.add_subplot(grid[0, 1])
-        a.text(0.5, 0.5, "no burst", ha="center", va="center")
+        a.text(0.5, 0.5, "no window", ha="center", va="center")
         a.axis("off")
     return plots.save_png(fig, path)
+
+
+def recording_trace(stream: EventStream, section: dict) -> dict:
+    """The trace `plot_recording` draws for a resolved [frames] section: the front end's counter
+    (`frontend.trace`) with the section's windows; thresholds only for burst windows."""
+    params = frontend.FrontEnd.from_section(section, stream.width, stream.height)
+    tr = frontend.trace(stream.t, params)
+    if section["window"] != "burst":
+        tr.update(upper=None, lower=None, windows=np.asarray(windows_of(stream, section), np.int64).reshape(-1, 2))
+    return tr
 
 
 def frames_figure(X, y, classes=None, per_class: int = 8, mode: str | None = None, q: int | None = None,

@@ -245,19 +245,17 @@ def data_line(samples: dict, input_shape, mode: str, n_classes: int) -> str:
 
 def _example_recording(run_: Run) -> dict | None:
     """Plot the first training recording: rate trace, thresholds, bursts and their frames."""
-    from snnconvert import frames, windows
+    from snnconvert import frames
     ds = run_.dataset()
     if ds.recordings is None or len(ds.recordings) == 0:
         return None
     i = int(ds.split_index["train"][0]) if ds.split_index.get("train") is not None else 0
     stream, label = ds.recordings[i]
     fr = run_.recipe["frames"]
-    tk, rate = windows.rate_trace(stream, fr["bin_us"])
-    wins = frames.windows_of(stream, fr)
-    thr = windows.thresholds(rate, fr["bin_us"], fr["upper"], fr["lower"], fr["relative"], fr["background_percentile"]) if fr["window"] == "burst" else None
+    trace = frames.recording_trace(stream, fr)
+    wins = [(int(a), int(b)) for a, b in trace["windows"]]
     shown = [frames.bin_window(stream, a, b, fr["mode"], fr["size"], fr["threshold"], fr["max_count"]) for a, b in wins[:6]]
-    frames.plot_recording(stream, wins, (tk, rate), shown, run_.out / "data" / "events.png", thresholds=thr,
-                          mode=fr["mode"], q=ds.input_q,
+    frames.plot_recording(stream, trace, shown, run_.out / "data" / "events.png", mode=fr["mode"], q=ds.input_q,
                           title=f"recording {i} (label {ds.classes[label]}): {len(stream)} events, {len(wins)} windows")
     return {"index": i, "label": ds.classes[label], "events": len(stream),
             "windows": [[int(a), int(b), int(np.count_nonzero((stream.t >= a) & (stream.t < b)))] for a, b in wins]}

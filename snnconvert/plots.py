@@ -96,3 +96,32 @@ def save_training_curves(history: list[dict], path, title: str = "training") -> 
     fig.suptitle(title, fontsize=10)
     fig.tight_layout()
     return save_png(fig, path)
+
+
+def draw_rate(ax, trace: dict, labels=None, colors=None) -> None:
+    """The front end's rate trace on `ax`: events per bin (steps), the opening and closing thresholds
+    per bin (hi_k, lo_k; constant for absolute thresholds) and each window shaded, with its label
+    (e.g. the decision) above it. trace: `frontend.trace` (or any dict with t0, bin_us, counts,
+    windows and upper/lower None). colors: one matplotlib colour per window (default orange)."""
+    import numpy as np
+    c = np.asarray(trace["counts"])
+    edges_ms = (trace["t0"] + np.arange(c.size + 1) * trace["bin_us"]) / 1e3
+    ax.stairs(c, edges_ms, color="k", lw=0.8, label=f"events per {trace['bin_us']} us bin")
+    top = float(c.max()) if c.size else 1.0
+    if trace.get("upper") is not None and c.size:
+        ax.stairs(trace["upper"], edges_ms, baseline=None, color="tab:red", ls="--", lw=1.2, label="opens at (upper)")
+        ax.stairs(trace["lower"], edges_ms, baseline=None, color="tab:blue", ls=":", lw=1.2,
+                  label="stays open at (lower)")
+        top = max(top, float(np.max(trace["upper"])))
+    for i, (s, e) in enumerate(np.asarray(trace["windows"]).reshape(-1, 2)):
+        col = colors[i] if colors is not None else "tab:orange"
+        ax.axvspan(s / 1e3, e / 1e3, color=col, alpha=0.3, lw=0, label="window" if i == 0 and colors is None else None)
+        ax.axvline(s / 1e3, color=col, lw=1.0, alpha=0.8)  # visible even when the window is a sliver of the axis
+        if labels is not None:  # two rows of labels, alternating, so neighbours do not overlap
+            ax.text(s / 1e3, top * (1.6 if i % 2 == 0 else 5.0), str(labels[i]), ha="center", va="bottom",
+                    fontsize=8, color=col, fontweight="bold", clip_on=True)
+    ax.set_yscale("symlog", linthresh=1.0)
+    ax.set_ylim(0, max(top, 1.0) * (40 if labels is not None else 4))
+    ax.set_xlabel("time (ms)")
+    ax.set_ylabel("events per bin (log above 1)")
+    ax.legend(fontsize=7, loc="upper right")

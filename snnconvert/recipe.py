@@ -62,11 +62,21 @@ def renamed() -> dict[str, dict[str, str]]:
     return {section: dict(getattr(_settings_module(section), "RENAMED", {})) for section in SECTIONS}
 
 
+def retired() -> dict[str, dict[str, str]]:
+    """{section: {key no longer read: why}} from each settings module's optional `RETIRED`."""
+    return {section: dict(getattr(_settings_module(section), "RETIRED", {})) for section in SECTIONS}
+
+
 def _rename(section: str, table: dict, where: str) -> None:
-    """Read a renamed key under its new name, in place, with a one-line note on stderr.
+    """Read a renamed key under its new name, in place, with a one-line note on stderr; drop a
+    retired key (one no longer read) with a note saying why.
 
     A recipe that gives both the old and the new name is refused (which one is meant is unclear).
     """
+    for old, why in retired().get(section, {}).items():
+        if old in table:
+            table.pop(old)
+            console.say(f"note: {where}: [{section}] {old} is no longer used and is ignored: {why} (remove it)")
     for old, new in renamed().get(section, {}).items():
         if old in table:
             if new in table:
@@ -179,6 +189,8 @@ def _parse_override(item: str, sch) -> tuple[str | None, str, Any]:
         section, key = lhs.split(".", 1)
         if section not in sch:
             raise UsageError(f"--set {lhs}: " + _unknown_section(section, sch))
+        if key in retired().get(section, {}):
+            raise UsageError(f"--set {lhs}: {section}.{key} is no longer used: {retired()[section][key]}")
         if key in renamed().get(section, {}):
             new = renamed()[section][key]
             console.say(f"note: --set {lhs}: {section}.{key} is now called {section}.{new}; read as {section}.{new}")

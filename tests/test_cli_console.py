@@ -155,6 +155,8 @@ QUIET_CASES = [
                              "`snnconvert train`)"),
     (["simulate", "missing"], "missing/network.json: file not found (NET_DIR must be a folder written by "
                               "`snnconvert convert`)"),
+    (["classify", "missing", "rec.npz"], "missing: holds neither network.json (a `snnconvert convert` folder) nor "
+                                         "manifest.json (a `snnconvert export` folder)"),
     (["sweep", "missing"], "training folder not found: missing"),
     (["export", "missing", "out"], "network folder missing holds no network.json (run `snnconvert convert` first)"),
     (["verify", "missing"], "export folder not found: missing"),

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import torch
 
-from snnconvert import recipe, train
+from snnconvert import checkpoint, recipe, train
 from snnconvert.cli import main
 from snnconvert.intnet import IntNetwork
 
@@ -46,12 +46,12 @@ def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
 
 
 def test_convert_reads_the_checkpoint_once(run_dir, tmp_path, monkeypatch, capsys):
-    reads, real = [], train.load_checkpoint
+    reads, real = [], checkpoint.load_checkpoint
 
     def load_checkpoint(path):
         reads.append(str(path))
         return real(path)
-    monkeypatch.setattr(train, "load_checkpoint", load_checkpoint)
+    monkeypatch.setattr(checkpoint, "load_checkpoint", load_checkpoint)   # every reader imports it from here
     assert main(["convert", str(run_dir / "train"), "--out", str(tmp_path / "net"), "--quiet"]) == 0
     assert reads == [str(run_dir / "train" / "model.pt")]
 
@@ -81,6 +81,29 @@ def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
                                        f"missing; found ['x'] (a frames file holds the arrays x and y)\n")
 
 
+def test_every_convert_key_is_an_option_of_the_command():
+    from snnconvert.cli import build_parser
+    from snnconvert.settings.convert import KEYS
+    sub = next(a for a in build_parser()._actions if hasattr(a, "choices") and a.choices and "convert" in a.choices)
+    options = {o for a in sub.choices["convert"]._actions for o in a.option_strings}
+    assert {f"--{k.replace('_', '-')}" for k in KEYS} - options == set()
+
+
+def test_the_less_common_convert_options_reach_the_network(run_dir, tmp_path, capsys):
+    out = tmp_path / "net"
+    assert main(["convert", str(run_dir / "train"), "--weight-bits", "2", "--weight-scale", "mean:0.7",
+                 "--multiplier-bits", "8", "--calib-samples", "16", "--tolerance-pp", "3", "--out", str(out),
+                 "--quiet"]) == 0
+    conv = tomllib.loads((out / "recipe.toml").read_text())["convert"]
+    assert (conv["weight_scale"], conv["multiplier_bits"], conv["calib_samples"], conv["tolerance_pp"]) == (
+        "mean:0.7", 8, 16, 3.0)
+    net = IntNetwork.load(out)
+    # an 8-bit multiplier mantissa: every M0 below 2^8 (the fixed-point form M = M0 * 2^-n, common practice)
+    m0 = [int(np.max(layer.m0)) for layer in net.layers if layer.m0 is not None]   # the output layer has none
+    assert m0 and max(m0) < 2 ** 8
+    assert "within tolerance       " in capsys.readouterr().out
+
+
 @pytest.mark.parametrize("argv,err", [
     (["--payload-bits", "0"], "error: The 'payload_bits' parameter of convert must be an int in [1, 8]. Got 0 instead."),
     (["--weight-bits", "1"], "error: The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 1 instead."),
@@ -89,6 +112,8 @@ def test_simulate_reads_a_frames_npz(run_dir, tmp_path, capsys):
     (["--coding", "binary", "--payload-bits", "4"],
      "error: The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike carries no "
      "payload). Got 4 instead."),
+    (["--multiplier-bits", "1"],
+     "error: The 'multiplier_bits' parameter of convert must be an int in [2, 31]. Got 1 instead."),
     (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max' or 'percentile:Q' "
                                   "with Q in (0, 100]. Got 'pct:99' instead."),
 ])

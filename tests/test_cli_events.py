@@ -21,15 +21,16 @@ def rec(tmp_path):
     return tmp_path
 
 
-# hand-computed from the recording above: 102 events over 50 ms = 2040 events/s; the median rate is
-# 0, so the background is floored at 1 event per 1 ms bin = 1000 events/s and the relative thresholds
-# 8x / 2x give 8000 / 2000 events/s; the burst spans its first event to the end of its last 1 ms bin
+# hand-computed from the recording above: 102 events over 50 ms = 2040 events/s. 1 ms bins from t = 0;
+# background = events of the last 32 closed bins, floored at 32 (one per bin): it never leaves the
+# floor (the burst bin is open, so it does not count), so a window opens at >= 128*32//512 + 1 = 9 and
+# stays open at >= ceil(32*32/512) = 2: the burst bin (20 ms, 100 events) opens and the next bin closes
 EXPECTED = """file      {f}
 events    102 (ON 51 = 50.0%, OFF 51)
 time      0 .. 50000 us (duration 50000 us)
 rate      2040 events/s
 sensor    34x34
-bursts    1 (upper 8000 events/s, lower 2000 events/s)
+bursts    1 (opens at >= 9, stays open at >= 2 events per 1000 us bin)
     #   start_us     end_us   events
     1      20000      21000      100
 """
@@ -54,7 +55,9 @@ def test_absolute_thresholds_and_plot(rec, capsys):
     png = rec / "out" / "r.png"
     assert main(["events", str(rec / "r.npz"), "--absolute", "--upper", "1e9", "--plot", str(png)]) == 0
     out = capsys.readouterr().out
-    assert "bursts    0 (upper 1000000000 events/s" in out and f"plot      {png}" in out  # 1e9 far above any rate here
+    # 1e9 events/s = 1e6 per 1 ms bin: the smallest count above it is 1000001; 2 events/s -> at least 1
+    assert "bursts    0 (opens at >= 1000001, stays open at >= 1 events per 1000 us bin)" in out
+    assert f"plot      {png}" in out
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
 
 

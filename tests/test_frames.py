@@ -113,11 +113,11 @@ def test_frame_window_falls_back_to_all_events():
 
 
 def test_plots_write_png(tmp_path):
-    from snnconvert import windows
     s = rand_stream(2000)
-    wins = windows.bursts(s, relative=False, upper=10.0, lower=5.0)
-    fr = [frames.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in wins]
-    p = frames.plot_recording(s, wins, windows.rate_trace(s), fr, tmp_path / "r.png", thresholds=(10.0, 5.0))
+    sec = FramesSettings.from_section({"relative": False, "upper": 10.0, "lower": 5.0}).as_dict()
+    trace = frames.recording_trace(s, sec)
+    fr = [frames.bin_window(s, a, b, "polarity", 16, 1, 4) for a, b in trace["windows"]]
+    p = frames.plot_recording(s, trace, fr, tmp_path / "r.png")
     assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, ISO/IEC 15948 §5.2)
     X = np.random.default_rng(0).integers(0, 2, (20, 1, 8, 8)).astype(np.float32)
     png = frames.plot_frames(X, np.arange(20) % 4, tmp_path / "f.png", classes=list("abcd"))

@@ -64,17 +64,23 @@ def test_readers_reference_and_arith_import_and_run_without_torch():
     r = _python("""
         import numpy as np
         import snnconvert.export.verify, snnconvert.sim.reference
-        from snnconvert import arith, files
+        from snnconvert import arith, files, frontend
         from snnconvert.export import manifest, memfile
         from snnconvert.intnet import IntNetwork
         # requantize with numpy alone: 2.5 rounds up to 3 (M = 1/2: M0 = 2^15, n = 16), -2.5 clamps to 0
         m0, n = arith.fixed_point_multiplier(np.array([0.5]), bits=16)
         print(arith.requantize(np.array([[5], [-5]], dtype=np.int64), m0, n, 15).ravel().tolist())
         print(files.fingerprint(np.arange(3), {"a": [1, 2]}) != "")
+        # the front end with numpy alone: counts [0, 3, 6, 2, 1] in 10 us bins, hi 5, lo 2 -> bins [2, 4)
+        fe = frontend.FrontEnd(bin_us=10, relative=False, upper_16=0, lower_16=0, upper_count=5, lower_count=2,
+                               background_bins=1, min_bins=0, merge_bins=0, width=2, height=2, size=1,
+                               mode="binary", threshold=1, max_count=1)
+        t = np.repeat(np.arange(5) * 10, [0, 3, 6, 2, 1])
+        print(frontend.windows(t + 10, fe, t0=0).tolist())
         print(sorted(m for m in sys.modules if m.split(".")[0] in BLOCKED))
     """)
     assert r.returncode == 0, r.stderr
-    assert r.stdout.split("\n")[:3] == ["[3, 0]", "True", "[]"]
+    assert r.stdout.split("\n")[:4] == ["[3, 0]", "True", "[[30, 50]]", "[]"]
 
 
 @pytest.mark.parametrize("coding", ["payload", "ttfs"])

@@ -62,8 +62,8 @@ def test_the_recipe_dict_is_the_settings_objects_as_data():
     ({"payload_bits": 0}, "The 'payload_bits' parameter of convert must be an int in [1, 8]. Got 0 instead."),
     ({"coding": "binary"}, "The 'payload_bits' parameter of convert must be 1 with coding 'binary' (a binary spike "
                            "carries no payload). Got 4 instead."),
-    ({"weight_scale": "median"}, "The 'weight_scale' parameter of convert must be 'max' or 'percentile:Q' with Q in "
-                                 "(0, 100]. Got 'median' instead."),
+    ({"weight_scale": "median"}, ("The 'weight_scale' parameter of convert must be 'max', 'percentile:Q' with Q in "
+                                  "(0, 100] or 'mean:C' with C in (0, 10]. Got 'median' instead.")),
 ])
 def test_a_settings_object_is_checked_when_built(section, message):
     with pytest.raises(UsageError) as e:
@@ -170,3 +170,44 @@ def test_imports_run_one_way():
     offenders = [str(p.relative_to(ROOT)) for p in sorted(pkg.rglob("*.py"))
                  if p.parent.name != "cli" and p.name != "__main__.py" and upward.search(p.read_text())]
     assert offenders == []
+
+
+def _module_imports() -> dict[str, set[str]]:
+    """Module-level imports between the package's modules (`from pkg import sub` counts as sub)."""
+    import ast
+    pkg = ROOT / "snnconvert"
+    names = {}
+    for p in pkg.rglob("*.py"):
+        parts = list(p.relative_to(ROOT).with_suffix("").parts)
+        names[".".join(parts[:-1] if parts[-1] == "__init__" else parts)] = p
+    graph = {}
+    for mod, p in names.items():
+        edges = set()
+        for node in ast.parse(p.read_text()).body:
+            if isinstance(node, ast.Import):
+                edges |= {a.name for a in node.names}
+            elif isinstance(node, ast.ImportFrom):
+                here = mod.split(".") if p.name == "__init__.py" else mod.split(".")[:-1]
+                base = ".".join(here[:len(here) - node.level + 1] + [node.module or ""]) if node.level else node.module
+                base = base.rstrip(".")
+                subs = {f"{base}.{a.name}" for a in node.names} & names.keys()
+                edges |= subs or {base}
+        graph[mod] = {e for e in edges if e in names and e != mod}
+    return graph
+
+
+def test_no_import_cycles():
+    graph, state, cycles = _module_imports(), {}, []
+
+    def visit(m, path):
+        state[m] = "open"
+        for n in sorted(graph[m]):
+            if state.get(n) == "open":
+                cycles.append(path[path.index(n):] + [n])
+            elif n not in state:
+                visit(n, path + [n])
+        state[m] = "done"
+    for m in sorted(graph):
+        if m not in state:
+            visit(m, [m])
+    assert cycles == []

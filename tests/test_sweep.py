@@ -206,6 +206,24 @@ def test_changed_fingerprint_refuses_to_mix(tmp_path, change, which):
         _run(tmp_path, ctx=_context(**change))
 
 
+def test_test_samples_measure_evenly_spaced_test_samples_and_never_mix(tmp_path):
+    seen = []
+
+    def point(model, dataset, recipe, act_max, pt):
+        seen.append(dataset.test[1].tolist())
+        return fake_point(model, dataset, recipe, act_max, pt)
+    model, ckpt, _ = _context()
+    y = np.arange(10, dtype=np.int64)
+    ds = SimpleNamespace(fingerprint="d1", test=(np.zeros((10, 1, 2, 2), np.float32), y))
+    _run(tmp_path, ctx=(model, ckpt, ds), point_fn=point, weight_bits="2", payload_bits="1", test_samples=4)
+    # 4 of 10, evenly spaced: round(linspace(0, 9, 4)) = 0, 3, 6, 9 (numpy rounds halves to even: 3.0, 6.0 exact)
+    assert seen == [[0, 3, 6, 9]]
+    with pytest.raises(UsageError, match="different data"):       # a log of 4 test samples is not reused for 5
+        _run(tmp_path, ctx=(model, ckpt, ds), point_fn=point, weight_bits="2", payload_bits="1", test_samples=5)
+    _run(tmp_path / "all", ctx=(model, ckpt, ds), point_fn=point, weight_bits="2", payload_bits="1", test_samples=0)
+    assert seen[-1] == list(range(10))
+
+
 def test_changed_convert_settings_refuse_to_mix(tmp_path):
     _run(tmp_path)
     ctx = _context()

@@ -13,6 +13,7 @@ import pytest
 from snnconvert import data as D
 from snnconvert import recipe as R
 from snnconvert.cli import main
+from snnconvert.errors import UsageError
 from snnconvert.events import EventStream, read_events, write_events
 
 RECIPES = Path(__file__).resolve().parent.parent / "recipes"
@@ -345,6 +346,19 @@ def test_old_sensor_key_is_read_with_a_note(tmp_path, capsys):
                                                         "called data.sensor_side; read as data.sensor_side")
     # a recipe stored by an earlier version inside a run folder reads the same
     assert R.from_embedded({"data": {"sensor_size": 24}}, "model.pt")["data"]["sensor_side"] == 24
+
+
+def test_retired_background_percentile_is_ignored_with_a_note(tmp_path, capsys):
+    f = tmp_path / "old.toml"
+    f.write_text("[frames]\nbackground_percentile = 10.0\n")
+    r = R.load(f)
+    assert "background_percentile" not in r["frames"] and r["frames"]["background_bins"] == 32
+    why = R.retired()["frames"]["background_percentile"]
+    assert capsys.readouterr().err == (f"note: {f}: [frames] background_percentile is no longer used and is ignored: "
+                                       f"{why} (remove it)\n")
+    with pytest.raises(UsageError, match=r"^--set frames.background_percentile: frames.background_percentile is "
+                                         r"no longer used: the background of relative thresholds is now the causal"):
+        R.load(f, ["frames.background_percentile=10"])
 
 
 def test_old_and_new_sensor_key_together_are_refused(tmp_path, capsys):

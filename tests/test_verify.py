@@ -107,6 +107,37 @@ def test_corrupt_intel_hex_word_is_named(exp):
     assert m.got ^ m.expected == 1 << (8 * (len(b) - 6))
 
 
+@pytest.mark.parametrize("suffix", ["coe", "mif"])
+def test_corrupt_block_ram_image_word_is_named(exp, suffix):
+    """One word of the fc bias image changed: verify names the .coe/.mif file, its line and the neuron."""
+    man = json.loads((exp / "manifest.json").read_text())
+    spec = next(d for d in man["layers"] if d["id"] == "L3_fc")["tables"]["bias"]
+    path = exp / spec[suffix]
+    lines = path.read_text().split("\n")
+    # word 2 of the table (unpacked: one table word per memory word); .coe: the 3rd line after the vector key,
+    # .mif: the line `  2 : data;` (Xilinx UG896 / Intel Quartus syntax, from the module docstring of export.fpga)
+    k = (lines.index("memory_initialization_vector=") + 3 if suffix == "coe"
+         else next(i for i, t in enumerate(lines) if t.strip().split(" ")[0].lstrip("0") == "2"))
+    head, tail = lines[k].split(":")[0] + ":" if suffix == "mif" else "", lines[k].split(":")[-1]
+    digits = tail.strip().rstrip(",;")
+    flipped = format((int(digits, 16) ^ 1), f"0{len(digits)}x")
+    lines[k] = head + tail.replace(digits, flipped)
+    path.write_text("\n".join(lines))
+    m = verify(exp, progress=False).first_mismatch
+    assert (m.kind, m.file, m.line, m.layer, m.neuron) == ("table", spec[suffix], k + 1, "L3_fc", 2)
+    assert abs(m.got - m.expected) == 1          # the lowest bit of a two's complement word (common practice)
+
+
+def test_block_ram_image_with_a_missing_word_is_refused(exp, capsys):
+    man = json.loads((exp / "manifest.json").read_text())
+    spec = next(d for d in man["layers"] if d["id"] == "L3_fc")["tables"]["bias"]
+    path = exp / spec["mif"]
+    lines = [t for t in path.read_text().split("\n") if t.strip().split(" ")[0].lstrip("0") != "2"]
+    path.write_text("\n".join(lines))
+    assert main(["verify", str(exp)]) == 2
+    assert capsys.readouterr().err == f"error: {exp / spec['mif']}: address 2 is not given\n"
+
+
 def test_corrupt_vector_line_is_named_by_sample_layer_and_neuron(exp, capsys):
     path = exp / "vectors/sample_0003/L0_conv1.csv"
     addr, t, p = map(int, path.read_text().split("\n")[4].split(","))   # line 5 of the file
@@ -167,10 +198,14 @@ def test_consistent_weight_change_is_caught_by_resimulation(exp):
     (exp / spec["file"]).write_text(format_mem(w, 4, True, ["changed"]))
     (exp / spec["csv"]).write_text(format_csv(w, spec["index_names"]))
     (exp / spec["intel_hex"]).write_text(format_intel_hex(w, 4, True))
+    from snnconvert.export.fpga import format_coe, format_mif
+    (exp / spec["coe"]).write_text(format_coe(w, 4, True, spec["packing"], ["changed"]))
+    (exp / spec["mif"]).write_text(format_mif(w, 4, True, spec["packing"], ["changed"]))
     res = verify(exp, progress=False)
     m = res.first_mismatch
     assert (m.kind, m.layer) == ("event", "L0_conv1") and m.neuron < 36   # a neuron of channel 0
-    assert set(res.sha256_failures) == {spec["file"], spec["csv"], spec["intel_hex"], "tables.npz"}
+    assert set(res.sha256_failures) == {spec["file"], spec["csv"], spec["intel_hex"], spec["coe"], spec["mif"],
+                                        "tables.npz"}
 
 
 def test_changed_bytes_with_equal_values_fail_on_sha256(exp, capsys):

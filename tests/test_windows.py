@@ -1,11 +1,11 @@
-"""Windows: sliding event rate, bursts by hysteresis, fixed-time and fixed-count windows."""
+"""Windows: bursts of the front end on realistic streams, fixed-time and fixed-count windows, the pick rule."""
 
 import numpy as np
 import pytest
 
-from snnconvert import windows
-from snnconvert.errors import UsageError
+from snnconvert import frontend, windows
 from snnconvert.events import EventStream
+from snnconvert.settings.frames import FramesSettings
 
 
 def stream_from_times(t, w=8, h=8, seed=0):
@@ -24,55 +24,52 @@ def bursty(seed=0):
     return stream_from_times(np.concatenate([bg, b1, b2]), seed=seed)
 
 
-def test_rate_trace_matches_direct_count():
-    s = stream_from_times(np.random.default_rng(1).integers(0, 20_000, 300))
-    tk, rate = windows.rate_trace(s, bin_us=1000)
-    assert np.all(np.diff(tk) == 250) and tk[0] == s.t[0]  # the toolkit's documented slide: bin_us / 4 = 250 us
-    direct = np.array([np.count_nonzero((s.t >= a) & (s.t < a + 1000)) for a in tk])  # plain definition: events in [t, t+bin)
-    assert np.array_equal(np.rint(rate * 1000 / 1e6).astype(int), direct)
-    assert tk[-1] + 1000 > s.t[-1]
+def bursts(s, **kw):
+    """The front end's burst windows of `s` with the [frames] defaults and `kw`."""
+    p = frontend.FrontEnd.from_section(FramesSettings.from_section(kw).as_dict(), s.width, s.height)
+    return [tuple(w) for w in frontend.windows(s.t, p).tolist()]
 
 
 def test_bursts_found_around_the_dense_parts():
     s = bursty()
-    found = windows.bursts(s, bin_us=1000, upper=8, lower=2)
+    found = bursts(s)
     assert len(found) == 2
     (a0, a1), (b0, b1) = found
-    # hand-computed from the construction of bursty(): bursts at 20-23 ms and 60-62 ms, edges within one
-    # 1 ms rate bin (+ half a bin of slack at the end)
-    assert 19_000 <= a0 <= 20_100 and 23_000 <= a1 <= 24_500
-    assert 59_000 <= b0 <= 60_100 and 62_000 <= b1 <= 63_500
-    # every burst event is inside a burst
+    # hand-computed from the construction of bursty(): bursts at 20-23 ms and 60-62 ms; windows are whole
+    # 1 ms bins from the first event, so each edge lies within one bin of the burst's edge
+    assert 19_000 < a0 <= 20_000 and 23_000 <= a1 < 24_000 and (a1 - a0) % 1000 == 0
+    assert 59_000 < b0 <= 60_000 and 62_000 <= b1 < 63_000 and (b1 - b0) % 1000 == 0
+    # every burst event is inside a burst (plus the odd background event in the same bins)
     inside = sum(np.count_nonzero((s.t >= x) & (s.t < y)) for x, y in found)
-    assert inside >= 1000  # hand-computed: 600 + 400 burst events in bursty()
+    assert 1000 <= inside <= 1010  # hand-computed: 600 + 400 burst events in bursty(), 50 background over 100 ms
 
 
 @pytest.mark.parametrize("kw, n", [
-    (dict(merge_gap_us=40_000), 1),            # gap of ~37 ms (23 -> 60 ms) merged: hand-computed from bursty()
-    (dict(min_duration_us=2_800), 1),          # the 2 ms burst is too short (hand-computed from bursty())
-    (dict(relative=False, upper=150_000.0, lower=20_000.0), 2),  # absolute: 600/3 ms and 400/2 ms = 200k events/s peaks
-    (dict(relative=False, upper=1e9, lower=1.0), 0),  # 1e9 events/s: far above the 200k events/s peaks
+    ({"merge_gap_us": 40_000}, 1),      # gap of ~37 ms (23 -> 60 ms) merged: hand-computed from bursty()
+    ({"min_duration_us": 3_500}, 1),    # at least 4 bins: the 2 ms burst (3 bins) is too short, the 3 ms one (4) is not
+    ({"relative": False, "upper": 150_000.0, "lower": 20_000.0}, 2),  # absolute: 200 events per full bin of each burst
+    ({"relative": False, "upper": 1e9, "lower": 1.0}, 0),  # 1e6 events per bin: far above the 200 of the bursts
 ])
 def test_burst_parameters(kw, n):
-    assert len(windows.bursts(bursty(), **kw)) == n
+    assert len(bursts(bursty(), **kw)) == n
 
 
 def test_hysteresis_keeps_burst_through_dip_above_lower():
-    # a dip that stays above `lower` does not end the burst, a lone spike above `lower` only does not start one
-    t = np.concatenate([np.arange(10_000, 12_000, 2),       # 500k/s
-                        np.arange(12_000, 14_000, 100),      # 10k/s dip
+    # a dip that stays above `lower` does not end the burst, a lone stretch above `lower` only does not start one
+    t = np.concatenate([np.arange(10_000, 12_000, 2),       # 500 per 1 ms bin
+                        np.arange(12_000, 14_000, 100),      # 10 per bin: the dip
                         np.arange(14_000, 16_000, 2),
-                        np.arange(40_000, 42_000, 100)])     # 10k/s: above lower, never above upper
+                        np.arange(40_000, 42_000, 100)])     # 10 per bin: above lower, never above upper
     s = stream_from_times(t)
-    found = windows.bursts(s, relative=False, upper=100_000.0, lower=5_000.0, merge_gap_us=0)
-    # hand-computed from the times above: starts at the first burst event, ends within one 1 ms bin of 16 ms
-    assert len(found) == 1 and found[0][0] == 10_000 and 16_000 <= found[0][1] <= 17_000
+    found = bursts(s, relative=False, upper=100_000.0, lower=5_000.0, merge_gap_us=0)
+    # hand-computed: bins from t0 = 10 ms; opens at the first bin (500 >= 101), the dip (10 >= 5) keeps it
+    # open, closes at the first empty bin (16 ms)
+    assert found == [(10_000, 16_000)]
 
 
 def test_empty_and_silent():
     e = EventStream.empty(4, 4)
-    assert windows.bursts(e) == [] and windows.fixed_windows(e, 10) == [] and windows.count_windows(e, 3) == []
-    assert windows.rate_trace(e)[0].size == 0
+    assert bursts(e) == [] and windows.fixed_windows(e, 10) == [] and windows.count_windows(e, 3) == []
 
 
 def test_fixed_windows_cover_every_event_once():
@@ -96,17 +93,7 @@ def test_count_windows(n):
 
 def test_pick_rules():
     s = bursty()
-    found = windows.bursts(s)
+    found = bursts(s)
     assert windows.pick(s, found, "first") == found[0]
     assert windows.pick(s, [(0, 100), (20_000, 23_000)], "largest") == (20_000, 23_000)  # 600 burst events vs ~0 (bursty())
     assert windows.pick(s, [], "first") is None
-
-
-@pytest.mark.parametrize("kw, match", [
-    (dict(bin_us=0), r"The 'bin_us' parameter of bursts must be an int >= 1. Got 0 instead."),
-    (dict(upper=-1.0), r"The 'upper' parameter of bursts must be a float >= 0.0. Got -1.0 instead."),
-    (dict(relative="yes"), r"The 'relative' parameter of bursts must be a bool. Got 'yes' instead."),
-])
-def test_burst_validation(kw, match):
-    with pytest.raises(UsageError, match=match):
-        windows.bursts(bursty(), **kw)

@@ -26,7 +26,7 @@ from snnconvert.errors import UsageError
 FULL_ONLY = ("torch", "scipy", "sklearn", "matplotlib", "joblib", "threadpoolctl")
 
 # Order is the order of the job; `run` chains them all.
-COMMANDS = ["events", "train", "import", "convert", "simulate", "sweep", "export", "verify", "cmodel", "verilog",
+COMMANDS = ["events", "train", "import", "convert", "simulate", "classify", "sweep", "export", "verify", "cmodel", "verilog",
             "compare", "report", "run"]
 # Commands that read only an export folder and run on the base install (numpy alone).
 NUMPY_ONLY = ("verify", "compare", "cmodel", "verilog")

@@ -16,6 +16,11 @@ def add_arguments(p) -> None:
                    "binary sends 1-bit spikes, so it sets the payload bits to 1")
     p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
     p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
+    p.add_argument("--weight-scale", metavar="RULE", help="weight range: max, percentile:Q or mean:C "
+                   "(C times the mean |w|, for 2-3-bit grids)")
+    p.add_argument("--calib-samples", type=int, metavar="N", help="training samples used to calibrate the ranges")
+    p.add_argument("--multiplier-bits", type=int, metavar="B", help="bits of the fixed-point multiplier M0")
+    p.add_argument("--tolerance-pp", type=float, metavar="PP", help="conversion loss within tolerance, in points")
     p.add_argument("--input-clip", action=argparse.BooleanOptionalAction, default=None,
                    help="clip count-frame inputs to the payload width 2^p - 1 (default: the recipe's, true)")
     p.add_argument("--accumulator-bits", type=int, metavar="B", help="declared accumulator width, 0 = unlimited")

@@ -28,7 +28,7 @@ from snnconvert.data.recordings import RecordingSet
 CACHE_FORMAT = "snnconvert-recordings"
 CACHE_VERSION = 1
 FRAMES_FORMAT = "snnconvert-frames"
-FRAMES_VERSION = 1
+FRAMES_VERSION = 2  # 2: burst windows from the integer front end (frontend.py)
 
 
 def cache_dir(section: dict, base: Path | None = None) -> Path:

@@ -217,7 +217,7 @@ def _empty_frames_advice(recs, lens: np.ndarray, fsec: dict, dsec: dict) -> str:
     pixel of the median frame as the largest threshold that keeps it; else frames.window / frames.pick.
     lens: events per frame window."""
     per_rec = np.diff(recs.offsets)
-    if np.median(per_rec) == 0:
+    if per_rec.size and np.median(per_rec) == 0:     # a folder knows its counts once its frames are made
         if dsec["source"] == "idx" and dsec["idx_mode"] == "binarize":
             key = f"lower data.binarize_level (now {dsec['binarize_level']})"
         elif dsec["source"] == "recordings":

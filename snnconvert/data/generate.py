@@ -152,3 +152,89 @@ def write_demo_recordings(folder, per_class: int = 3, seed: int = 0, sensor_side
     return files.atomic_write_text(folder / "index.csv", "\n".join(lines) + "\n")
 
 
+
+
+# --- long recordings: many stimuli in one stream ------------------------------------------------------------
+
+LABELS_HEADER = "start_us,end_us,label"
+
+
+def long_recording(streams, labels, span_us: int, gap_us: int, noise_hz: float, rng) -> tuple[EventStream, np.ndarray]:
+    """K recordings of one sensor (each starting at t = 0 and lasting span_us) placed one after another in
+    one stream, with gap_us of background noise before each stimulus and after the last:
+
+        stimulus i spans [o_i, o_i + span_us),  o_i = gap_us + i * (span_us + gap_us),
+        total length K * (span_us + gap_us) + gap_us.
+
+    The gaps get Poisson background noise of noise_hz per pixel (uniform times, pixels and polarity);
+    the recordings keep their own sensor noise. Returns (stream, stimuli (K, 3) int64 [start, end, label]).
+    """
+    if not streams:
+        raise ValueError("a long recording needs at least one stimulus")
+    w, h = streams[0].width, streams[0].height
+    parts, table = [], []
+    period = span_us + gap_us
+    npx = w * h
+    for i, (s, lab) in enumerate(zip(streams, labels)):
+        if (s.width, s.height) != (w, h):
+            raise ValueError("every stimulus must come from the same sensor")
+        o = gap_us + i * period
+        ev = s.events.copy()
+        ev["t"] += o
+        parts.append(ev)
+        table.append((o, o + span_us, int(lab)))
+    starts = np.r_[0, np.asarray([r[1] for r in table])]  # every gap: [end of the previous stimulus, next start)
+    for a in starts:
+        n = int(rng.poisson(noise_hz * npx * gap_us / 1e6)) if noise_hz > 0 else 0
+        ev = np.zeros(n, parts[0].dtype)
+        ev["t"] = a + rng.integers(0, gap_us, n)
+        pix = rng.integers(0, npx, n)
+        ev["x"], ev["y"] = pix % w, pix // w
+        ev["p"] = np.where(rng.random(n) < 0.5, 1, -1)
+        parts.append(ev)
+    events = np.concatenate(parts)
+    events = events[np.argsort(events["t"], kind="stable")]
+    return EventStream(events, w, h), np.asarray(table, np.int64).reshape(-1, 3)
+
+
+def write_labels(path, stimuli: np.ndarray) -> Path:
+    """The label file of a long recording: CSV `start_us,end_us,label`, one stimulus per line."""
+    lines = [LABELS_HEADER] + [f"{int(a)},{int(b)},{int(c)}" for a, b, c in np.asarray(stimuli).reshape(-1, 3)]
+    return files.atomic_write_text(path, "\n".join(lines) + "\n")
+
+
+def labels_path(recording) -> Path:
+    """Where write_long_recording puts the label file of a recording: <stem>.labels.csv beside it."""
+    p = Path(recording)
+    return p.with_name(p.stem + ".labels.csv")
+
+
+def write_long_recording(path, recipe: dict, count: int, seed: int = 0, gap_us: int = 200_000,
+                         noise_hz: float | None = None, progress: bool = True) -> dict:
+    """A long recording of `count` test-split stimuli of a recipe's data set, plus its label file.
+
+    The stimuli are recordings of the recipe's test split (the same events the network's test frames
+    come from), drawn without replacement with numpy.random.default_rng(seed), in the drawn order;
+    gaps and noise as in long_recording (noise_hz: default the recipe's [data] noise_hz). Writes the
+    stream to `path` (any event format) and the labels to labels_path(path).
+    Returns {"recording", "labels", "stimuli", "indices" (recording indices), "events", "duration_us"}.
+    """
+    from snnconvert.data.dataset import load_dataset
+    ds = load_dataset(recipe, progress=progress)
+    if ds.recordings is None or recipe["data"]["source"] == "folder":
+        raise ValueError("a long recording is made from simulated stimuli (data.source digits or idx)")
+    test = np.asarray(ds.split_index["test"])
+    if not 1 <= count <= test.size:
+        raise ValueError(f"count must lie in [1, {test.size}] (the test recordings); got {count}")
+    rng = np.random.default_rng(seed)
+    pick = rng.choice(test, size=count, replace=False)
+    sec = recipe["data"]
+    span = _sensor.duration_us(sec["stimulus"], _sensor.SensorConfig.from_section(sec))
+    streams = [ds.recordings[int(i)][0] for i in pick]
+    labels = [int(ds.recordings[int(i)][1]) for i in pick]
+    noise = float(sec["noise_hz"]) if noise_hz is None else float(noise_hz)
+    stream, stimuli = long_recording(streams, labels, span, gap_us, noise, rng)
+    write_events(stream, path)
+    lab = write_labels(labels_path(path), stimuli)
+    return {"recording": Path(path), "labels": lab, "stimuli": stimuli, "indices": pick, "events": len(stream),
+            "duration_us": int(stimuli[-1, 1]) + gap_us}

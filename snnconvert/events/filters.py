@@ -88,10 +88,10 @@ def background_activity(stream: EventStream, window_us: int) -> np.ndarray:
                 continue
             nx, ny = x + dx, y + dy
             inside = (nx >= 0) & (nx < w) & (ny >= 0) & (ny < h)
-            q = ny * w + nx
-            pos = np.searchsorted(keys, q * n + idx, side="left") - 1  # last key below (q, i)
+            nb = ny * w + nx
+            pos = np.searchsorted(keys, nb * n + idx, side="left") - 1  # last key below (nb, i)
             cand = keys[np.maximum(pos, 0)]
-            found = inside & (pos >= 0) & (cand // n == q)
+            found = inside & (pos >= 0) & (cand // n == nb)
             j = cand % n
             keep |= found & (t - t[j] <= window_us)
     return keep

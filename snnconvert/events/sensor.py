@@ -96,6 +96,13 @@ def simulate(image, stimulus: str = "flash", config: SensorConfig | None = None,
     return EventStream(ev, image.shape[1], image.shape[0])
 
 
+def duration_us(stimulus: str, config: SensorConfig) -> int:
+    """How long one recording of the stimulus lasts: flash delay + on + off; saccade segments x segment."""
+    if stimulus == "flash":
+        return config.flash_delay_us + config.flash_on_us + config.flash_off_us
+    return config.saccade_segments * config.saccade_segment_us
+
+
 def simulate_batch(images, stimulus: str = "flash", config: SensorConfig | None = None, rng=None,
                    progress: bool = True, pattern: tuple[np.ndarray, np.ndarray] | None = None
                    ) -> tuple[np.ndarray, np.ndarray]:
@@ -139,7 +146,7 @@ def _simulate_chunk(images, stimulus, config, rng, c_on, c_off):
 
     if stimulus == "flash":
         d, r, on = config.flash_delay_us, config.rise_us, config.flash_on_us
-        end = d + on + config.flash_off_us
+        end = duration_us("flash", config)
         black = np.full((n, npx), np.log(dark))
         shown = log_i(images)
         samples = [(0, black), (d, black), (d + r, shown), (d + on, shown), (d + on + r, black)]

@@ -21,9 +21,12 @@ Lanes past the last table word and the bits above L*b are 0. A table whose word 
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
-from snnconvert.export.memfile import fits, hex_digits, to_words
+from snnconvert.errors import FormatError
+from snnconvert.export.memfile import fits, from_words, hex_digits, to_words
 
 # Widest packed memory word accepted (a bound on the file size, not a format limit).
 MAX_PACK_BITS = 4096
@@ -96,3 +99,140 @@ def table_images(stem: str, values, spec: dict, header: list[str], pack_bits: in
     files = {f"{stem}.coe": format_coe(a, spec["bits"], spec["signed"], pack, header).encode(),
              f"{stem}.mif": format_mif(a, spec["bits"], spec["signed"], pack, header).encode()}
     return {"coe": f"{stem}.coe", "mif": f"{stem}.mif", "packing": pack}, files
+
+
+# --- reading the images back (verify) ----------------------------------------------------------
+_RADIX = {"HEX": 16, "BIN": 2, "OCT": 8, "DEC": 10, "UNS": 10}
+_COE_RADIX = (2, 10, 16)
+
+
+def unpack_words(words: list[int], lines: list[int], bits: int, signed: bool, pack: dict, depth: int,
+                 name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse of `pack_words`: v[m*lanes + j] = (memory_word[m] >> (j*bits)) mod 2^bits, sign-extended when
+    signed; returns (values (depth,), line of each value). Unused lanes and bits above lanes*bits must be 0
+    (LANE_ORDER): anything else is a FormatError naming the line."""
+    lanes, mask = pack["lanes"], (1 << bits) - 1
+    if len(words) != pack["depth"]:
+        raise FormatError(f"{name}: {len(words)} memory words, the manifest says {pack['depth']}")
+    vals, where = [], []
+    for m, (w, line) in enumerate(zip(words, lines)):
+        if w >> pack["word_bits"]:
+            raise FormatError(f"{name} line {line}: word {w:#x} is wider than {pack['word_bits']} bits")
+        used = min(lanes, depth - m * lanes)
+        if w >> (used * bits):
+            raise FormatError(f"{name} line {line}: bits above lane {used - 1} must be 0 ({LANE_ORDER})")
+        vals += [(w >> (j * bits)) & mask for j in range(used)]
+        where += [line] * used
+    return from_words(vals, bits, signed), np.asarray(where, dtype=np.int64)
+
+
+def _statements(text: str, comment: str, sep: str) -> list[tuple[str, list[tuple[str, int]]]]:
+    """`key = value ... ;` statements as (lowercase key, [(value token, 1-based line)]). Comments run from
+    `comment` to the end of the line; value tokens are separated by white space and `sep` characters."""
+    toks = []
+    for lineno, raw in enumerate(text.split("\n"), start=1):
+        code = raw.split(comment, 1)[0]
+        toks += [(m.group(0), lineno) for m in re.finditer(rf"[^\s;={re.escape(sep)}]+|=|;", code)]
+    out, i = [], 0
+    while i < len(toks):
+        if i + 1 >= len(toks) or toks[i + 1][0] != "=":
+            raise FormatError(f"line {toks[i][1]}: expected 'key = value;', found {toks[i][0]!r}")
+        key, values, i = toks[i][0].lower(), [], i + 2
+        while i < len(toks) and toks[i][0] != ";":
+            values.append(toks[i])
+            i += 1
+        if i == len(toks):
+            raise FormatError(f"line {toks[-1][1]}: the statement {key!r} is not ended by ';'")
+        out.append((key, values))
+        i += 1
+    return out
+
+
+def parse_coe(text: str, bits: int, signed: bool, pack: dict, depth: int,
+              name: str = ".coe file") -> tuple[np.ndarray, np.ndarray]:
+    """Read a .coe image (the syntax in the module docstring; radix 2, 10 or 16) back into `depth` table words.
+
+    Returns (values, line of each value). Errors name the file and line: a statement that is not
+    `key = value;`, a missing radix or vector, a token that is not a number in the radix, a word wider than
+    the memory word, nonzero unused lanes, the wrong number of words."""
+    try:
+        st = dict(_coe_statements(text))
+    except FormatError as exc:
+        raise FormatError(f"{name} {exc}") from None
+    if "memory_initialization_radix" not in st or "memory_initialization_vector" not in st:
+        raise FormatError(f"{name}: needs memory_initialization_radix= and memory_initialization_vector=")
+    rtok, rline = (st["memory_initialization_radix"] or [("", 0)])[0]
+    if rtok not in ("2", "10", "16") or len(st["memory_initialization_radix"]) != 1:
+        raise FormatError(f"{name} line {rline}: radix {rtok!r} (supported: 2, 10, 16)")
+    radix, words, lines = int(rtok), [], []
+    for tok, line in st["memory_initialization_vector"]:
+        try:
+            words.append(int(tok, radix))
+        except ValueError:
+            raise FormatError(f"{name} line {line}: {tok!r} is not a radix-{radix} word") from None
+        lines.append(line)
+    return unpack_words(words, lines, bits, signed, pack, depth, name)
+
+
+def _coe_statements(text: str):
+    """.coe comments are whole lines that start with ';' (the statement end is ';' too)."""
+    lines = ["" if line.lstrip().startswith(";") else line for line in text.split("\n")]
+    return _statements("\n".join(lines), "\x00", ",")
+
+
+def parse_mif(text: str, bits: int, signed: bool, pack: dict, depth: int,
+              name: str = ".mif file") -> tuple[np.ndarray, np.ndarray]:
+    """Read a .mif image (the syntax in the module docstring, plus `[a..b] : data;` runs and `% ... %`
+    comments) back into `depth` table words. Returns (values, line of each value).
+
+    The header must state DEPTH = the packed depth and WIDTH = the memory word; every address from 0 to
+    DEPTH-1 must be given exactly once. Errors name the file and line."""
+    text = re.sub(r"%.*?%", lambda m: "\n" * m.group(0).count("\n"), text, flags=re.S)
+    lines = [line.split("--", 1)[0] for line in text.split("\n")]
+    begin = next((k for k, line in enumerate(lines) if re.search(r"\bCONTENT\s+BEGIN\b", line, re.I)), None)
+    if begin is None:
+        raise FormatError(f"{name}: no CONTENT BEGIN")
+    try:
+        head = {k.upper(): v for k, v in _statements("\n".join(lines[:begin]), "\x00", "")}
+    except FormatError as exc:
+        raise FormatError(f"{name} {exc}") from None
+    opts = {}
+    for key in ("DEPTH", "WIDTH", "ADDRESS_RADIX", "DATA_RADIX"):
+        if len(head.get(key, [])) != 1:
+            raise FormatError(f"{name}: the header needs '{key} = ...;'")
+        opts[key] = head[key][0]
+    ar, dr = (_RADIX.get(opts[k][0].upper()) for k in ("ADDRESS_RADIX", "DATA_RADIX"))
+    if ar is None or dr is None:
+        raise FormatError(f"{name}: radix must be one of {', '.join(_RADIX)}")
+    for key, want in (("DEPTH", pack["depth"]), ("WIDTH", pack["word_bits"])):
+        if opts[key][0] != str(want):
+            raise FormatError(f"{name} line {opts[key][1]}: {key} = {opts[key][0]}, the manifest says {want}")
+    words, where = [None] * pack["depth"], [0] * pack["depth"]
+    end = False
+    for lineno, line in enumerate(lines[begin + 1:], start=begin + 2):
+        for m in re.finditer(r"\S[^;]*;", line):
+            item = m.group(0)[:-1].strip()
+            if re.fullmatch(r"END", item, re.I):
+                end = True
+                break
+            addr, sep, data = item.partition(":")
+            try:
+                lo, _, hi = addr.strip().strip("[]").partition("..")
+                lo = int(lo, ar)
+                hi = int(hi, ar) if hi else lo
+                value = int(data.strip(), dr)
+            except ValueError:
+                raise FormatError(f"{name} line {lineno}: expected 'address : data;', found {item!r}") from None
+            if not sep or hi < lo or hi >= pack["depth"]:
+                raise FormatError(f"{name} line {lineno}: address {addr.strip()} is outside 0..{pack['depth'] - 1}")
+            for a in range(lo, hi + 1):
+                if words[a] is not None:
+                    raise FormatError(f"{name} line {lineno}: address {a} was already given on line {where[a]}")
+                words[a], where[a] = value, lineno
+        if end:
+            break
+    if not end:
+        raise FormatError(f"{name}: no END;")
+    if None in words:
+        raise FormatError(f"{name}: address {words.index(None)} is not given")
+    return unpack_words(words, where, bits, signed, pack, depth, name)

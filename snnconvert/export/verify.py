@@ -20,6 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int, check_shape, check_str, fail
+from snnconvert.export import fpga
 from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
 from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_intel_hex, parse_mem
@@ -177,6 +178,15 @@ def _check_tables(ck: _Checker, man: dict) -> dict:
                 hv, hl = parse_intel_hex(ck.text(spec["intel_hex"]), spec["bits"], spec["signed"],
                                          spec["depth"], name=str(ck.folder / spec["intel_hex"]))
                 copies.append((spec["intel_hex"], hv, hl))
+            if spec.get("coe") or spec.get("mif"):
+                pack = _packing_spec(spec, f"layers[{i}].tables.{kind}.packing", str(ck.folder / MANIFEST))
+                for key, parse in (("coe", fpga.parse_coe), ("mif", fpga.parse_mif)):
+                    if spec.get(key):
+                        rel = check_str(spec[key], f"layers[{i}].tables.{kind}.{key}", str(ck.folder / MANIFEST),
+                                        "field", FormatError)
+                        v, lv = parse(ck.text(rel), spec["bits"], spec["signed"], pack, spec["depth"],
+                                      name=str(ck.folder / rel))
+                        copies.append((rel, v, lv))
             if kind in ("bias", "m0", "shift"):
                 copies.append((MANIFEST, np.asarray(d[kind], dtype=np.int64).reshape(-1), None))
             _compare_copies(ck, d["id"], spec, copies)
@@ -200,6 +210,19 @@ def _table_spec(ck: _Checker, spec, field: str) -> dict:
     if int(np.prod(spec["shape"])) != spec["depth"]:
         fail(f"{field}.shape", owner, f"a shape of {spec['depth']} words (its depth)", repr(spec["shape"]), "field", E)
     return spec
+
+
+def _packing_spec(spec: dict, field: str, owner: str) -> dict:
+    """The `packing` of a table's block-RAM images: lanes of `bits` in a memory word (export.fpga)."""
+    p = spec.get("packing")
+    if not isinstance(p, dict):
+        fail(field, owner, "an object", repr(p), "field", FormatError)
+    word_bits = check_int(p.get("word_bits"), f"{field}.word_bits", owner, spec["bits"], fpga.MAX_PACK_BITS,
+                          "field", FormatError)
+    lanes = check_int(p.get("lanes"), f"{field}.lanes", owner, 1, word_bits // spec["bits"], "field", FormatError)
+    want = -(-spec["depth"] // lanes)
+    depth = check_int(p.get("depth"), f"{field}.depth", owner, want, want, "field", FormatError)
+    return {"word_bits": word_bits, "lanes": lanes, "depth": depth}
 
 
 def _bounded_depth(ck: _Checker, spec: dict, rel, field: str) -> None:

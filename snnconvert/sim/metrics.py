@@ -138,9 +138,8 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
             frame_pred = np.concatenate([float_model(torch.from_numpy(X[s:s + 1024])).argmax(1).numpy()
                                          for s in range(0, len(X), 1024)])
         out["frame_accuracy"] = float((frame_pred == y).mean())
-    quant_pred = arith.argmax_first(simulate(net, x_int, record=False, limit=False).potentials)
-    res = simulate(net, x_int, record=True)
-    spike_pred = res.decisions
+    res = _simulate_in_chunks(net, x_int, hardware)
+    quant_pred, spike_pred = res.quant_pred, res.decisions
     out["quantized_accuracy"] = float((quant_pred == y).mean())
     out["spike_accuracy"] = float((spike_pred == y).mean())
     n = len(y)
@@ -169,15 +168,8 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     out["spikes_per_layer"] = {"input": float(res.input_spikes.mean()),
                                **{n: float(c) for n, c in zip(names, per_layer) if not n.startswith("sumpool")}}
     # one value per neuron and window, checked to lie in 0..Q by the simulator: at most one spike
-    out["max_spikes_per_neuron"] = int(max([int((res.input_payloads > 0).any())] +
-                                           [int((p > 0).any()) for p, L in zip(res.payloads, net.layers)
-                                            if L.kind != "sumpool"]))
-    fan = Tables(net).fanout
-    sops = (res.input_payloads.reshape(len(X), -1) > 0) @ fan[0]
-    for i, (p, L) in enumerate(zip(res.payloads, net.layers)):
-        if L.kind != "sumpool" and not L.is_output:
-            sops = sops + (p.reshape(len(X), -1) > 0) @ fan[i + 1]
-    out["sops_per_sample"] = float(sops.mean())
+    out["max_spikes_per_neuron"] = int(res.any_spike)
+    out["sops_per_sample"] = float(res.sops.mean())
     out["macs_per_sample"] = int(macs(net))
     out["sops_per_mac"] = out["sops_per_sample"] / out["macs_per_sample"]
     out["accumulator_bits"] = {L.name: int(L.acc_bits) for L in net.layers if L.weight is not None}
@@ -194,8 +186,7 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     out["energy"] = energy(net, out["sops_per_sample"], out["macs_per_sample"])
     out["energy_is_estimate"] = True
     from snnconvert import cost
-    events = [res.input_payloads.reshape(len(X), -1) > 0] + [p.reshape(len(X), -1) > 0 for p in res.payloads]
-    out["hardware_estimate"] = cost.estimate(net, events, fan, hardware)
+    out["hardware_estimate"] = res.tally.estimate()
     out["hardware_summary"] = cost.summary(out["hardware_estimate"])
     from sklearn.metrics import confusion_matrix
     out["confusion"] = confusion_matrix(y, spike_pred, labels=list(range(net.n_classes))).tolist()
@@ -205,6 +196,43 @@ def measure(float_model, net: IntNetwork, X_test, y_test, tolerance_pp: float = 
     if not quiet:
         console.echo(format_table(out))
     return out
+
+
+def _simulate_in_chunks(net: IntNetwork, x_int: np.ndarray, hardware):
+    """Simulate the test set a chunk of samples at a time and keep only per-sample figures: decisions,
+    spike counts, SOPs, |V| maxima, overflows, ttfs steps, and the cost model's event tally. Memory is
+    bounded by one chunk's events however large the test set (a 28x28 network's events of 12,000
+    samples would take gigabytes)."""
+    from types import SimpleNamespace
+
+    from snnconvert import cost
+    from snnconvert.sim.vectorized import batch_size
+    fan = Tables(net).fanout
+    tally = cost.EventTally(net, fan, hardware)
+    keep = ("decisions", "early_decisions", "first_spike_step", "spike_counts", "input_spikes", "max_abs_v",
+            "overflows")
+    parts: dict[str, list] = {k: [] for k in (*keep, "quant_pred", "sops")}
+    any_spike = False
+    chunk = batch_size(net)
+    for s0 in range(0, len(x_int), chunk):
+        xs = x_int[s0:s0 + chunk]                                                       # (m, C, H, W)
+        m = len(xs)
+        parts["quant_pred"].append(arith.argmax_first(simulate(net, xs, record=False, limit=False).potentials))
+        r = simulate(net, xs, record=True)
+        for k in keep:
+            parts[k].append(getattr(r, k))
+        events = [r.input_payloads.reshape(m, -1) > 0] + [p.reshape(m, -1) > 0 for p in r.payloads]  # (m, units)
+        any_spike |= bool(events[0].any()) or any(bool(ev.any()) for ev, L in zip(events[1:], net.layers)
+                                                  if L.kind != "sumpool")
+        sops = events[0] @ fan[0]
+        for i, L in enumerate(net.layers):
+            if L.kind != "sumpool" and not L.is_output:
+                sops = sops + events[i + 1] @ fan[i + 1]
+        parts["sops"].append(sops)
+        tally.add(events)
+    res = SimpleNamespace(**{k: np.concatenate(v) for k, v in parts.items()})
+    res.any_spike, res.tally = any_spike, tally
+    return res
 
 
 def energy(net: IntNetwork, sops: float, n_macs: int) -> dict:

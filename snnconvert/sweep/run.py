@@ -149,7 +149,8 @@ def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, poi
         source = load_inputs(source, progress=progress)
     if settings.seeds and settings.seeds != [int(source.recipe.get("seed", 0))]:
         return _run_seeds(source, settings, out_dir, executor, point_fn, progress)
-    model, ckpt, dataset, recipe = source.model, source.checkpoint, source.dataset, source.recipe
+    model, ckpt, recipe = source.model, source.checkpoint, source.recipe
+    dataset = test_subset(source.dataset, settings.test_samples)
     if settings.aware and ckpt.get("aware"):
         raise UsageError(f"{source.train_dir} holds a conversion-aware checkpoint; an aware sweep fine-tunes each "
                          "point from a float checkpoint: pass the float model's training folder")
@@ -169,6 +170,26 @@ def _run_sweep(source, settings: SweepSettings, out_dir, executor: Executor, poi
     result.seconds = {"load": round(t1 - t0, 3), "points": round(t2 - t1, 3),
                       "outputs": round(time.perf_counter() - t2, 3)}
     return result
+
+
+def test_subset(dataset, n: int):
+    """The data set with n evenly spaced test samples (the calibration-subset rule: deterministic, every
+    class kept in proportion on a shuffled split); n = 0 or n >= the split keeps it whole. The subset's
+    fingerprint names its size, so results of another size are never reused."""
+    import copy
+    import dataclasses
+
+    from snnconvert.convert.calibrate import calibration_subset
+    X, y = dataset.test
+    if n == 0 or n >= len(y):
+        return dataset
+    idx = calibration_subset(len(y), n)
+    test, fp = (X[idx], y[idx]), f"{dataset.fingerprint}-test{len(idx)}"
+    if dataclasses.is_dataclass(dataset):
+        return dataclasses.replace(dataset, test=test, fingerprint=fp)
+    sub = copy.copy(dataset)
+    sub.test, sub.fingerprint = test, fp
+    return sub
 
 
 def _out_dir(source: Inputs, out_dir) -> Path:

@@ -1,0 +1,371 @@
+"""The front end in integer arithmetic: rate counter -> windows -> subsample -> threshold-and-gate.
+
+This module is the one definition of what the network sees. Training frames (frames.py, data/),
+`snnconvert classify` and the hardware reference all call it; it needs numpy alone (no torch).
+Every quantity is an integer; where a recipe gives a float (upper, lower), `FrontEnd.from_section`
+turns it into integers once, exactly (fractions.Fraction), with the rounding rule stated there.
+
+Rate counter (fixed bins, no sliding)
+    t0 = the time the counter starts (default: the first event). Bin k holds the events with
+        t0 + k*bin_us <= t < t0 + (k+1)*bin_us,             c_k = #events in bin k, k = 0 .. n-1,
+    n = (t_last - t0) // bin_us + 1: the last bin is the one holding the last event.
+    Integer thresholds per bin, absolute (relative = false):
+        hi_k = upper_count,  lo_k = lower_count             (counts per bin, constants)
+    relative (relative = true), against a causal background count: the sum of the counts of the
+    last B = background_bins closed bins before bin k (bins in which no window was open; bins
+    before t0 count 0; the current bin is not part of it). In hardware: a B-deep FIFO of bin
+    counts and its running sum, pushed at the end of every bin that ends closed, so the
+    background freezes while a window is open and a burst never raises its own threshold:
+        S_k  = max(sum of the last B closed-bin counts,  B)  (floor: one event per bin)
+        hi_k = floor(U * S_k / (16 * B)) + 1                (the smallest count above upper x background)
+        lo_k = ceil(L * S_k / (16 * B))                     (the smallest count at lower x background)
+    U = upper_16, L = lower_16: upper and lower in sixteenths. Compare form without division:
+    c_k >= hi_k  <=>  16*B*c_k > U*S_k;  c_k >= lo_k  <=>  16*B*c_k >= L*S_k. In both modes
+    lo_k = min(lo_k, hi_k) (a lower above the upper acts as the upper).
+    The background is a running count over a stated past (B closed bins), never a statistic of
+    the whole recording (a median or percentile), which hardware cannot know in advance.
+    A bin that closes a window (c_k < lo_k) is a closed bin and enters the background.
+    Near-zero background: the floor S_k >= B makes
+    the thresholds absolute, hi = floor(U/16) + 1 and lo = ceil(L/16) (9 and 2 events per bin at
+    upper = 8, lower = 2): a silent sensor keeps finite thresholds and one noise event opens nothing.
+
+Hysteresis (one state bit)
+    closed, c_k >= hi_k  -> open at bin k            open, c_k >= lo_k -> stays open
+    open,   c_k <  lo_k  -> closes: window = bins [open bin, k)
+    First bin: the counter starts closed with S_0 = B (the floor), so a window can open at bin 0.
+    Last bin: a window still open at bin n-1 closes there: window = bins [open bin, n).
+    Merge, then minimum duration (both in bins): windows separated by fewer than merge_bins
+    closed bins are merged (merge_bins = 0 or 1: no merging, since a gap holds at least one bin);
+    merged windows shorter than min_bins bins are dropped. A window [a, b) in bins spans the times
+    [t0 + a*bin_us, t0 + b*bin_us) (half-open, like every window of the tool).
+
+Subsample (sensor -> grid), the rule of frames.bin_events
+    grid row i = y * size // height,  grid column j = x * size // width   (floor division)
+    Uneven sizes: when a sensor side is not a multiple of size, grid pixels gather floor(side/size)
+    or ceil(side/size) sensor pixels, spread evenly; no sensor pixel is dropped or counted twice.
+    Channel: 0, or in polarity mode 0 for ON (p > 0) and 1 for OFF (p < 0).
+
+Threshold and gate (one input event per grid pixel and window)
+    binary    the pixel emits at the time of its `threshold`-th event in the window, payload 1;
+              later events of that pixel are dropped. Emission order: time, then arrival order.
+    count,    the pixel's count n is only known at window close: every pixel with n >= 1 emits at
+    polarity  the window end t1 with payload min(n, max_count) (p = bit_length(max_count) bits);
+              emission order: by address (channel, row, column), the order the payload-coded
+              network reads its inputs at window close.
+    Either way frame(gate(...)) is exactly the frame the network is trained on:
+    binary (n >= threshold), count/polarity min(n, max_count) (`pixel_values`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+
+import numpy as np
+
+from snnconvert.errors import UsageError, check_bool, check_choice, check_int
+
+MODES = ("binary", "count", "polarity")
+FRACTION_BITS = 4  # upper and lower are held in sixteenths in relative mode
+SCALE = 1 << FRACTION_BITS
+GATED_DTYPE = np.dtype([("t", "<i8"), ("x", "<u2"), ("y", "<u2"), ("c", "u1"), ("payload", "<u2")])
+OWNER = "the front end"
+
+
+def _half_up(v: Fraction) -> int:
+    """round(v) with halves up, exact (v >= 0)."""
+    return math.floor(v + Fraction(1, 2))
+
+
+@dataclass(frozen=True)
+class FrontEnd:
+    """The front end's integer parameters (see the module docstring for each rule).
+
+    bin_us, background_bins (B), min_bins, merge_bins: rate counter; relative: thresholds against
+    the background; upper_16, lower_16: the relative thresholds in sixteenths; upper_count,
+    lower_count: the absolute thresholds in events per bin; width, height: the sensor; size: grid
+    side; mode, threshold, max_count: the payload rule of the input layer.
+    """
+
+    bin_us: int
+    relative: bool
+    upper_16: int
+    lower_16: int
+    upper_count: int
+    lower_count: int
+    background_bins: int
+    min_bins: int
+    merge_bins: int
+    width: int
+    height: int
+    size: int
+    mode: str
+    threshold: int
+    max_count: int
+
+    def __post_init__(self):
+        for name, lo, hi in (("bin_us", 1, None), ("upper_16", 0, None), ("lower_16", 0, None),
+                             ("upper_count", 1, None), ("lower_count", 0, None), ("background_bins", 1, 1 << 20),
+                             ("min_bins", 0, None), ("merge_bins", 0, None), ("width", 1, 65536),
+                             ("height", 1, 65536), ("size", 1, 1024), ("threshold", 1, None),
+                             ("max_count", 1, 255)):
+            check_int(getattr(self, name), name, OWNER, lo, hi)
+        check_bool(self.relative, "relative", OWNER)
+        check_choice(self.mode, "mode", OWNER, MODES)
+
+    @classmethod
+    def from_section(cls, section: dict, width: int, height: int) -> FrontEnd:
+        """The integers of a resolved [frames] section for a width x height sensor. Exact conversions:
+
+            upper_16 = round(16 * upper), lower_16 = round(16 * lower)          (halves up)
+            upper_count = floor(upper * bin_us / 1e6) + 1   (events/s -> the smallest count above it)
+            lower_count = ceil(lower * bin_us / 1e6)        (events/s -> the smallest count at it)
+            min_bins = ceil(min_duration_us / bin_us),  merge_bins = ceil(merge_gap_us / bin_us)
+        """
+        b = int(section["bin_us"])
+        up, low = Fraction(section["upper"]), Fraction(section["lower"])
+        per_bin = Fraction(b, 1_000_000)
+        return cls(bin_us=b, relative=bool(section["relative"]), upper_16=_half_up(up * SCALE),
+                   lower_16=_half_up(low * SCALE), upper_count=math.floor(up * per_bin) + 1,
+                   lower_count=math.ceil(low * per_bin), background_bins=int(section["background_bins"]),
+                   min_bins=-(-int(section["min_duration_us"]) // b), merge_bins=-(-int(section["merge_gap_us"]) // b),
+                   width=int(width), height=int(height), size=int(section["size"]), mode=section["mode"],
+                   threshold=int(section["threshold"]), max_count=int(section["max_count"]))
+
+    @property
+    def channels(self) -> int:
+        return 2 if self.mode == "polarity" else 1
+
+    @property
+    def payload_max(self) -> int:
+        """q, the largest payload: 1 for binary, max_count otherwise."""
+        return 1 if self.mode == "binary" else self.max_count
+
+
+# --- rate counter and windows -----------------------------------------------------------------
+
+
+def _times(t) -> np.ndarray:
+    t = np.asarray(t)
+    if t.ndim != 1 or (t.size and t.dtype.kind not in "iu"):
+        raise UsageError(f"event times must be a 1-D integer array; got shape {t.shape}, dtype {t.dtype}")
+    t = t.astype(np.int64, copy=False)
+    if t.size > 1 and np.any(t[1:] < t[:-1]):
+        raise UsageError("event times must be sorted (non-decreasing)")
+    return t
+
+
+def rate_counts(t, params: FrontEnd, t0: int | None = None) -> tuple[int, np.ndarray]:
+    """(t0, c): c_k = #{t0 + k*bin_us <= t < t0 + (k+1)*bin_us}, k = 0 .. n-1, n = (t_last - t0)//bin_us + 1.
+
+    t: sorted integer times (us). t0 defaults to the first event; events before t0 are not counted.
+    No event (at or after t0): c is empty. Cost: one binary search per bin edge (O(n log E)).
+    """
+    t = _times(t)
+    if not t.size:
+        return (0 if t0 is None else int(t0)), np.zeros(0, np.int64)
+    t0 = int(t[0]) if t0 is None else int(t0)
+    last = int(t[-1])
+    if last < t0:
+        return t0, np.zeros(0, np.int64)
+    n = (last - t0) // params.bin_us + 1
+    edges = t0 + np.arange(n + 1, dtype=np.int64) * params.bin_us
+    return t0, np.diff(np.searchsorted(t, edges, side="left")).astype(np.int64)
+
+
+def scan(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The counter bin by bin: (hi_k, lo_k, open_k), int64, int64, bool per bin (module docstring).
+
+    open_k: a window is open during bin k (it opened at or before k and did not close at k).
+    Relative thresholds follow the background of closed bins (a FIFO of the last B of them);
+    absolute ones are constants. lo_k <= hi_k always. One pass over the bins in Python integers.
+    """
+    c = np.asarray(counts, np.int64)
+    n = c.size
+    if not params.relative:
+        hi_c = params.upper_count
+        lo_c = min(params.lower_count, hi_c)
+        is_open = np.zeros(n, bool)
+        state = False
+        for k, v in enumerate(c.tolist()):
+            state = v >= lo_c if state else v >= hi_c
+            is_open[k] = state
+        return np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64), is_open
+    b = params.background_bins
+    u, low, den = params.upper_16, params.lower_16, SCALE * b
+    fifo = [0] * b  # the last B closed-bin counts (ring buffer), all 0 before t0
+    pos = total = 0
+    hi, lo, is_open = [0] * n, [0] * n, [False] * n
+    state = False
+    for k, v in enumerate(c.tolist()):
+        s = max(b, total)
+        h = u * s // den + 1
+        lw = -(-low * s // den)
+        lw = min(lw, h)
+        hi[k], lo[k] = h, lw
+        state = v >= lw if state else v >= h
+        if state:
+            is_open[k] = True
+        else:  # a closed bin enters the background
+            total += v - fifo[pos]
+            fifo[pos] = v
+            pos = pos + 1 if pos + 1 < b else 0
+    return np.asarray(hi, np.int64), np.asarray(lo, np.int64), np.asarray(is_open, bool)
+
+
+def bin_thresholds(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(hi_k, lo_k) int64 per bin: the opening and closing counts of `scan`."""
+    hi, lo, _ = scan(counts, params)
+    return hi, lo
+
+
+def _runs(is_open: np.ndarray) -> np.ndarray:
+    """(K, 2) [first, end) of each run of True."""
+    edges = np.diff(np.r_[0, is_open.astype(np.int8), 0])
+    return np.stack([np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)], axis=1)
+
+
+def window_bins(counts, params: FrontEnd) -> np.ndarray:
+    """Windows in bins: (K, 2) int64 [open bin, close bin), after hysteresis (`scan`), merge and
+    minimum duration (module docstring). A window open at the last bin closes with it."""
+    return _merge(_runs(scan(counts, params)[2]), params)
+
+
+def _merge(raw: np.ndarray, params: FrontEnd) -> np.ndarray:
+    merged: list[list[int]] = []
+    for a, b in raw.tolist():
+        if merged and a - merged[-1][1] < params.merge_bins:
+            merged[-1][1] = b
+        else:
+            merged.append([a, b])
+    out = np.asarray(merged, np.int64).reshape(-1, 2)
+    return out[out[:, 1] - out[:, 0] >= params.min_bins]
+
+
+def trace(t, params: FrontEnd, t0: int | None = None) -> dict:
+    """Everything the counter sees, for plots and reports: {"t0", "bin_us", "counts", "upper", "lower"
+    (hi_k, lo_k per bin), "windows" ((K, 2) in us)}."""
+    t0, c = rate_counts(t, params, t0)
+    hi, lo, is_open = scan(c, params)
+    return {"t0": t0, "bin_us": params.bin_us, "counts": c, "upper": hi, "lower": lo,
+            "windows": t0 + _merge(_runs(is_open), params) * params.bin_us}
+
+
+def windows(t, params: FrontEnd, t0: int | None = None) -> np.ndarray:
+    """(K, 2) int64 window boundaries in us, [t0 + a*bin_us, t0 + b*bin_us) for each window [a, b) in
+    bins (`window_bins`); t0 as in `rate_counts`. No event: no window."""
+    t0, c = rate_counts(t, params, t0)
+    return t0 + window_bins(c, params) * params.bin_us
+
+
+# --- subsample, threshold and gate ------------------------------------------------------------
+
+
+def grid_address(x, y, p, width: int, height: int, size: int, polarity: bool) -> np.ndarray:
+    """Flat grid address (c*size + i)*size + j, int64, with i = y*size//height, j = x*size//width
+    (floor division, by lookup tables) and c = 1 for OFF (p < 0) when `polarity`, else 0.
+    Addresses must lie on the width x height sensor (refused otherwise)."""
+    x = np.asarray(x)
+    y = np.asarray(y)
+    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
+        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size  # row offset per sensor row
+    lut_x = np.arange(width, dtype=np.int64) * size // width
+    idx = lut_y[y] + lut_x[x]
+    if polarity:
+        idx += (np.asarray(p) < 0) * (size * size)
+    return idx
+
+
+def payload(counts, mode: str, threshold: int, max_count: int) -> np.ndarray:
+    """The payload of a pixel that saw n = `counts` events in a window (0: no event), int64:
+    binary (n >= threshold), count/polarity min(n, max_count)."""
+    n = np.asarray(counts, np.int64)
+    if mode == "binary":
+        return (n >= threshold).astype(np.int64)
+    return np.minimum(n, max_count)
+
+
+def subsample(x, y, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(grid column j, grid row i) int64: j = x * size // width, i = y * size // height (floor)."""
+    idx = grid_address(x, y, None, params.width, params.height, params.size, False)
+    return idx % params.size, idx // params.size
+
+
+def pixel_index(x, y, p, params: FrontEnd) -> np.ndarray:
+    """Flat grid address (c*size + i)*size + j of each event (`grid_address` with the params)."""
+    return grid_address(x, y, p, params.width, params.height, params.size, params.channels == 2)
+
+
+def pixel_values(counts, params: FrontEnd) -> np.ndarray:
+    """`payload` with the params: binary (n >= threshold), count/polarity min(n, max_count)."""
+    return payload(counts, params.mode, params.threshold, params.max_count)
+
+
+@dataclass(frozen=True)
+class Columns:
+    """Contiguous t, x, y, p arrays of an event stream: a structured array's fields are strided views,
+    and a binary search on a strided view copies it, so a long stream gated window by window is
+    split into columns once (`columns`)."""
+
+    t: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    p: np.ndarray
+
+
+def columns(events) -> Columns:
+    """The Columns of an EventStream, a structured event array or Columns (returned as is)."""
+    if isinstance(events, Columns):
+        return events
+    t, x, y, p = (events.t, events.x, events.y, events.p) if hasattr(events, "x") else \
+        (np.asarray(events)[k] for k in ("t", "x", "y", "p"))
+    return Columns(*(np.ascontiguousarray(v) for v in (t, x, y, p)))
+
+
+def gate(events, window, params: FrontEnd) -> np.ndarray:
+    """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
+    payload), in emission order (module docstring). events: an EventStream, an array with fields
+    t, x, y, p, or their `columns` (fastest for many windows of one long stream), time-ordered;
+    window: (t_start, t_end), holding t_start <= t < t_end."""
+    t, x, y, p = (events.t, events.x, events.y, events.p) if isinstance(events, Columns) else \
+        (np.asarray(getattr(events, "events", events))[k] for k in ("t", "x", "y", "p"))
+    t1, t2 = int(window[0]), int(window[1])
+    a, b = np.searchsorted(t, [t1, t2], side="left")  # cost O(log E): only the window's events are touched
+    tw = _times(t[a:b])  # checked sorted within the window
+    idx = pixel_index(x[a:b], y[a:b], p[a:b], params)  # (E,) grid address per window event
+    plane = params.size * params.size
+    if params.mode == "binary":
+        key = idx.astype(np.uint16) if params.channels * plane <= 1 << 16 else idx  # 16 bits: a radix sort
+        order = np.argsort(key, kind="stable")  # events grouped by pixel, in time order within a pixel
+        grouped = idx[order]
+        start = np.searchsorted(grouped, grouped, side="left")  # first position of each event's pixel
+        rank = np.arange(grouped.size) - start  # 0-based count of earlier events of the same pixel
+        emit = np.sort(order[rank == params.threshold - 1])  # the threshold-th event of each pixel, time order
+        addr, times, payload = idx[emit], tw[emit], np.ones(emit.size, np.int64)
+    else:
+        n = np.bincount(idx, minlength=params.channels * plane)
+        addr = np.flatnonzero(n)
+        times = np.full(addr.size, t2, np.int64)
+        payload = pixel_values(n[addr], params)
+    out = np.zeros(addr.size, GATED_DTYPE)
+    out["t"] = times
+    out["c"] = addr // plane
+    out["y"] = addr % plane // params.size
+    out["x"] = addr % params.size
+    out["payload"] = payload
+    return out
+
+
+def frame(gated, params: FrontEnd) -> np.ndarray:
+    """(C, size, size) int64 frame of one window's gated events: frame[c, y, x] = payload.
+
+    Equals pixel_values of the window's counts (the training frame). A pixel given twice is refused."""
+    g = np.asarray(gated)
+    out = np.zeros((params.channels, params.size, params.size), np.int64)
+    flat = (g["c"].astype(np.int64) * params.size + g["y"]) * params.size + g["x"]
+    if np.unique(flat).size != flat.size:
+        raise UsageError("gated events must hold at most one event per grid pixel")
+    out.reshape(-1)[flat] = g["payload"]
+    return out
