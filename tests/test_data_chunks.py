@@ -144,3 +144,13 @@ def test_in_memory_set_is_checked_once_per_set(t, x, match):
     else:
         with pytest.raises(UsageError, match=match):
             Rec.recording_frames(recs, sec, progress=False)
+
+
+def test_front_end_is_built_once_per_section_and_sensor():
+    from snnconvert import frontend
+    sec = R.load(RECIPES / "saccade_recordings.toml")["frames"]
+    a = frames._front_end(sec, 34, 34)
+    assert a is frames._front_end(dict(sec), 34, 34) and a == frontend.FrontEnd.from_section(sec, 34, 34)
+    assert frames._front_end(sec, 32, 34) != a  # another sensor: another front end
+    # a section with an unhashable value is converted each time, to the same front end
+    assert frames._front_end({**sec, "note": ["x"]}, 34, 34) == a
