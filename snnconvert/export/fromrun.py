@@ -69,10 +69,7 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
             for k, v in (("coe_mif", coe_mif), ("pack_bits", pack_bits), ("verilog", verilog))}
     n_fe = settings.frontend_vectors if frontend_vectors is None else check_int(
         frontend_vectors, "frontend_vectors", "export", 0)
-    if n_fe and recipe is not None and frontend_events is None and dataset is None:
-        from snnconvert import data
-        dataset = data.load_dataset(recipe, progress=progress)
-    fe = frontend_source(net, recipe, n_fe, frontend_events, dataset)
+    fe, dataset = frontend_source(net, recipe, n_fe, frontend_events, dataset, progress)
     if inputs is not None:
         x, y = load_inputs(inputs, net)
     elif recipe is None:
@@ -84,8 +81,8 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
                           c_model=c_model, frontend=fe, **opts)
 
 
-def frontend_source(net: IntNetwork, recipe: dict | None, count: int, events=None, dataset=None):
-    """The streams of the front-end vectors (frontvec.FrontEndSource), or None (count 0, no events file).
+def frontend_source(net: IntNetwork, recipe: dict | None, count: int, events=None, dataset=None, progress=True):
+    """(frontvec.FrontEndSource or None (count 0, no events file), the data set (loaded here when needed)).
 
     events: one events file (read like `snnconvert classify` reads a recording); else `count` recordings of
     the test split of `dataset`, picked round-robin over the classes (vectors.pick_samples); index = the
@@ -94,21 +91,24 @@ def frontend_source(net: IntNetwork, recipe: dict | None, count: int, events=Non
     from snnconvert.export.vectors import pick_samples
     from snnconvert.frontend import FrontEnd
     if not count and events is None:
-        return None
+        return None, dataset
     if recipe is None:
         raise UsageError("front-end vectors need the recipe's [frames] section; the network folder holds no recipe.toml")
     fr = recipe["frames"]
     if fr["window"] != "burst":
         raise UsageError(f"front-end vectors need frames.window = \"burst\" (the front end's windows); the recipe "
                          f"has {fr['window']!r}")
+    check_network(FrontEnd.from_section(fr, 1, 1), net.input_shape, net.input_q)   # before any data is read
     if events is not None:
         from snnconvert.events import read_events
         side = int(recipe["data"]["sensor_side"])
         stream = read_events(events, default_sensor=(side, side), time_unit=recipe["data"]["time_unit"])
         params = FrontEnd.from_section(fr, stream.width, stream.height)
-        check_network(params, net.input_shape, net.input_q)
         return FrontEndSource(params, [stream], np.zeros(1, np.int64), np.full(1, -1, np.int64),
-                              f"events file {Path(events).name}")
+                              f"events file {Path(events).name}"), dataset
+    if dataset is None:
+        from snnconvert import data
+        dataset = data.load_dataset(recipe, progress=progress)
     recs = dataset.recordings
     if recs is None:
         raise UsageError("front-end vectors need the data set's recordings (or --frontend-events FILE)")
@@ -116,9 +116,8 @@ def frontend_source(net: IntNetwork, recipe: dict | None, count: int, events=Non
     labels = np.asarray(recs.labels, np.int64)[te]
     pick = pick_samples(te.size, count, labels)
     params = FrontEnd.from_section(fr, recs.width, recs.height)
-    check_network(params, net.input_shape, net.input_q)
     return FrontEndSource(params, [recs[int(te[i])][0] for i in pick.tolist()], pick, labels[pick],
-                          "test split of the recipe's data set (index: position in the test split)")
+                          "test split of the recipe's data set (index: position in the test split)"), dataset
 
 
 def _hardware_estimate(net_dir: Path) -> dict | None:
