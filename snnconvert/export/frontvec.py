@@ -233,8 +233,8 @@ def csv_files(arrays: dict) -> dict[str, bytes]:
 
 def manifest_entry(src: FrontEndSource, arrays: dict, csv: bool) -> dict:
     return {"version": VERSION, "params": params_dict(src.params), "rules": dict(RULES),
-            "streams": len(arrays["t0"]), "windows": int(len(arrays["windows"])),
-            "gated_events": int(len(arrays["gated"])), "source": src.source, "npz": NPZ,
+            "streams": len(arrays["t0"]), "windows": len(arrays["windows"]),
+            "gated_events": len(arrays["gated"]), "source": src.source, "npz": NPZ,
             "npz_columns": {name: ["stream"] + COLUMNS[name] for name in TABLES},
             "csv_folder": FOLDER if csv else None, "csv_columns": dict(COLUMNS)}
 

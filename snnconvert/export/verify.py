@@ -24,8 +24,8 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int, check_shape, check_str, fail
-from snnconvert.export import manifest as M
 from snnconvert.export import frontvec as FV
+from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
 from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_intel_hex, parse_mem
 from snnconvert.export.writer import MANIFEST
