@@ -26,7 +26,6 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
     out = tmp_path / "run"
     args = ["run", str(RECIPES / "default.toml"), "--out", str(out),
             "--set", f"data.cache_dir={tmp_path / 'cache'}",
-            "--set", "train.epochs=12",
             "--set", "sweep.weight_bits=3,4", "--set", "sweep.payload_bits=2,4",
             "--set", "export.vectors=4"]
     assert main(args) == 0
@@ -54,7 +53,7 @@ def test_default_recipe_end_to_end_then_every_stage_reused(tmp_path, capsys):
     # bars are drawn, and every message starts its own line
     assert BAR.search(captured.err)
     lines = clean_lines(captured.err)
-    assert all(re.match(r"\[\w+\] |model: |float epoch \d+/12: ", m) for m in lines), lines
+    assert all(re.match(r"\[\w+\] |model: |float epoch \d+/40: ", m) for m in lines), lines
     # scikit-learn's train_test_split rounds the test size up: ceil(0.2 * 1797) = 360, then
     # ceil(0.1 / 0.8 * 1437) = 180 for validation; the rest, 1257, trains (the 1797 scikit-learn digits)
     assert any(re.fullmatch(r"\[data\] 1257 train, 180 validation, 360 test samples, 16x16 binary frames, "
