@@ -179,19 +179,62 @@ def scan(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
     open_k: a window is open during bin k (it opened at or before k and did not close at k).
     Relative thresholds follow the background of closed bins (a FIFO of the last B of them);
-    absolute ones are constants. lo_k <= hi_k always. One pass over the bins in Python integers.
+    absolute ones are constants. lo_k <= hi_k always.
+
+    Computed by whole-array passes (`_scan_arrays`): given a guess of the open bins, the background,
+    thresholds and hysteresis of every bin follow without a loop; the guess is refined until it
+    reproduces itself, which only the bin-by-bin result does (`_scan_loop`, the definition, used
+    when the iteration does not settle or int64 could overflow).
     """
     c = np.asarray(counts, np.int64)
     n = c.size
     if not params.relative:
         hi_c = params.upper_count
         lo_c = min(params.lower_count, hi_c)
+        hi, lo = np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64)
+        return hi, lo, _hysteresis(c, hi, lo)
+    b = params.background_bins
+    big = max(params.upper_16, params.lower_16, 1) * (max(int(c.sum()), b) + 1)
+    if n and big < 1 << 62:
         is_open = np.zeros(n, bool)
-        state = False
-        for k, v in enumerate(c.tolist()):
-            state = v >= lo_c if state else v >= hi_c
-            is_open[k] = state
-        return np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64), is_open
+        for _ in range(SCAN_ROUNDS):
+            hi, lo = _relative_thresholds(c, is_open, params)
+            nxt = _hysteresis(c, hi, lo)
+            if np.array_equal(nxt, is_open):
+                return hi, lo, is_open
+            is_open = nxt
+    return _scan_loop(c, params)
+
+
+SCAN_ROUNDS = 32  # refinements of the open-bin guess before `scan` falls back to the bin-by-bin loop
+
+
+def _relative_thresholds(c: np.ndarray, is_open: np.ndarray, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(hi_k, lo_k) of every bin for a given set of open bins: S_k = the sum of the last B counts of
+    closed bins before k (the closed-bin sequence's cumulative sum at two positions)."""
+    b = params.background_bins
+    closed = ~is_open
+    z = np.concatenate(([0], np.cumsum(c[closed])))          # z[m] = sum of the first m closed-bin counts
+    m = np.cumsum(closed) - closed                            # closed bins before bin k
+    s = np.maximum(z[m] - z[np.maximum(m - b, 0)], b)
+    den = SCALE * b
+    hi = params.upper_16 * s // den + 1
+    lo = np.minimum(-(-params.lower_16 * s // den), hi)
+    return hi, lo
+
+
+def _hysteresis(c: np.ndarray, hi: np.ndarray, lo: np.ndarray) -> np.ndarray:
+    """open_k = c_k >= hi_k if closed at k-1, else c_k >= lo_k (closed before bin 0), for lo <= hi:
+    a bin with c >= hi is open, one with c < lo closed, any other keeps the state of the bin before."""
+    up = c >= hi
+    decided = up | (c < lo)
+    last = np.maximum.accumulate(np.where(decided, np.arange(c.size), -1)) if c.size else np.zeros(0, np.int64)
+    return (last >= 0) & up[np.maximum(last, 0)]
+
+
+def _scan_loop(c: np.ndarray, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The relative counter of `scan`, one bin at a time in Python integers (its definition)."""
+    n = c.size
     b = params.background_bins
     u, low, den = params.upper_16, params.lower_16, SCALE * b
     fifo = [0] * b  # the last B closed-bin counts (ring buffer), all 0 before t0
@@ -233,14 +276,13 @@ def window_bins(counts, params: FrontEnd) -> np.ndarray:
 
 
 def _merge(raw: np.ndarray, params: FrontEnd) -> np.ndarray:
-    merged: list[list[int]] = []
-    for a, b in raw.tolist():
-        if merged and a - merged[-1][1] < params.merge_bins:
-            merged[-1][1] = b
-        else:
-            merged.append([a, b])
-    out = np.asarray(merged, np.int64).reshape(-1, 2)
-    return out[out[:, 1] - out[:, 0] >= params.min_bins]
+    """Merge windows (sorted, disjoint) separated by fewer than merge_bins bins, then drop those
+    shorter than min_bins."""
+    raw = np.asarray(raw, np.int64).reshape(-1, 2)
+    if len(raw):
+        first = np.flatnonzero(np.r_[True, raw[1:, 0] - raw[:-1, 1] >= params.merge_bins])  # a group starts
+        raw = np.stack([raw[first, 0], raw[np.r_[first[1:] - 1, len(raw) - 1], 1]], axis=1)
+    return raw[raw[:, 1] - raw[:, 0] >= params.min_bins]
 
 
 def trace(t, params: FrontEnd, t0: int | None = None) -> dict:
