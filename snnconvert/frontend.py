@@ -366,38 +366,123 @@ def columns(events) -> Columns:
     return Columns(*(np.ascontiguousarray(v) for v in (t, x, y, p)))
 
 
-def gate(events, window, params: FrontEnd) -> np.ndarray:
-    """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
-    payload), in emission order (module docstring). events: an EventStream, an array with fields
-    t, x, y, p, or their `columns` (fastest for many windows of one long stream), time-ordered;
-    window: (t_start, t_end), holding t_start <= t < t_end."""
-    t, x, y, p = (events.t, events.x, events.y, events.p) if isinstance(events, Columns) else \
-        (np.asarray(getattr(events, "events", events))[k] for k in ("t", "x", "y", "p"))
-    t1, t2 = int(window[0]), int(window[1])
-    a, b = np.searchsorted(t, [t1, t2], side="left")  # cost O(log E): only the window's events are touched
-    tw = _times(t[a:b])  # checked sorted within the window
-    idx = pixel_index(x[a:b], y[a:b], p[a:b], params)  # (E,) grid address per window event
+def _fields(events) -> tuple:
+    """(t, x, y, p) of Columns, an EventStream or a structured event array (views, not copies)."""
+    if isinstance(events, Columns):
+        return events.t, events.x, events.y, events.p
+    ev = np.asarray(getattr(events, "events", events))
+    return ev["t"], ev["x"], ev["y"], ev["p"]
+
+
+def _grid_keys(x, y, p, params: FrontEnd) -> np.ndarray:
+    """`pixel_index` in the smallest unsigned dtype that holds C*size*size addresses. A side that is a
+    multiple of size divides by side // size (equal to v*size//side); others go through a table."""
+    x, y = np.asarray(x), np.asarray(y)
+    if x.size and (int(x.min()) < 0 or int(x.max()) >= params.width or int(y.min()) < 0
+                   or int(y.max()) >= params.height):
+        raise UsageError(f"event addresses must lie on the {params.width}x{params.height} sensor of the front end")
     plane = params.size * params.size
-    if params.mode == "binary":
-        key = idx.astype(np.uint16) if params.channels * plane <= 1 << 16 else idx  # 16 bits: a radix sort
-        order = np.argsort(key, kind="stable")  # events grouped by pixel, in time order within a pixel
-        grouped = idx[order]
-        start = np.searchsorted(grouped, grouped, side="left")  # first position of each event's pixel
-        rank = np.arange(grouped.size) - start  # 0-based count of earlier events of the same pixel
-        emit = np.sort(order[rank == params.threshold - 1])  # the threshold-th event of each pixel, time order
-        addr, times, payload = idx[emit], tw[emit], np.ones(emit.size, np.int64)
+    dt = np.uint16 if params.channels * plane <= 1 << 16 else np.uint32
+    parts = []
+    for v, side, mult in ((y, params.height, params.size), (x, params.width, 1)):
+        if side % params.size == 0:
+            g = (v // (side // params.size)).astype(dt)
+        else:
+            g = (np.arange(side, dtype=np.int64) * params.size // side).astype(dt)[v]
+        parts.append(g * dt(mult) if mult != 1 else g)
+    key = parts[0] + parts[1]
+    if params.channels == 2:
+        key += (np.asarray(p) < 0).astype(dt) * dt(plane)
+    return key
+
+
+def _window_events(events, windows, params: FrontEnd, check_order: bool = True):
+    """The events of every window, concatenated window after window: (first (K,), lengths (K,),
+    grid keys of the concatenated events, t). check_order refuses times that decrease inside a window."""
+    t, x, y, p = _fields(events)
+    if t.size and t.dtype.kind not in "iu":
+        raise UsageError(f"event times must be a 1-D integer array; got shape {t.shape}, dtype {t.dtype}")
+    w = np.asarray(windows, np.int64).reshape(-1, 2)
+    first = np.searchsorted(t, w[:, 0], side="left")
+    lengths = np.maximum(np.searchsorted(t, w[:, 1], side="left") - first, 0)
+    if check_order and t.size > 1:
+        down = t[1:] < t[:-1]
+        if down.any():  # a decrease at i (t[i+1] < t[i]) matters when both events lie in one window
+            cum = np.r_[0, np.cumsum(down)]
+            inside = lengths > 1
+            if np.any(cum[(first + lengths - 1)[inside]] - cum[first[inside]] > 0):
+                raise UsageError("event times must be sorted (non-decreasing)")
+    if len(w) == 1:
+        sl = slice(int(first[0]), int(first[0] + lengths[0]))
+        keys = _grid_keys(x[sl], y[sl], p[sl], params)
     else:
-        n = np.bincount(idx, minlength=params.channels * plane)
-        addr = np.flatnonzero(n)
-        times = np.full(addr.size, t2, np.int64)
-        payload = pixel_values(n[addr], params)
+        sl = [slice(int(a), int(a + n)) for a, n in zip(first.tolist(), lengths.tolist())]
+        keys = _grid_keys(*(np.concatenate([v[s] for s in sl]) if sl else v[:0] for v in (x, y, p)), params)
+    return first, lengths, keys, t
+
+
+def _counts(keys: np.ndarray, lengths: np.ndarray, params: FrontEnd) -> np.ndarray:
+    """(K, C*size*size) int64: n[k, a] = events of grid address a in window k (one bincount)."""
+    k, plane_all = len(lengths), params.channels * params.size * params.size
+    if k == 1:
+        return np.bincount(keys, minlength=plane_all).reshape(1, plane_all)
+    dt = np.int32 if k * plane_all < 1 << 31 else np.int64
+    wk = np.repeat(np.arange(k, dtype=dt) * dt(plane_all), lengths) + keys
+    return np.bincount(wk, minlength=k * plane_all).reshape(k, plane_all)
+
+
+def window_counts(events, windows, params: FrontEnd) -> np.ndarray:
+    """(K, C, size, size) int64: n[k, c, i, j] = events of grid pixel (c, i, j) in window k, t_start <= t < t_end.
+
+    events: as for `gate` (Columns fastest), time-ordered; windows: (K, 2) [t_start, t_end) in us, any
+    order. pixel_values(n) is each window's training frame, which equals frame(gate(...)) of the window;
+    its nonzero entries are the events the gate emits. One bincount over all windows' events."""
+    first, lengths, keys, _ = _window_events(events, windows, params)
+    return _counts(keys, lengths, params).reshape(-1, params.channels, params.size, params.size)
+
+
+def gate_windows(events, windows, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(gated, offsets): the `gate` of every window at once; gated[offsets[k]:offsets[k + 1]] equals
+    gate(events, windows[k], params). windows: (K, 2) [t_start, t_end) in us, any order.
+
+    binary: the threshold-th event of each (window, pixel) group. The events of all windows are
+    concatenated window after window (time order inside) and stably sorted by pixel, so each pixel's
+    events stand grouped by window in time order; with n[k, a] the group sizes, the group of
+    (k, a) starts at start[a] + sum_{k' < k} n[k', a], and its threshold-th event sits threshold - 1
+    further. Sorting the picked positions restores window order, then time, then arrival order."""
+    first, lengths, keys, t = _window_events(events, windows, params)
+    w = np.asarray(windows, np.int64).reshape(-1, 2)
+    n = _counts(keys, lengths, params)                                     # (K, A)
+    plane, size = params.size * params.size, params.size
+    if params.mode == "binary":
+        order = np.argsort(keys, kind="stable")                            # 16-bit keys: a radix sort
+        start = np.r_[0, np.cumsum(n.sum(axis=0))[:-1]]                    # (A,) first place of each address
+        before = np.cumsum(n, axis=0) - n                                  # (K, A) events in earlier windows
+        k, addr = np.nonzero(n >= params.threshold)
+        pick = np.sort(order[start[addr] + before[k, addr] + params.threshold - 1])
+        cat_first = np.cumsum(lengths) - lengths                           # (K,) window starts, concatenated
+        k = np.searchsorted(cat_first, pick, side="right") - 1  # an empty window shares its start with the next
+        addr = keys[pick].astype(np.int64)
+        times = t[pick - cat_first[k] + first[k]].astype(np.int64)
+        payload = np.ones(pick.size, np.int64)
+    else:
+        k, addr = np.nonzero(n)
+        times, payload = w[k, 1], pixel_values(n[k, addr], params)
     out = np.zeros(addr.size, GATED_DTYPE)
     out["t"] = times
     out["c"] = addr // plane
-    out["y"] = addr % plane // params.size
-    out["x"] = addr % params.size
+    out["y"] = addr % plane // size
+    out["x"] = addr % size
     out["payload"] = payload
-    return out
+    return out, np.r_[0, np.cumsum(np.bincount(k, minlength=len(w)))]
+
+
+def gate(events, window, params: FrontEnd) -> np.ndarray:
+    """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
+    payload), in emission order (module docstring). events: an EventStream, an array with fields
+    t, x, y, p, or their `columns`, time-ordered; window: (t_start, t_end), holding t_start <= t < t_end.
+    Many windows of one stream: `gate_windows` (one pass for all)."""
+    return gate_windows(events, [(int(window[0]), int(window[1]))], params)[0]
 
 
 def frame(gated, params: FrontEnd) -> np.ndarray:
