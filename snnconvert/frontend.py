@@ -437,7 +437,7 @@ def window_counts(events, windows, params: FrontEnd) -> np.ndarray:
     events: as for `gate` (Columns fastest), time-ordered; windows: (K, 2) [t_start, t_end) in us, any
     order. pixel_values(n) is each window's training frame, which equals frame(gate(...)) of the window;
     its nonzero entries are the events the gate emits. One bincount over all windows' events."""
-    first, lengths, keys, _ = _window_events(events, windows, params)
+    _, lengths, keys, _ = _window_events(events, windows, params)
     return _counts(keys, lengths, params).reshape(-1, params.channels, params.size, params.size)
 
 
