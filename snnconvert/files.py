@@ -167,13 +167,19 @@ def load_torch(path):
         raise FormatError(f"{path}: not a readable checkpoint ({type(exc).__name__}: {first[0][:200]})") from None
 
 
+def plain_name(relative: str) -> bool:
+    """True for a file name without a folder part ("rec1.bin"; not "", ".", ".." or "a/b"): inside
+    its folder by construction, unless it names a symlink."""
+    return "/" not in relative and "\\" not in relative and relative not in ("", ".", "..")
+
+
 def resolve_inside(folder, relative: str, what: str = "path") -> Path:
     """Resolve a path listed in an index file; anything escaping `folder` is rejected.
 
     Fast path (one lstat, no realpath): a plain file name without a folder part, naming a regular
     file (not a symlink) in `folder`, is inside it by construction; everything else is resolved.
     """
-    if "/" not in relative and "\\" not in relative and relative not in ("", ".", ".."):
+    if plain_name(relative):
         import stat as _stat
         target = Path(folder) / relative
         try:
@@ -245,7 +251,7 @@ def _feed(h, item, nested: bool = True) -> None:
     if isinstance(item, np.ndarray):
         a = np.ascontiguousarray(item)
         h.update(f"nd{a.dtype.str}{a.shape}".encode())
-        h.update(a.tobytes())
+        h.update(a.tobytes() if a.dtype.hasobject else a.reshape(-1).view(np.uint8))  # the bytes, without a copy
     elif nested and isinstance(item, dict):
         h.update(b"{")
         for k in sorted(item, key=str):

@@ -312,11 +312,18 @@ def grid_address(x, y, p, width: int, height: int, size: int, polarity: bool) ->
     y = np.asarray(y)
     if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
         raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
-    lut_y = (np.arange(height, dtype=np.int64) * size // height) * size  # row offset per sensor row
-    lut_x = np.arange(width, dtype=np.int64) * size // width
-    idx = lut_y[y] + lut_x[x]
+    # the address of every sensor pixel (row-major; OFF pixels after them), then one gather: the flat
+    # sensor index y * width + x (+ width * height for OFF) is built in place in one int64 array and
+    # replaced by its address (np.take into itself: each element is read before it is written)
+    lut = ((np.arange(height, dtype=np.int64) * size // height)[:, None] * size
+           + (np.arange(width, dtype=np.int64) * size // width)[None, :]).ravel()  # (height * width,)
+    idx = y.astype(np.int64)  # a fresh array, whatever y's type
+    idx *= width
+    idx += x
     if polarity:
-        idx += (np.asarray(p) < 0) * (size * size)
+        lut = np.concatenate([lut, lut + size * size])
+        idx += (np.asarray(p) < 0) * (width * height)
+    lut.take(idx, out=idx, mode="clip")  # in range (checked above): "clip" skips take's bounds buffer
     return idx
 
 

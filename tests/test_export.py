@@ -201,7 +201,7 @@ def test_every_manifest_field_is_documented(exported):
     # row-major (C-order, as numpy) address of conv1's output shape (3, 6, 6): strides 36, 6, 1 (hand-computed)
     assert man["layers"][0]["address"] == "addr = c*36 + y*6 + x  (c < 3, y < 6, x < 6)"
     assert man["rounding"]["formula"] == arith.ROUNDING_FORMULA
-    assert man["format"] == "snnconvert-export" and man["version"] == 1     # the project's format name, version 1
+    assert man["format"] == "snnconvert-export" and man["version"] == 2     # the project's format name, version 2 (front-end vectors)
     from snnconvert.export.manifest import fields_markdown
     md = fields_markdown()
     assert all(f"| `{k}` |" in md for k in [*MANIFEST_FIELDS, *LAYER_FIELDS, *TABLE_FIELDS])

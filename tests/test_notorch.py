@@ -157,3 +157,20 @@ def test_cli_compare_without_torch(exports, tmp_path):
     assert r.stdout.split("\n")[-2] == (f"compare: FAILED: first mismatch: sample 1, layer L2_conv2, potential, neuron "
                                         f"2 (0, 1, 0): expected {v}, got {int(v) + 1} "
                                         f"[sample_0001/L2_conv2.potentials.csv]")
+
+
+def test_front_end_vectors_verify_compare_and_c_model_without_torch(tmp_path):
+    """An export with front-end vectors: verify re-runs the front end, compare reads its trace tables and
+    cmodel writes the C front end, all with numpy alone."""
+    from test_frontvec import params, source
+    folder = tmp_path / "export"
+    x, y = small_inputs()
+    export_network(small_net(), folder, x, y, vectors=1, progress=False, directed=False,
+                   frontend=source(params(upper_count=4)))
+    r = _cli("verify", str(folder), "--quiet")
+    assert r.returncode == 0 and r.stdout.startswith("verify: passed: 1 samples, 2 front-end streams"), r.stderr
+    r = _cli("compare", str(folder), str(folder), "--quiet")      # the export's frontend/ folder is a trace
+    assert r.returncode == 0 and r.stdout.split("\n")[-2].startswith("compare: passed: "), r.stderr
+    r = _cli("cmodel", str(folder), "--quiet")
+    assert r.returncode == 0, r.stderr
+    assert (folder / "c" / "snn_frontend.c").is_file() and (folder / "c" / "snn_frontend_main.c").is_file()

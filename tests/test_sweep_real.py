@@ -199,3 +199,19 @@ def test_seeds_axis_trains_one_model_per_seed_and_judges_the_mean(trained, tmp_p
     assert rec["frame_accuracy"] == pytest.approx(statistics.mean(r.frame_accuracy for r in res.per_seed.values()))
     again = sweep.run_sweep(inputs, settings, tmp_path / "sw", progress=False)   # resumes every seed
     assert (again.computed, again.reused) == (0, 4)
+
+
+@pytest.mark.parametrize("calib", [7, 64])
+def test_tasks_ship_only_the_calibration_subset_and_convert_the_same(trained, calib):
+    """A point's task carries the calibration subset of the training split, not the split: same network."""
+    from snnconvert.convert.calibrate import calibration_subset
+    from snnconvert.sweep.point import evaluate_point, lean
+    train_dir, ds = trained
+    inputs = sweep.load_inputs(train_dir, dataset=ds)
+    recipe = {**inputs.recipe, "convert": {**inputs.recipe["convert"], "calib_samples": calib}}
+    point = {"coding": "payload", "weight_bits": 3, "payload_bits": 3, "per_channel": False, "aware": False}
+    cut = lean(ds, calib)
+    assert len(cut.train[1]) == calib < len(ds.train[1]) and len(cut.val[1]) == 0
+    assert (cut.train[0] == ds.train[0][calibration_subset(len(ds.train[1]), calib)]).all()
+    full = evaluate_point(inputs.model, lean(ds), recipe, None, point)
+    assert evaluate_point(inputs.model, cut, recipe, None, point) == full

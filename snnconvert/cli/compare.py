@@ -10,7 +10,7 @@ def add_arguments(p) -> None:
     p.add_argument("export_dir", metavar="EXPORT_DIR", help="export folder holding manifest.json and vectors.npz")
     p.add_argument("trace_dir", metavar="TRACE_DIR",
                    help="trace folder: sample_NNNN/<layer id>.csv events, <layer id>.potentials.csv, potentials.csv, "
-                        "summary.csv (missing files are not compared)")
+                        "summary.csv, frontend/stream_NNNN/<table>.csv (missing files are not compared)")
     p.add_argument("--unordered", action="store_true",
                    help="compare each window's events as sets (hardware may emit them in another order)")
 

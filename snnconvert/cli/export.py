@@ -26,6 +26,12 @@ def add_arguments(p) -> None:
     p.add_argument("--verilog", action=argparse.BooleanOptionalAction, default=None,
                    help="also write the behavioural Verilog model and its self-checking testbench under verilog/ "
                         "(default: recipe [export] verilog, off)")
+    p.add_argument("--frontend-vectors", type=int, metavar="N",
+                   help="also write front-end vectors (raw events in; rate bins, windows, gated input events, frames "
+                        "out) of N test recordings of the recipe's data set (default: recipe [export] "
+                        "frontend_vectors, 0)")
+    p.add_argument("--frontend-events", metavar="FILE",
+                   help="make the front-end vectors from this events file (.npz, .csv, .bin) instead, one stream")
     p.add_argument("--c", action="store_true",
                    help="also write the C99 reference model to OUT_DIR/c (the same files as `snnconvert cmodel OUT_DIR`, "
                         "but listed in the manifest)")
@@ -44,17 +50,24 @@ def run(args) -> int:
         raise UsageError("--c needs golden vectors (the C model's main checks them); give --vectors N with N > 0")
     if args.vectors is not None:
         check_int(args.vectors, "vectors", "export", 0)
+    if args.frontend_vectors is not None:
+        check_int(args.frontend_vectors, "frontend_vectors", "export", 0)
     if args.pack_bits is not None:
         check_int(args.pack_bits, "pack_bits", "export", 0, 4096)
     man_path = export_from_run(args.net_dir, args.out_dir, vectors=args.vectors, csv=args.csv, intel_hex=args.intel_hex,
                                inputs=args.inputs, progress=not args.quiet, coe_mif=args.coe_mif,
-                               pack_bits=args.pack_bits, verilog=args.verilog, c_model=args.c)
+                               pack_bits=args.pack_bits, verilog=args.verilog, c_model=args.c,
+                               frontend_vectors=args.frontend_vectors, frontend_events=args.frontend_events)
     man = load_json(man_path)
     out = Path(args.out_dir)
     vec = man["vectors"]
     directed = len(vec.get("directed", []))
     console.echo(f"export: {len(man['layers'])} layers, {len(man['files'])} files, "
                  f"{vec['count'] - directed} golden vectors and {directed} directed vectors -> {out}")
+    fe = man.get("frontend")
+    if fe:
+        console.echo(f"export: front-end vectors: {fe['streams']} streams, {fe['windows']} windows, "
+                     f"{fe['gated_events']} gated input events -> {out / 'frontend'}")
     if args.c:
         console.echo(f"export: C model -> {out / 'c'}")
     return 0

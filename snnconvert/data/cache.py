@@ -110,8 +110,10 @@ def _check_cache_arrays(z: dict, n: int, w: int, h: int) -> None:
 def folder_key(index_path: Path, paths: list[Path], settings) -> str:
     """The frames cache key of a folder: hash of the index's bytes, each file's (name, size, mtime_ns)
     and `settings` (everything else that changes a frame). Editing, touching, adding or removing a
-    recording changes the key; stat costs microseconds per file, no recording is read."""
-    stats = np.array([(st.st_size, st.st_mtime_ns) for st in map(os.stat, paths)], np.int64).reshape(-1, 2)
+    recording changes the key; no recording is read. One os.stat per file on its path string (a few
+    microseconds: faster than os.scandir plus DirEntry.stat, which stats again on Linux)."""
+    stats = np.array([(st.st_size, st.st_mtime_ns) for st in map(os.stat, map(os.fspath, paths))],
+                     np.int64).reshape(-1, 2)
     names = "\n".join(p.name for p in paths)
     return files.fingerprint(FRAMES_VERSION, Path(index_path).read_bytes(), names, stats, settings, nested=False)
 

@@ -174,9 +174,10 @@ def _binarized_recordings(images: np.ndarray, labels: np.ndarray, level: float) 
 
 def _folder_frames_cached(recipe: dict, dsec: dict, fsec: dict, recs: RecordingFolder, info: dict,
                           progress: bool):
-    """recording_frames of a folder through the frames cache: hit -> the cache file alone; miss ->
-    stream the files (folder_frames) and write the cache. Fills recs.events, width, height and
-    info (cache, cache_reused, filters)."""
+    """recording_frames of a folder through the frames cache, with the frames as the uint8 array the
+    cache holds: hit -> the cache file alone (one np.load; the key stats each file once); miss ->
+    stream the files (folder_frames) and write the cache. Fills recs.events, width, height and info
+    (cache, cache_reused, filters)."""
     base = Path(recipe.get("_base_dir") or ".")
     settings = (dsec["sensor_side"], dsec["time_unit"], recs.filters, sorted(fsec.items()))
     key = _cache.folder_key(Path(info["index"]), recs.paths, settings)
@@ -193,7 +194,7 @@ def _folder_frames_cached(recipe: dict, dsec: dict, fsec: dict, recs: RecordingF
     if any(recs.filters):
         info["filters"] = {"events_in": int(got["events_in"].sum()), "events_out": int(got["events"].sum()),
                            "pixels_removed": int(got["pixels_removed"].sum())}
-    return got["X"].astype(np.float32), got["windows"], got["ok"].astype(bool), got["lens"]
+    return got["X"], got["windows"], got["ok"].astype(bool), got["lens"]
 
 
 def check_frames(X: np.ndarray, recs, lens: np.ndarray, fsec: dict, dsec: dict) -> None:
@@ -256,8 +257,13 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
         X5, wins, ok, lens = recording_frames(recs, fsec, progress)  # (N, K, C, S, S)
     n, k = X5.shape[:2]
     per = fsec["per_recording"]
-    X = X5.reshape(n, -1, *X5.shape[3:]) if per != "each" else X5[:, 0]  # (N, K*C or C, S, S)
+    # counts on the frames as they come (a folder's: uint8, a quarter of the bytes); every frame sum is an
+    # integer below 2^24, so it is the same in float32
     check_frames(X5.reshape(n, -1, *X5.shape[3:]), recs, lens, fsec, dsec)
+    spikes = X5.reshape(n, k, -1).sum(2).astype(np.float32)  # (N, K) spikes per frame
+    nonzero = float(np.count_nonzero(X5.reshape(n * k, -1), axis=1).mean()) if n else 0.0
+    X5 = X5.astype(np.float32, copy=False)
+    X = X5.reshape(n, -1, *X5.shape[3:]) if per != "each" else X5[:, 0]  # (N, K*C or C, S, S)
     y = recs.labels
     idx = np.arange(len(y))
     tf, vf = dsec["test_fraction"], dsec["val_fraction"]
@@ -277,12 +283,11 @@ def load_dataset(recipe: dict, progress: bool = True) -> Dataset:
     else:
         def split(s):
             return X[s], y[s].astype(np.int64)
-    spikes = X5.reshape(n, k, -1).sum(2)  # (N, K) spikes per frame
     per_rec = np.diff(recs.offsets) if len(recs) else np.zeros(0, np.int64)
     info.update(
         recordings=len(recs), events_per_recording=float(per_rec.mean()) if len(recs) else 0.0,
         events_per_window=float(lens.mean() / k) if len(lens) else 0.0,
-        nonzero_pixels_per_frame=float(np.count_nonzero(X5.reshape(n * k, -1), axis=1).mean()) if n else 0.0,
+        nonzero_pixels_per_frame=nonzero,
         frame_sum_mean=float(spikes.mean()) if n else 0.0,
         fallback_windows=int((~ok).sum()), sensor=[recs.width, recs.height],
         empty_frames=int(np.count_nonzero(spikes == 0)), per_recording=per, windows_per_recording=int(k),

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -21,6 +22,7 @@ from snnconvert.events import filters as _filters
 from snnconvert.events.formats import read_events
 from snnconvert.events.stream import EVENT_DTYPE, EventStream
 
+SCAN_ROWS = 64  # an index with more rows checks its files by one directory scan
 CHUNK = 256  # files per worker task: large enough to hide the task overhead, small enough for a smooth bar
 
 
@@ -128,15 +130,24 @@ def read_index(index_path) -> tuple[list[Path], list[str]]:
     if not rows or [c.strip() for c in rows[0]] != ["file", "label"]:
         raise FormatError(f"{index_path}: line 1: the header must be 'file,label'")
     paths, labels = [], []
-    root = index_path.parent.resolve()  # once: resolve_inside's fast path then needs one lstat per file
+    root = index_path.parent.resolve()  # once: a plain file name then needs no system call (below)
+    # a long index: one directory scan lists the regular files (not symlinks) of the folder, so a
+    # plain file name found there is inside the folder and exists; other names go through
+    # resolve_inside and a stat, as every name of a short index does
+    regular = ({e.name for e in os.scandir(root) if e.is_file(follow_symlinks=False)}
+               if len(rows) > SCAN_ROWS else set())
     for n, row in enumerate(rows[1:], start=2):
         if not row or not "".join(row).strip():
             continue
         if len(row) != 2 or not row[0].strip() or not row[1].strip():
             raise FormatError(f"{index_path}: line {n}: expected 'file,label', got {','.join(row)!r}")
-        p = files.resolve_inside(root, row[0].strip(), what=f"{index_path} line {n}: file")
-        if not p.is_file():
-            raise UsageError(f"{index_path}: line {n}: file not found: {p}")
+        name = row[0].strip()
+        if name in regular and files.plain_name(name):
+            p = root / name
+        else:
+            p = files.resolve_inside(root, name, what=f"{index_path} line {n}: file")
+            if not p.is_file():
+                raise UsageError(f"{index_path}: line {n}: file not found: {p}")
         paths.append(p)
         labels.append(row[1].strip())
     if not paths:
@@ -173,47 +184,74 @@ def recording_frames(recs, frames_section: dict, progress: bool = True, workers:
         return out["X"].astype(np.float32), out["windows"], out["ok"], out["lens"]
     from snnconvert import frames
     sec = _frames_section(frames_section)
-    n, k = len(recs), frames.windows_used(sec)
-    wins = np.zeros((n, 2), np.int64)
-    ok = np.zeros(n, bool)
-    sel, groups = [], []
+    n = len(recs)
+    wins, ok = np.zeros((n, 2), np.int64), np.zeros(n, bool)
+    bounds = np.zeros((n, 2 * frames.windows_used(sec)), np.int64)
+    _check_set(recs)  # once for the set: the recordings below are views of checked events
     for i in console.bar(range(n), desc="windows", unit="rec", enabled=progress):
-        s, _ = recs[i]
-        ws, ok[i] = frames.frame_windows(s, sec)
-        wins[i] = ws[0][0], ws[-1][1]
-        for j, (t0, t1) in enumerate(ws):
-            a, b = np.searchsorted(s.t, [t0, t1])
-            sel.append(np.arange(recs.offsets[i] + a, recs.offsets[i] + b))
-            groups.append(i * k + j)
-    sizes = np.array([len(v) for v in sel], np.int64)
-    idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
-    ev = recs.events[idx]
-    X = frames.bin_events(ev["x"], ev["y"], ev["p"], recs.width, recs.height, np.repeat(np.asarray(groups, np.int64), sizes),
-                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
-    lens = np.bincount(np.repeat(np.asarray(groups, np.int64) // k, sizes), minlength=n).astype(np.int64)
-    return X.reshape(n, k, *X.shape[1:]), wins, ok, lens
+        ev = recs.events[recs.offsets[i]:recs.offsets[i + 1]]
+        _window_bounds(_stream(ev, recs.width, recs.height), int(recs.offsets[i]), sec, i, wins, ok, bounds)
+    X = frames.bin_segments(recs.events["x"], recs.events["y"], recs.events["p"], recs.width, recs.height, bounds,
+                            sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    return X.reshape(n, -1, *X.shape[1:]), wins, ok, (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
 
 
-def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventStream]:
-    """The streams of one chunk. .bin files (no stored sensor size: default_sensor) are decoded
-    together: one frombuffer over the concatenated bytes, the 23-bit timestamp unwrapped within each
-    file, addresses checked once for the chunk; other formats go through read_events one by one."""
-    from snnconvert.events.formats import WRAP_US, decode_bin
+def _check_set(recs: RecordingSet) -> None:
+    """The checks of EventStream over every recording of a set at once: addresses on the sensor,
+    polarity +1/-1, time non-decreasing within each recording (it may fall where a recording starts)."""
+    from snnconvert.events.stream import _validate
+    ev, off = recs.events, np.asarray(recs.offsets, np.int64)
+    if off.shape != (len(recs) + 1,) or off[0] != 0 or off[-1] != ev.size or np.any(np.diff(off) < 0):
+        raise UsageError(f"recording offsets must rise from 0 to {ev.size} over {len(recs)} recordings")
+    _validate(ev["t"][:1], ev["x"], ev["y"], ev["p"], recs.width, recs.height)  # time order: per recording, below
+    t = ev["t"]
+    falls = np.flatnonzero(t[1:] < t[:-1]) + 1
+    bad = falls[~np.isin(falls, off)]
+    if bad.size:
+        i = int(bad[0])
+        r = int(np.searchsorted(off, i, side="right") - 1)
+        raise UsageError(f"recording {r}: event field 't' decreases at index {i - off[r]} ({t[i - 1]} -> {t[i]})")
+
+
+def _window_bounds(s: EventStream, start: int, sec: dict, i: int, wins, ok, bounds) -> None:
+    """Recording i (events start.. of the whole array) by the window rule: wins[i] spans its first to
+    its last window, ok[i] says whether the rule gave them, bounds[i] (2K,) are the event indices
+    (of the whole array) where its windows open and close, for frames.bin_segments."""
+    from snnconvert import frames
+    ws, ok[i] = frames.frame_windows(s, sec)
+    wins[i] = ws[0][0], ws[-1][1]
+    bounds[i] = start + np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())
+
+
+def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> tuple[np.ndarray, np.ndarray, tuple]:
+    """(events EVENT_DTYPE, starts (n + 1,), (width, height)) of one chunk: file i is
+    events[starts[i]:starts[i + 1]]; files of different sensor sizes are refused.
+
+    .bin files (no stored sensor size: default_sensor) are decoded together: one np.frombuffer over
+    the concatenated bytes, the 23-bit timestamp unwrapped within each file (its wrap count restarts
+    at the file's first event), addresses checked once for the chunk; no Python work per event. A
+    file that fails a check is read again alone, so the error names the file and the byte offset.
+    Other formats go through read_events one by one.
+    """
+    from snnconvert.events.formats import decode_bin
     if not all(p.endswith(".bin") for p in paths) or not default_sensor:
-        return [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
-    blobs = [Path(p).read_bytes() for p in paths]
-    sizes = np.array([len(b) for b in blobs], np.int64)
+        streams = [read_events(p, default_sensor=default_sensor, time_unit=time_unit) for p in paths]
+        sizes = {(s.width, s.height) for s in streams}
+        if len(sizes) > 1:
+            raise UsageError(f"recordings have different sensor sizes {sorted(sizes)}; use one sensor per folder")
+        starts = np.concatenate([[0], np.cumsum([len(s) for s in streams])]).astype(np.int64)
+        ev = np.concatenate([s.events for s in streams]) if streams else np.zeros(0, EVENT_DTYPE)
+        return ev, starts, sizes.pop() if sizes else tuple(default_sensor or (1, 1))
+    blobs = []
+    for p in paths:
+        with open(p, "rb") as f:
+            blobs.append(f.read())
+    sizes = np.fromiter(map(len, blobs), np.int64, len(blobs))
     bad = np.flatnonzero(sizes % 5)
     if bad.size:  # the one-file reader names the byte offset
         read_events(paths[int(bad[0])], default_sensor=default_sensor)
-    t, x, y, p = decode_bin(b"".join(blobs))
-    counts = sizes // 5
-    starts = np.concatenate([[0], np.cumsum(counts)])
-    if t.size:  # undo wraps counted across file boundaries: each file starts with no wrap
-        t23 = t % WRAP_US
-        wraps = np.concatenate([[0], np.cumsum(np.diff(t23) < 0)])
-        first = np.repeat(wraps[np.minimum(starts[:-1], t.size - 1)], counts)
-        t = t23 + (wraps - first) * WRAP_US
+    starts = np.concatenate([[0], np.cumsum(sizes // 5)])
+    t, x, y, p = decode_bin(b"".join(blobs), starts)  # wraps counted within each file
     w, h = default_sensor
     if t.size and (int(x.max()) >= w or int(y.max()) >= h):
         i = int(np.flatnonzero((x >= w) | (y >= h))[0])
@@ -221,47 +259,52 @@ def _read_chunk(paths: list[str], default_sensor, time_unit: str) -> list[EventS
         read_events(paths[f], default_sensor=default_sensor)  # raises, naming the file and offset
     ev = np.empty(t.size, EVENT_DTYPE)
     ev["t"], ev["x"], ev["y"], ev["p"] = t, x, y, p
-    out = []
-    for i in range(len(paths)):
-        s = EventStream.__new__(EventStream)  # checked above as a whole: addresses, polarity, rising time
-        s.events, s.width, s.height = ev[starts[i]:starts[i + 1]], w, h
-        out.append(s)
-    return out
+    return ev, starts, (w, h)
 
 
 def _folder_chunk(task: tuple) -> dict:
     """Worker: read, filter and window the files of one chunk, bin all their windows in one pass;
-    return only frames and counts."""
+    return only frames (uint8) and per-file counts.
+
+    The Python loop per file only finds its windows (frames.frame_windows); reading, the window
+    bounds (one np.searchsorted per file over its own times), the group of every event (one np.repeat
+    over the chunk) and the binning (one np.bincount) are whole-chunk array operations.
+    """
     from snnconvert import frames
     paths, default_sensor, time_unit, filt, sec = task
     n, k = len(paths), frames.windows_used(sec)
     out = {"X": None, "windows": np.zeros((n, 2), np.int64), "ok": np.zeros(n, bool), "lens": np.zeros(n, np.int64),
            "events_in": np.zeros(n, np.int64), "events": np.zeros(n, np.int64), "pixels_removed": np.zeros(n, np.int64),
            "sensor": np.zeros((n, 2), np.int64)}
-    kept, groups = [], []
-    for i, s in enumerate(_read_chunk(paths, default_sensor, time_unit)):
-        s, eff = _filters.apply(s, *filt)
-        ws, out["ok"][i] = frames.frame_windows(s, sec)
-        out["windows"][i] = ws[0][0], ws[-1][1]
-        bounds = np.searchsorted(s.t, np.asarray(ws, np.int64).ravel())  # (2K,)
-        seg_len = np.diff(np.r_[0, bounds, len(s)])  # gap, window, gap, ..., gap
-        seg_val = np.full(seg_len.size, -1, np.int64)
-        seg_val[1::2] = i * k + np.arange(k)
-        groups.append(np.repeat(seg_val, seg_len))
-        kept.append(s.events)
-        out["lens"][i] = int(seg_len[1::2].sum())
-        out["events_in"][i], out["events"][i] = eff["events_in"], eff["events_out"]
-        out["pixels_removed"][i] = eff["pixels_removed"]
-        out["sensor"][i] = s.width, s.height
-    if len({tuple(v) for v in out["sensor"]}) > 1:
-        raise UsageError(f"recordings have different sensor sizes {sorted({tuple(v) for v in out['sensor']})}; "
-                         f"use one sensor per folder")
-    ev = np.concatenate(kept) if kept else np.zeros(0, EVENT_DTYPE)
-    w, h = (int(v) for v in out["sensor"][0]) if n else (1, 1)
-    X = frames.bin_events(ev["x"], ev["y"], ev["p"], w, h, np.concatenate(groups) if groups else np.zeros(0, np.int64),
-                     n * k, sec["mode"], sec["size"], sec["threshold"], sec["max_count"])
+    ev, starts, (w, h) = _read_chunk(paths, default_sensor, time_unit)
+    out["sensor"][:] = w, h
+    out["events_in"][:] = np.diff(starts)
+    if any(filt):  # the filters change the events: keep each file's survivors, then re-count
+        kept = []
+        for i in range(n):
+            s, eff = _filters.apply(_stream(ev[starts[i]:starts[i + 1]], w, h), *filt)
+            kept.append(s.events)
+            out["pixels_removed"][i] = eff["pixels_removed"]
+        ev = np.concatenate(kept) if kept else ev[:0]
+        starts = np.concatenate([[0], np.cumsum([len(v) for v in kept])]).astype(np.int64)
+    out["events"][:] = np.diff(starts)
+    bounds = np.zeros((n, 2 * k), np.int64)  # event index where each window of each file opens / closes
+    for i in range(n):
+        _window_bounds(_stream(ev[starts[i]:starts[i + 1]], w, h), int(starts[i]), sec, i, out["windows"], out["ok"],
+                       bounds)
+    # window j of file i is the run of events bounds[i, 2j] .. bounds[i, 2j + 1] - 1 of the chunk
+    out["lens"][:] = (bounds[:, 1::2] - bounds[:, 0::2]).sum(1)
+    X = frames.bin_segments(ev["x"], ev["y"], ev["p"], w, h, bounds, sec["mode"], sec["size"], sec["threshold"],
+                            sec["max_count"])
     out["X"] = X.reshape(n, k, *X.shape[1:]).astype(np.uint8)
     return out
+
+
+def _stream(events: np.ndarray, w: int, h: int) -> EventStream:
+    """An EventStream over events checked already as part of their chunk (addresses, polarity, time order)."""
+    s = EventStream.__new__(EventStream)
+    s.events, s.width, s.height = events, w, h
+    return s
 
 
 def folder_frames(folder: RecordingFolder, frames_section: dict, progress: bool = True, workers: int = 1,

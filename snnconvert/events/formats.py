@@ -321,16 +321,37 @@ def encode_bin(stream: EventStream) -> bytes:
     return out.tobytes()
 
 
-def decode_bin(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """(t, x, y, p) from whole 5-byte records; t unwrapped at each decrease of the 23-bit field."""
+def decode_bin(data: bytes, starts=None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(t int64, x uint16, y uint16, p int8) from whole 5-byte records, every column from one
+    np.frombuffer (no Python per event): x = b0, y = b1, p = +1 if b2 >> 7 else -1,
+    t = (b2 & 0x7F) << 16 | b3 << 8 | b4, plus 2^23 for every decrease of that field before it.
+
+    `starts` (rising record indices, first 0, last the record count) marks several files joined
+    together: the wrap count restarts at each file's first record (a file starting below the previous
+    file's last time is not a wrap). Default: one file.
+    """
     b = np.frombuffer(data, np.uint8).reshape(-1, 5)  # (N, 5)
     x = b[:, 0].astype(np.uint16)
     y = b[:, 1].astype(np.uint16)
-    p = np.where(b[:, 2] >> 7, 1, -1).astype(np.int8)
-    t = ((b[:, 2].astype(np.int64) & 0x7F) << 16) | (b[:, 3].astype(np.int64) << 8) | b[:, 4]
+    hi = b[:, 2]
+    p = (hi >> 7).astype(np.int8)
+    p *= 2
+    p -= 1
+    t = (hi & 0x7F).astype(np.int64)
+    t <<= 16
+    t |= b[:, 3].astype(np.int64) << 8
+    t |= b[:, 4]
     if t.size > 1:
-        wraps = np.concatenate([[0], np.cumsum(np.diff(t) < 0)])
-        t = t + wraps * WRAP_US
+        wraps = np.empty(t.size, np.int64)  # decreases up to each record, then less those before its file
+        wraps[0] = 0
+        np.less(t[1:], t[:-1], out=wraps[1:])
+        np.cumsum(wraps, out=wraps)
+        if starts is not None:
+            counts = np.diff(starts)
+            filled = counts > 0
+            wraps -= np.repeat(wraps[np.asarray(starts)[:-1][filled]], counts[filled])
+        wraps *= WRAP_US
+        t += wraps
     return t, x, y, p
 
 

@@ -12,6 +12,10 @@ copies, as `verify` does) and vectors.npz - numpy only, no checkpoint - and writ
                    neuron, expected, got); `snn_model TRACE_DIR` also writes a trace in the
                    golden-vector layout (see compare.py)
 
+With front-end vectors in the export, also the front end's C model (export.cfront: snn_frontend.h,
+snn_frontend.c, snn_frontend_vectors.h, snn_frontend_main.c), built from the manifest's `frontend.params`:
+cc -std=c99 -O2 -o snn_frontend snn_frontend.c snn_frontend_main.c.
+
 Build: cc -std=c99 -O2 -o snn_model snn_model.c snn_main.c. The model uses integer arithmetic only
 (no floats, no malloc), fixed-width types chosen from the declared widths (int32_t when a layer's
 accumulator width is at most 32 bits, else int64_t), static loops with bounds from macros, and
@@ -605,9 +609,14 @@ def c_sources(folder) -> dict[str, str]:
                          "(export with --vectors N, N > 0)")
     z = load_npz(resolve_inside(folder, vec["npz"], "file"))
     layers = _layers(man, net)
-    return {"snn_model.h": _header(man, net, layers), "snn_tables.h": _tables(net, layers),
-            "snn_model.c": _model(man, net, layers), "snn_vectors.h": _vectors(man, net, layers, z),
-            "snn_main.c": _main(man, net, layers, z)}
+    out = {"snn_model.h": _header(man, net, layers), "snn_tables.h": _tables(net, layers),
+           "snn_model.c": _model(man, net, layers), "snn_vectors.h": _vectors(man, net, layers, z),
+           "snn_main.c": _main(man, net, layers, z)}
+    if man.get("frontend"):
+        from snnconvert.export import cfront
+        fz = load_npz(resolve_inside(folder, man["frontend"]["npz"], "file"))
+        out.update(cfront.c_sources(man, fz, str(folder / MANIFEST)))
+    return out
 
 
 def write_c_model(folder, out_dir=None) -> Path:

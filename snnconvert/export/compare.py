@@ -8,7 +8,12 @@ A trace folder uses the layout of the export's `vectors/` folder (numpy only, no
     TRACE_DIR/sample_NNNN/potentials.csv            class,potential  output potentials
     TRACE_DIR/summary.csv                           sample,decision,early_decision (other columns ignored)
 
-NNNN is the golden sample number (4 digits). Any file may be missing: what is missing is not compared
+With front-end vectors in the export, also the front end's tables (the export's own layout):
+
+    TRACE_DIR/frontend/stream_NNNN/<table>.csv      bins, windows, gated, input (headers as in the export)
+
+compared row by row with frontend.npz (gated and input as sets with `unordered`); they come first in
+golden order (the front end feeds the network). NNNN is the golden sample number (4 digits). Any file may be missing: what is missing is not compared
 and is shown as such; a trace with nothing to compare, a file with a wrong header, a non-integer cell
 or a sample number outside the vectors is malformed (FormatError). Events are compared in order, or
 as sets with `unordered` (hardware may emit one window's events in another order). The first
@@ -24,7 +29,9 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert.errors import FormatError, UsageError
+from snnconvert.export import frontvec as FV
 from snnconvert.export.memfile import parse_csv_rows
+from snnconvert.export.vectors import first_difference
 from snnconvert.files import load_json, load_npz, resolve_inside
 
 EVENT_HEADER = ["addr", "t", "payload"]
@@ -43,8 +50,13 @@ class Divergence:
     expected: str
     got: str
     file: str
+    window: int | None = None     # front end: the row's window
 
     def message(self) -> str:
+        if self.layer == "frontend":
+            from snnconvert.export.verify import frontend_place
+            return (f"first mismatch: {frontend_place(self.sample, self.what, self.window, self.neuron)}: "
+                    f"expected {self.expected}, got {self.got} [{self.file}]")
         at = f", neuron {self.neuron}" + (f" {tuple(self.index)}" if self.index else "") if self.neuron is not None else ""
         what = {"events": "event", "potentials": "potential"}.get(self.what, self.what)
         return (f"first mismatch: sample {self.sample}, layer {self.layer}, {what}{at}: expected {self.expected}, "
@@ -131,6 +143,37 @@ def _diff_values(exp: np.ndarray, got: np.ndarray):
     return k, (str(int(exp[k])) if k < len(exp) else "nothing"), (str(int(got[k])) if k < len(got) else "nothing")
 
 
+def _compare_frontend(folder: Path, trace: Path, fe: dict, unordered: bool, note) -> None:
+    """The front end's tables of the trace (TRACE_DIR/frontend/stream_NNNN/<table>.csv) against frontend.npz."""
+    root = trace / FV.FOLDER
+    if not root.is_dir():
+        return
+    fz = load_npz(resolve_inside(folder, fe["npz"], "file"))
+    n = len(fz["t0"])
+    known = {f"stream_{s:04d}" for s in range(n)}
+    extra = sorted(p.name for p in root.iterdir() if p.is_dir() and p.name not in known)
+    if extra:
+        raise FormatError(f"{root / extra[0]}: no golden front-end stream of that name (the export holds {n})")
+    for s in range(n):
+        for name in FV.CHECKED:
+            path = root / f"stream_{s:04d}" / f"{name}.csv"
+            if not path.is_file():
+                continue
+            _, got = _read_csv(path, FV.COLUMNS[name])
+            exp = FV.rows_of(fz, name, s)
+            if unordered and name in ("gated", "input"):
+                exp = exp[np.lexsort(exp.T[::-1])] if len(exp) else exp
+                got = got[np.lexsort(got.T[::-1])] if len(got) else got
+            k = first_difference(exp, got)
+            div = None
+            if k is not None:
+                window, pos = FV.locate(name, exp if k < len(exp) else got, k)
+                div = Divergence(s, "frontend", name, pos, None, FV.fmt_row(name, exp[k] if k < len(exp) else None),
+                                 FV.fmt_row(name, got[k] if k < len(got) else None),
+                                 path.relative_to(trace).as_posix(), window)
+            note(("frontend", name), s, div)
+
+
 def compare(export_dir, trace_dir, unordered: bool = False) -> CompareResult:
     """Compare the trace in `trace_dir` with the golden vectors of `export_dir` (see the module docstring)."""
     folder, trace = Path(export_dir), Path(trace_dir)
@@ -140,11 +183,11 @@ def compare(export_dir, trace_dir, unordered: bool = False) -> CompareResult:
         raise UsageError(f"trace folder not found: {trace}")
     man = load_json(folder / "manifest.json")
     try:
-        vec, layers = man["vectors"], man["layers"]
-        if not vec.get("count"):
+        vec, layers, fe = man["vectors"], man["layers"], man.get("frontend")
+        if not vec.get("count") and not fe:
             raise UsageError(f"{folder / 'manifest.json'}: the export holds no golden vectors to compare with")
-        z = load_npz(resolve_inside(folder, vec["npz"], "file"))
-        n = int(vec["count"])
+        z = load_npz(resolve_inside(folder, vec["npz"], "file")) if vec.get("count") else {}
+        n = int(vec.get("count") or 0)
         plan = [("input", "events", "input", tuple(man["input"]["shape"]))]
         for d in layers:
             shape = tuple(d["output_shape"])
@@ -156,7 +199,8 @@ def compare(export_dir, trace_dir, unordered: bool = False) -> CompareResult:
     except (KeyError, TypeError, AttributeError) as exc:
         raise FormatError(f"{folder / 'manifest.json'}: missing or invalid field ({type(exc).__name__}: {exc})") from None
     plan = [p for p in plan if p[1] == "events" and f"{p[2]}.events" in z or p[1] == "potentials" and p[2] in z]
-    plan.append(("output", "potentials", "potentials", None))
+    if n:
+        plan.append(("output", "potentials", "potentials", None))
     known = {f"sample_{s:04d}" for s in range(n)}
     extra = sorted(p.name for p in trace.iterdir() if p.is_dir() and p.name.startswith("sample_") and p.name not in known)
     if extra:
@@ -168,9 +212,11 @@ def compare(export_dir, trace_dir, unordered: bool = False) -> CompareResult:
                    for r in rows}
         if any(s < 0 or s >= n for s in summary):
             raise FormatError(f"{trace / 'summary.csv'}: sample numbers must lie in 0..{n - 1}")
-    stats = {(p[0], p[1]): [0, 0, None] for p in plan}
-    stats[("output", "decision")] = [0, 0, None]
-    stats[("output", "early_decision")] = [0, 0, None]
+    stats = {("frontend", t): [0, 0, None] for t in (FV.CHECKED if fe else ())}
+    stats.update({(p[0], p[1]): [0, 0, None] for p in plan})
+    if n:
+        stats[("output", "decision")] = [0, 0, None]
+        stats[("output", "early_decision")] = [0, 0, None]
     res = CompareResult(samples=n, unordered=unordered)
 
     def note(key, s, div):
@@ -183,6 +229,8 @@ def compare(export_dir, trace_dir, unordered: bool = False) -> CompareResult:
         if div is not None and res.first is None:
             res.first = div
 
+    if fe:
+        _compare_frontend(folder, trace, fe, unordered, note)
     for s in range(n):
         sdir = trace / f"sample_{s:04d}"
         for layer, what, key, shape in plan:

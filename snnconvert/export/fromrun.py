@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert import arith
-from snnconvert.errors import UsageError
+from snnconvert.errors import UsageError, check_int
 from snnconvert.intnet import IntNetwork
 from snnconvert.settings.export import ExportSettings
 
@@ -37,13 +37,15 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
                     csv: bool | None = None, intel_hex: bool | None = None, inputs=None,
                     progress: bool = True, settings: ExportSettings | None = None, dataset=None,
                     coe_mif: bool | None = None, pack_bits: int | None = None, verilog: bool | None = None,
-                    c_model: bool = False) -> Path:
+                    c_model: bool = False, frontend_vectors: int | None = None, frontend_events=None) -> Path:
     """Export the network in `net_dir` to `out_dir`; returns the manifest path.
 
     recipe: the resolved recipe (default: net_dir/recipe.toml). settings: its checked [export] section
     (default: built from the recipe). vectors/csv/intel_hex/coe_mif/pack_bits/verilog: None keeps the
     setting. inputs: an NPZ path to use instead of the data set's test split. dataset: the recipe's
     data set, if already loaded. c_model: also write the C99 model under c/ (listed in the manifest).
+    frontend_vectors: front-end vectors of that many test recordings (None keeps the setting);
+    frontend_events: an events file to make them from instead (one stream; `frontend_source`).
     """
     from snnconvert import recipe as recipe_mod
     from snnconvert.export.writer import export_network
@@ -65,6 +67,9 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
     intel_hex = settings.intel_hex if intel_hex is None else intel_hex
     opts = {k: getattr(settings, k) if v is None else v
             for k, v in (("coe_mif", coe_mif), ("pack_bits", pack_bits), ("verilog", verilog))}
+    n_fe = settings.frontend_vectors if frontend_vectors is None else check_int(
+        frontend_vectors, "frontend_vectors", "export", 0)
+    fe, dataset = frontend_source(net, recipe, n_fe, frontend_events, dataset, progress)
     if inputs is not None:
         x, y = load_inputs(inputs, net)
     elif recipe is None:
@@ -73,7 +78,46 @@ def export_from_run(net_dir, out_dir, recipe: dict | None = None, vectors: int |
         x, y = test_inputs(net, recipe, progress, dataset)
     return export_network(net, out_dir, x, y, vectors=vectors, recipe=recipe, csv=csv, intel_hex=intel_hex,
                           progress=progress, hardware_estimate=_hardware_estimate(net_dir),
-                          c_model=c_model, **opts)
+                          c_model=c_model, frontend=fe, **opts)
+
+
+def frontend_source(net: IntNetwork, recipe: dict | None, count: int, events=None, dataset=None, progress=True):
+    """(frontvec.FrontEndSource or None (count 0, no events file), the data set (loaded here when needed)).
+
+    events: one events file (read like `snnconvert classify` reads a recording); else `count` recordings of
+    the test split of `dataset`, picked round-robin over the classes (vectors.pick_samples); index = the
+    recording's position in the test split. The parameters come from the recipe's [frames] section."""
+    from snnconvert.export.frontvec import FrontEndSource, check_network
+    from snnconvert.export.vectors import pick_samples
+    from snnconvert.frontend import FrontEnd
+    if not count and events is None:
+        return None, dataset
+    if recipe is None:
+        raise UsageError("front-end vectors need the recipe's [frames] section; the network folder holds no recipe.toml")
+    fr = recipe["frames"]
+    if fr["window"] != "burst":
+        raise UsageError(f"front-end vectors need frames.window = \"burst\" (the front end's windows); the recipe "
+                         f"has {fr['window']!r}")
+    check_network(FrontEnd.from_section(fr, 1, 1), net.input_shape, net.input_q)   # before any data is read
+    if events is not None:
+        from snnconvert.events import read_events
+        side = int(recipe["data"]["sensor_side"])
+        stream = read_events(events, default_sensor=(side, side), time_unit=recipe["data"]["time_unit"])
+        params = FrontEnd.from_section(fr, stream.width, stream.height)
+        return FrontEndSource(params, [stream], np.zeros(1, np.int64), np.full(1, -1, np.int64),
+                              f"events file {Path(events).name}"), dataset
+    if dataset is None:
+        from snnconvert import data
+        dataset = data.load_dataset(recipe, progress=progress)
+    recs = dataset.recordings
+    if recs is None:
+        raise UsageError("front-end vectors need the data set's recordings (or --frontend-events FILE)")
+    te = np.asarray(dataset.split_index["test"], np.int64)
+    labels = np.asarray(recs.labels, np.int64)[te]
+    pick = pick_samples(te.size, count, labels)
+    params = FrontEnd.from_section(fr, recs.width, recs.height)
+    return FrontEndSource(params, [recs[int(te[i])][0] for i in pick.tolist()], pick, labels[pick],
+                          "test split of the recipe's data set (index: position in the test split)"), dataset
 
 
 def _hardware_estimate(net_dir: Path) -> dict | None:

@@ -19,11 +19,12 @@ from snnconvert.export.memfile import hex_digits, signed_bits, unsigned_bits
 from snnconvert.intnet import LAYER_ATTRS, NETWORK_ATTRS, IntLayer, IntNetwork, network_from_fields
 
 FORMAT = "snnconvert-export"
-VERSION = 1
+VERSION = 2
+READS = (1, 2)   # version 1: no front-end vectors (field `frontend` absent)
 
 MANIFEST_FIELDS = {
     "format": "always \"snnconvert-export\": what this folder is",
-    "version": "manifest format version (this build reads 1)",
+    "version": "manifest format version (this build writes 2 and reads 1 and 2; 2 added `frontend`)",
     "created": "UTC time of the export (ISO 8601); the only field that differs between two exports of the same network",
     "coding": "spike coding: payload (one event carries a p-bit value), ttfs (the value is carried by the spike's time step) or binary (p = 1)",
     "coding_words": "the coding in one sentence",
@@ -54,6 +55,9 @@ MANIFEST_FIELDS = {
                          "conversion: per layer and total memory bits, block RAMs, bus widths, cycles, latency, "
                          "samples/s and energy, with the [hardware] settings and the model's assumptions (null when "
                          "the network folder holds no metrics.json)",
+    "frontend": "the front end and its golden vectors (null when the export has none): version, the integer "
+                "parameters (params), the rules in words, counts, source, NPZ and CSV names and columns; the fields "
+                "are described in the `frontend` tables",
 }
 
 LAYER_FIELDS = {
@@ -127,8 +131,10 @@ _LIMIT_WORDS = {"saturate": "saturation (a clip to [-2^(b-1), 2^(b-1)-1])", "wra
 def fields_markdown() -> str:
     """The three field tables as markdown, for the README."""
     parts = []
+    from snnconvert.export.frontvec import FRONTEND_FIELDS, PARAM_FIELDS
     for title, fields in (("manifest.json", MANIFEST_FIELDS), ("each entry of `layers`", LAYER_FIELDS),
-                          ("each entry of a layer's `tables`", TABLE_FIELDS)):
+                          ("each entry of a layer's `tables`", TABLE_FIELDS), ("`frontend`", FRONTEND_FIELDS),
+                          ("`frontend.params`", PARAM_FIELDS)):
         parts.append(f"Fields of {title}:\n\n| field | meaning |\n|---|---|")
         parts += [f"| `{k}` | {v.replace('|', '/')} |" for k, v in fields.items()]
         parts.append("")
@@ -204,8 +210,10 @@ def _rule(L: IntLayer, coding: str) -> str:
 
 
 def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors: dict,
-                   tables_npz: str, created: str, hardware_estimate: dict | None = None) -> dict:
-    """The manifest dict. `tables`: {layer index: {kind: spec with file names}}; `files`: path -> sha256."""
+                   tables_npz: str, created: str, hardware_estimate: dict | None = None,
+                   frontend: dict | None = None) -> dict:
+    """The manifest dict. `tables`: {layer index: {kind: spec with file names}}; `files`: path -> sha256;
+    `frontend`: frontvec.manifest_entry of the front-end vectors, or None."""
     ttfs = net.coding == "ttfs"
     layers = []
     facts = layer_facts(net, [layer_id(i, L.name) for i, L in enumerate(net.layers)], vectors.get("peak_events"),
@@ -262,7 +270,7 @@ def build_manifest(net: IntNetwork, tables: dict, files: dict[str, str], vectors
         "event_order": ("by time step, then by address" if ttfs else "by address, all at window end (t = 0)"),
         "event_columns": ["addr", "t", "payload"],
         "layers": layers, "tables_npz": tables_npz, "vectors": vectors, "files": files,
-        "hardware_estimate": hardware_estimate,
+        "hardware_estimate": hardware_estimate, "frontend": frontend,
     }
 
 
@@ -294,8 +302,9 @@ def network_from_manifest(man: dict, arrays: dict, name: str = "manifest.json", 
     try:
         if man.get("format") != FORMAT:
             raise FormatError(f"{name}: not an snnconvert export (format={man.get('format')!r})")
-        if man.get("version") != VERSION:
-            raise FormatError(f"{name}: format version {man.get('version')!r} is not supported (this build reads {VERSION})")
+        if man.get("version") not in READS:
+            raise FormatError(f"{name}: format version {man.get('version')!r} is not supported "
+                              f"(this build reads {' and '.join(map(str, READS))})")
         if not isinstance(man["layers"], list):
             fail("layers", name, "a list of layer objects", repr(man["layers"]), "field", FormatError)
         layers, tables, ids = [], [], []

@@ -8,7 +8,11 @@ Checks, in this order (the first failure found is the one reported):
 3. vectors: the network rebuilt from manifest + memory files is re-simulated by the reference
    simulator on every golden input; every stream's events, the potentials and the decisions must
    equal vectors.npz and the CSV files exactly;
-4. sha256 of every listed file (a changed file whose values still agree is reported last).
+4. front-end vectors (when the manifest has `frontend`): the front end (snnconvert.frontend) re-run on
+   the raw events of frontend.npz with the manifest's parameters; its rate bins, window boundaries,
+   gated input events, input events and frames must equal frontend.npz and the CSV files exactly,
+   and the CSV raw events must equal the NPZ's;
+5. sha256 of every listed file (a changed file whose values still agree is reported last).
 Nothing is written to the folder.
 """
 
@@ -21,6 +25,7 @@ import numpy as np
 
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int, check_shape, check_str, fail
 from snnconvert.export import fpga
+from snnconvert.export import frontvec as FV
 from snnconvert.export import manifest as M
 from snnconvert.export import vectors as V
 from snnconvert.export.memfile import parse_csv_rows, parse_csv_table, parse_intel_hex, parse_mem
@@ -36,7 +41,7 @@ class Mismatch:
     table: `expected` is the value the other copies of the table agree on, `got` what `file` holds.
     sha256: `expected` is the manifest's digest, `got` the file's.
     """
-    kind: str                      # table | event | layer_potential | potential | decision | early_decision | directed | sha256
+    kind: str                      # table | event | layer_potential | potential | decision | early_decision | directed | frontend | sha256
     file: str                      # file (relative to the folder) holding the wrong or disagreeing value
     line: int | None = None        # 1-based line in `file`, when it is a text file
     sample: int | None = None
@@ -45,9 +50,13 @@ class Mismatch:
     index: list | None = None      # (c, y, x) of the neuron, or the table index
     expected: object = None
     got: object = None
+    window: int | None = None      # frontend: window of the row (layer holds the table, sample the stream, neuron the row)
 
     def message(self) -> str:
         at = f"{self.file}" + (f" line {self.line}" if self.line else "")
+        if self.kind == "frontend":
+            return f"first mismatch: {frontend_place(self.sample, self.layer, self.window, self.neuron)}: " \
+                   f"expected {self.expected}, got {self.got} [{at}]"
         if self.kind == "table":
             return (f"table mismatch in {at}: layer {self.layer}, word {self.neuron} {self.index}: "
                     f"expected {self.expected}, got {self.got}")
@@ -78,6 +87,7 @@ class VerifyResult:
     first_mismatch: Mismatch | None = None
     mismatches: int = 0                                # count of disagreeing places (each counted once per check)
     sha256_failures: list = field(default_factory=list)
+    streams: int = 0                                   # front-end streams re-run
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -87,7 +97,8 @@ class VerifyResult:
 
     def summary(self) -> str:
         if self.passed:
-            return (f"verify: passed: {self.samples} samples, {self.layers} layers, {self.events} events and "
+            fe = f", {self.streams} front-end streams" if self.streams else ""
+            return (f"verify: passed: {self.samples} samples{fe}, {self.layers} layers, {self.events} events and "
                     f"{self.words} table words match bit-exactly")
         more = f" ({self.mismatches} mismatching places in all)" if self.mismatches > 1 else ""
         return f"verify: FAILED: {self.first_mismatch.message()}{more}"
@@ -360,6 +371,91 @@ def _check_vectors(ck: _Checker, man: dict, net, progress: bool) -> int:
     return n
 
 
+def frontend_place(stream, table, window, k) -> str:
+    """'stream 0, front end gated, window 1, event 3' (k: row within the window, or within the stream)."""
+    what = {"events": "raw event", "bins": "bin", "gated": "event", "input": "input event", "frames": "pixel"}
+    place = f"stream {stream}, front end {table}"
+    if window is not None:
+        place += f", window {window}"
+    return place + (f", {what[table]} {k}" if table in what and k is not None else "")
+
+
+def _frontend_diff(ck: _Checker, s: int, name: str, exp: np.ndarray, got: np.ndarray, file: str, lines) -> None:
+    """First differing row of stream s's table `name` (golden `exp` from `file` against the re-run `got`)."""
+    ck.events += len(exp)
+    k = V.first_difference(exp, got)
+    if k is None:
+        return
+    side = exp if k < len(exp) else got
+    window, pos = FV.locate(name, side, k)
+    ck.fail(Mismatch("frontend", file, int(lines[k]) if lines is not None and k < len(lines) else None, sample=s,
+                     layer=name, neuron=pos, window=window,
+                     expected=FV.fmt_row(name, exp[k] if k < len(exp) else None),
+                     got=FV.fmt_row(name, got[k] if k < len(got) else None)))
+
+
+def _check_frontend(ck: _Checker, man: dict, net) -> int:
+    """Re-run the front end on the raw events of frontend.npz; compare every table (module docstring, 4)."""
+    fe = man.get("frontend")
+    if fe is None:
+        return 0
+    owner = str(ck.folder / MANIFEST)
+    if not isinstance(fe, dict):
+        fail("frontend", owner, "an object or null", repr(fe), "field", FormatError)
+    if fe.get("version") != FV.VERSION:
+        raise FormatError(f"{owner}: front-end vector version {fe.get('version')!r} is not supported "
+                          f"(this build reads {FV.VERSION})")
+    params = FV.params_from_manifest(fe["params"], owner)
+    n = check_int(fe["streams"], "frontend.streams", owner, 0, None, "field", FormatError)
+    npz_name = check_str(fe["npz"], "frontend.npz", owner, "field", FormatError)
+    z = load_npz(resolve_inside(ck.folder, npz_name, "file"))
+    where = ck.folder / npz_name
+    for key, width in [(t, len(FV.COLUMNS[t]) + 1) for t in FV.TABLES] + [("t0", None), ("stream_index", None),
+                                                                           ("label", None), ("frames", None)]:
+        if key not in z:
+            raise FormatError(f"{where}: array {key!r} is missing")
+        a = np.asarray(z[key])
+        if a.dtype.kind not in "iu" or (width and (a.ndim != 2 or a.shape[1] != width)):
+            raise FormatError(f"{where}: {key!r} must be an int table of {width} columns; got {a.dtype} {a.shape}")
+    if np.asarray(z["t0"]).shape != (n,):
+        raise FormatError(f"{where}: 't0' must hold one value per stream ({n})")
+    csv = bool(fe.get("csv_folder"))
+    frames = np.asarray(z["frames"], np.int64)
+    done = 0
+    for s in range(n):
+        raw = FV.rows_of(z, "events", s)
+        if csv:
+            rel = f"{FV.stream_folder(s)}/events.csv"
+            rows, lines = parse_csv_rows(ck.text(rel), FV.COLUMNS["events"], str(ck.folder / rel))
+            _frontend_diff(ck, s, "events", rows, raw, rel, lines)
+        ev = np.zeros(len(raw), [("t", "<i8"), ("x", "<i8"), ("y", "<i8"), ("p", "<i8")])
+        for j, c in enumerate(FV.COLUMNS["events"]):
+            ev[c] = raw[:, j]
+        try:
+            got = FV.run_stream(ev, params, net.coding, net.input_q)
+        except UsageError as exc:
+            raise FormatError(f"{where}: the raw events of stream {s}: {exc}") from None
+        if int(z["t0"][s]) != got["t0"]:
+            ck.fail(Mismatch("frontend", npz_name, sample=s, layer="t0", expected=int(z["t0"][s]), got=got["t0"]))
+        for name in FV.CHECKED:
+            _frontend_diff(ck, s, name, FV.rows_of(z, name, s), got[name], npz_name, None)
+            if csv:
+                rel = f"{FV.stream_folder(s)}/{name}.csv"
+                rows, lines = parse_csv_rows(ck.text(rel), FV.COLUMNS[name], str(ck.folder / rel))
+                _frontend_diff(ck, s, name, rows, got[name], rel, lines)
+        mine = frames[done:done + len(got["frames"])]
+        if mine.shape != got["frames"].shape:
+            raise FormatError(f"{where}: 'frames' must hold one (C, size, size) frame per window row")
+        bad = np.argwhere(mine != got["frames"])
+        if len(bad):
+            w, c, i, j = (int(v) for v in bad[0])
+            ck.fail(Mismatch("frontend", npz_name, sample=s, layer="frames", window=w, neuron=None,
+                             expected=f"frame[{c}, {i}, {j}] = {int(mine[w, c, i, j])}",
+                             got=str(int(got["frames"][w, c, i, j]))))
+        done += len(got["frames"])
+    return n
+
+
 def read_manifest(out_dir) -> tuple[Path, dict]:
     """(folder, manifest object) of the export folder `out_dir`; UsageError/FormatError when absent or not an object."""
     folder = Path(out_dir)
@@ -385,10 +481,11 @@ def verify(out_dir, progress: bool = True) -> VerifyResult:
         net = M.network_from_manifest(man, arrays, name=str(folder / MANIFEST),
                                       tables_name=f"the memory files of {folder}")
         n = _check_vectors(ck, man, net, progress)
+        streams = _check_frontend(ck, man, net)
     except (KeyError, TypeError, IndexError) as exc:
         raise FormatError(f"{folder / MANIFEST}: missing or invalid field ({type(exc).__name__}: {exc})") from None
     sha_bad = [rel for rel in sorted(files) if sha256_bytes(data[rel]) != files[rel]]
     for rel in sha_bad:
         ck.fail(Mismatch("sha256", rel, expected=files[rel], got=sha256_bytes(data[rel])))
     return VerifyResult(passed=ck.first is None, samples=n, layers=len(net.layers), events=ck.events, words=ck.words,
-                        first_mismatch=ck.first, mismatches=ck.count, sha256_failures=sha_bad)
+                        first_mismatch=ck.first, mismatches=ck.count, sha256_failures=sha_bad, streams=streams)

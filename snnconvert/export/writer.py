@@ -14,6 +14,7 @@ import numpy as np
 
 from snnconvert.errors import FormatError, UsageError, check_bool, check_int, fail
 from snnconvert.export import fpga
+from snnconvert.export import frontvec as fvec
 from snnconvert.export import manifest as M
 from snnconvert.export.memfile import format_csv, format_intel_hex, format_mem
 from snnconvert.export.directed import KINDS as DIRECTED_KINDS
@@ -69,7 +70,8 @@ def _check_inputs(net, x_int, labels, vectors):
 def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vectors: int = 16,
                    recipe: dict | None = None, csv: bool = True, intel_hex: bool = False,
                    progress: bool = True, coe_mif: bool = True, pack_bits: int = 0, verilog: bool = False,
-                   directed: bool = True, hardware_estimate: dict | None = None, c_model: bool = False) -> Path:
+                   directed: bool = True, hardware_estimate: dict | None = None, c_model: bool = False,
+                   frontend=None) -> Path:
     """Write the export folder `out_dir` and return its manifest path.
 
     x_int: int64 (N, C, H, W) input payloads of the test samples; `vectors` of them (round-robin over
@@ -82,6 +84,8 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
     Both need vectors > 0; their files are listed in the manifest with their sha256 like every other.
     directed: with vectors > 0, also the directed vectors of export/directed.py after the test samples.
     hardware_estimate: the cost model's estimate of the network (metrics.json), copied to the manifest.
+    frontend: a frontvec.FrontEndSource: also the front-end vectors (frontend.npz, frontend/ with csv) of its
+    streams, and the front end's parameters in the manifest's `frontend` field.
     An existing export in `out_dir` is replaced (its files that the new export lacks are removed, and
     its c/ and verilog/ folders as a whole: MODEL_FOLDERS); a non-empty folder that holds no export is refused.
     """
@@ -141,6 +145,14 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
         if csv:
             files.update(csv_files(net, arrays))
             vec_info.update(csv_folder="vectors", sample_folder="vectors/sample_NNNN (NNNN = sample, 4 digits)")
+    fe_info = None
+    if frontend is not None:
+        fvec.check_network(frontend.params, net.input_shape, net.input_q)
+        fe_arrays = fvec.frontend_vectors(frontend, net.coding, net.input_q)
+        files[fvec.NPZ] = npz_bytes(fe_arrays)
+        if csv:
+            files.update(fvec.csv_files(fe_arrays))
+        fe_info = fvec.manifest_entry(frontend, fe_arrays, csv)
     if verilog:
         from snnconvert.export import verilog as verilog_mod
         ids = [M.layer_id(i, L.name) for i, L in enumerate(net.layers)]
@@ -151,7 +163,7 @@ def export_network(net: IntNetwork, out_dir, x_int: np.ndarray, labels=None, vec
 
     man = M.build_manifest(net, specs, {k: sha256_bytes(v) for k, v in sorted(files.items())}, vec_info, TABLES_NPZ,
                            created=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-                           hardware_estimate=hardware_estimate)
+                           hardware_estimate=hardware_estimate, frontend=fe_info)
     # Every path is checked before anything changes: a refusal leaves the folder as it was.
     targets = {rel: resolve_inside(out, rel, "file") for rel in files}
     stale = [old_files[rel] for rel in sorted(set(old_files) - set(files))]

@@ -16,6 +16,8 @@ KEYS: dict[str, Key] = {
     "pack_bits": Key(0, "int", "0 = one table word per memory word, as the .mem files; e.g. 32 or 36 packs narrow words to a block-RAM width",
                      lo=0, hi=4096),
     "verilog": Key(False, "bool", "off: the Verilog model and testbench are for hardware bring-up; the .mem files and vectors suffice otherwise"),
+    "frontend_vectors": Key(0, "int", "0: front-end vectors only serve hardware that builds the front end too; a few test recordings then cover its windows and gate",
+                            lo=0, hi=100000),
 }
 
 
@@ -32,3 +34,4 @@ class ExportSettings(Section):
     coe_mif: bool
     pack_bits: int
     verilog: bool
+    frontend_vectors: int

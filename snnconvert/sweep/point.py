@@ -53,13 +53,31 @@ def net_fingerprint(net) -> str:
     return files.fingerprint(items)
 
 
-def lean(dataset):
+def lean(dataset, calib_samples: int | None = None):
     """The dataset without its raw recordings: workers need the frames only, and every task
-    ships its arguments to a worker process."""
+    ships its arguments to a worker process.
+
+    calib_samples: post-training points read nothing of the training split but the calibration
+    subset (convert.calibrate.calibration_subset, evenly spaced); given, the training split is cut
+    to exactly that subset and the validation split dropped, so a task of an MNIST-size set ships a
+    few MB instead of hundreds. The converter's own subset of the cut split is the whole cut split
+    (every index of 0..n-1 when n <= calib_samples), so the networks are identical."""
+    import copy
+
+    from snnconvert.convert.calibrate import calibration_subset
     if dataclasses.is_dataclass(dataset):
         drop = {f.name: None for f in dataclasses.fields(dataset) if f.name in ("recordings", "windows")}
-        return dataclasses.replace(dataset, **drop) if drop else dataset
-    return dataset
+        dataset = dataclasses.replace(dataset, **drop) if drop else dataset
+    if calib_samples is None or len(dataset.train[1]) <= calib_samples:
+        return dataset
+    X, y = dataset.train
+    idx = calibration_subset(len(y), calib_samples)
+    cut = {"train": (X[idx], y[idx]), "val": (X[:0], y[:0])}
+    if dataclasses.is_dataclass(dataset):
+        return dataclasses.replace(dataset, **cut)
+    out = copy.copy(dataset)
+    out.train, out.val = cut["train"], cut["val"]
+    return out
 
 
 @dataclasses.dataclass
