@@ -304,14 +304,18 @@ def windows(t, params: FrontEnd, t0: int | None = None) -> np.ndarray:
 # --- subsample, threshold and gate ------------------------------------------------------------
 
 
+def _check_on_sensor(x: np.ndarray, y: np.ndarray, width: int, height: int) -> None:
+    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
+        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+
+
 def grid_address(x, y, p, width: int, height: int, size: int, polarity: bool) -> np.ndarray:
     """Flat grid address (c*size + i)*size + j, int64, with i = y*size//height, j = x*size//width
     (floor division, by lookup tables) and c = 1 for OFF (p < 0) when `polarity`, else 0.
     Addresses must lie on the width x height sensor (refused otherwise)."""
     x = np.asarray(x)
     y = np.asarray(y)
-    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
-        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+    _check_on_sensor(x, y, width, height)
     # the address of every sensor pixel (row-major; OFF pixels after them), then one gather: the flat
     # sensor index y * width + x (+ width * height for OFF) is built in place in one int64 array and
     # replaced by its address (np.take into itself: each element is read before it is written)
@@ -385,9 +389,7 @@ def _grid_keys(x, y, p, params: FrontEnd) -> np.ndarray:
     """`pixel_index` in the smallest unsigned dtype that holds C*size*size addresses. A side that is a
     multiple of size divides by side // size (equal to v*size//side); others go through a table."""
     x, y = np.asarray(x), np.asarray(y)
-    if x.size and (int(x.min()) < 0 or int(x.max()) >= params.width or int(y.min()) < 0
-                   or int(y.max()) >= params.height):
-        raise UsageError(f"event addresses must lie on the {params.width}x{params.height} sensor of the front end")
+    _check_on_sensor(x, y, params.width, params.height)
     plane = params.size * params.size
     dt = np.uint16 if params.channels * plane <= 1 << 16 else np.uint32
     parts = []
