@@ -11,6 +11,11 @@ speed does not depend on how well it is trained), converted at 4/4 bits, payload
                   goal >= 100
     RTF as recorded    = the recording's own duration / processing time (printed for reference)
 
+    floors             = what no implementation of the same work escapes on this machine, timed in the
+                  same run: one np.bincount over the events' grid addresses plus the rate counter's
+                  binary searches (the front end touches every event at least once), and the network's
+                  weighted sums alone (torch conv2d/linear in float32 on every window, no requantization)
+
 One core: torch.set_num_threads(1), BLAS limited to one thread, one process. Best of a few repeats.
 Run: .venv/bin/python bench/classify.py [--stimuli K] [--epochs E] [--repeats R]
 """
@@ -57,7 +62,7 @@ def main(argv=None) -> int:
         t0 = time.perf_counter()
         stream = read_events(d / "long.npz")
         t_read = time.perf_counter() - t0
-    best_fe = best_net = float("inf")
+    best_fe = best_net = best_fe_floor = best_net_floor = float("inf")
     for _ in range(args.repeats):
         t0 = time.perf_counter()
         rec, frames = classify_recording(net, r, stream, "long.npz")
@@ -65,6 +70,8 @@ def main(argv=None) -> int:
         out = decide(net, frames)
         t2 = time.perf_counter()
         best_fe, best_net = min(best_fe, t1 - t0), min(best_net, t2 - t1)
+        best_fe_floor = min(best_fe_floor, front_end_floor(stream, r))
+        best_net_floor = min(best_net_floor, network_floor(net, len(frames)))
     n = len(stream)
     duration = made["duration_us"] / 1e6
     total = best_fe + best_net
@@ -75,10 +82,45 @@ def main(argv=None) -> int:
     print(f"front end {best_fe * 1e3:.1f} ms ({n / best_fe / 1e6:.1f} M events/s), network {best_net * 1e3:.1f} ms "
           f"({found / best_net:,.0f} windows/s), total {total * 1e3:.1f} ms; reading the file {t_read * 1e3:.1f} ms "
           f"(not counted)")
+    floor = best_fe_floor + best_net_floor
+    print(f"floors: one bincount + the rate counter's searches {best_fe_floor * 1e3:.1f} ms, the network's weighted "
+          f"sums alone {best_net_floor * 1e3:.1f} ms: RTF at most {(n / SENSOR_RATE) / floor:.1f}x at these floors "
+          f"(front end {best_fe / best_fe_floor:.1f}x its floor, network {best_net / best_net_floor:.1f}x)")
     print(f"RTF as recorded: {duration / total:,.0f}x real time")
     print(f"measured RTF at 1 M events/s {rtf:.1f}x real time, goal >= {GOAL_RTF:.0f}x: "
           f"{'met' if rtf >= GOAL_RTF else 'NOT met'}")
     return 0
+
+
+def front_end_floor(stream, r) -> float:
+    """Seconds for the least work of the front end: the rate counter's binary searches on the
+    event times and one np.bincount over every event's grid address (contiguous columns given)."""
+    import numpy as np
+    t = np.ascontiguousarray(stream.t)
+    size = int(r["frames"]["size"])
+    x, y = stream.x.astype(np.int64), stream.y.astype(np.int64)
+    key = (y * size // stream.height) * size + x * size // stream.width  # grid address, computed untimed
+    t0 = time.perf_counter()
+    np.searchsorted(t, np.arange(int(t[0]), int(t[-1]) + 1, int(r["frames"]["bin_us"])))
+    np.bincount(key)
+    return time.perf_counter() - t0
+
+
+def network_floor(net, n: int) -> float:
+    """Seconds for the network's weighted sums alone: each conv/dense layer on n windows in float32
+    (vectorized.weighted_sum without bias, pooling or requantization)."""
+    import torch
+
+    from snnconvert.sim.vectorized import weighted_sum
+    shape, total = tuple(net.input_shape), 0.0
+    for L in net.layers:
+        if L.kind in ("conv", "dense"):
+            a = torch.ones((n, *shape))
+            t0 = time.perf_counter()
+            weighted_sum(L, a)
+            total += time.perf_counter() - t0
+        shape = tuple(L.out_shape)
+    return total
 
 
 if __name__ == "__main__":

@@ -439,28 +439,32 @@ def quantize_input(x, q: int):
 
 
 def requantize_float(v, m0, n, q: int, channel_axis: int = 1):
-    """a = clamp(floor((V * M0 + 2^(n-1)) * 2^-n), 0, Q) on float64 tensors holding integers.
+    """a = clamp(floor((V * M0 + 2^(n-1)) * 2^-n), 0, Q) on float64 (or float32) tensors holding integers.
 
-    The same integers as `requantize` while |V| * M0 + 2^(n-1) < 2^53: every product and sum is
-    an integer float64 holds exactly, scaling by 2^-n is exact, and floor equals the arithmetic
-    right shift. Callers check that bound (`float_requantize_ok`); it lets a simulator stay in
-    floating point, where CPU kernels are fastest, without changing a single payload.
+    The same integers as `requantize` while |V| * M0 + 2^(n-1) < 2^53 (float32: 2^24): every product
+    and sum is an integer the type holds exactly, scaling by 2^-n is exact, and floor equals the
+    arithmetic right shift. Callers check that bound (`float_requantize_ok`, with significand=24 for
+    float32); it lets a simulator stay in floating point, where CPU kernels are fastest, without
+    changing a single payload. The constants take v's dtype (a float32 tensor is not promoted).
     """
     shape = [1] * v.ndim
     shape[channel_axis] = -1
     if _is_torch(v):
         torch = _torch()
-        m0b = torch.as_tensor(np.asarray(m0, dtype=np.float64)).reshape(shape)
-        sc = torch.as_tensor(np.ldexp(1.0, -np.asarray(n, dtype=np.int64))).reshape(shape)
-        half = torch.as_tensor(np.ldexp(1.0, np.asarray(n, dtype=np.int64) - 1)).reshape(shape)
-        out = v * m0b                                   # one temporary, then in place
+        dt = v.dtype if v.dtype in (torch.float32, torch.float64) else torch.float64
+        m0b = torch.as_tensor(np.asarray(m0, dtype=np.float64)).reshape(shape).to(dt)
+        sc = torch.as_tensor(np.ldexp(1.0, -np.asarray(n, dtype=np.int64))).reshape(shape).to(dt)
+        half = torch.as_tensor(np.ldexp(1.0, np.asarray(n, dtype=np.int64) - 1)).reshape(shape).to(dt)
+        out = v.to(dt) * m0b                            # one temporary, then in place
         return out.add_(half).mul_(sc).floor_().clamp_(0, int(q))
-    m0b = np.asarray(m0, dtype=np.float64).reshape(shape)
+    dt = v.dtype if np.asarray(v).dtype in (np.float32, np.float64) else np.float64
+    m0b = np.asarray(m0, dtype=np.float64).reshape(shape).astype(dt)
     n = np.asarray(n, dtype=np.int64).reshape(shape)
-    return np.clip(np.floor((v * m0b + np.ldexp(1.0, n - 1)) * np.ldexp(1.0, -n)), 0, int(q))
+    return np.clip(np.floor((v * m0b + np.ldexp(1.0, n - 1).astype(dt)) * np.ldexp(1.0, -n).astype(dt)), 0, int(q))
 
 
-def float_requantize_ok(acc_bits: int, m0, n) -> bool:
-    """True when |V| * M0 + 2^(n-1) < 2^53 for every |V| < 2^(acc_bits-1) (see requantize_float)."""
+def float_requantize_ok(acc_bits: int, m0, n, significand: int = 53) -> bool:
+    """True when |V| * M0 + 2^(n-1) < 2^significand for every |V| < 2^(acc_bits-1) (see requantize_float):
+    significand 53 for float64, 24 for float32."""
     top = (1 << (int(acc_bits) - 1)) * int(np.max(m0, initial=0)) + (1 << (int(np.max(n, initial=1)) - 1))
-    return top < 1 << 53
+    return top < 1 << int(significand)

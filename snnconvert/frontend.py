@@ -179,19 +179,62 @@ def scan(counts, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
     open_k: a window is open during bin k (it opened at or before k and did not close at k).
     Relative thresholds follow the background of closed bins (a FIFO of the last B of them);
-    absolute ones are constants. lo_k <= hi_k always. One pass over the bins in Python integers.
+    absolute ones are constants. lo_k <= hi_k always.
+
+    Computed by whole-array passes (`_scan_arrays`): given a guess of the open bins, the background,
+    thresholds and hysteresis of every bin follow without a loop; the guess is refined until it
+    reproduces itself, which only the bin-by-bin result does (`_scan_loop`, the definition, used
+    when the iteration does not settle or int64 could overflow).
     """
     c = np.asarray(counts, np.int64)
     n = c.size
     if not params.relative:
         hi_c = params.upper_count
         lo_c = min(params.lower_count, hi_c)
+        hi, lo = np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64)
+        return hi, lo, _hysteresis(c, hi, lo)
+    b = params.background_bins
+    big = max(params.upper_16, params.lower_16, 1) * (max(int(c.sum()), b) + 1)
+    if n and big < 1 << 62:
         is_open = np.zeros(n, bool)
-        state = False
-        for k, v in enumerate(c.tolist()):
-            state = v >= lo_c if state else v >= hi_c
-            is_open[k] = state
-        return np.full(n, hi_c, np.int64), np.full(n, lo_c, np.int64), is_open
+        for _ in range(SCAN_ROUNDS):
+            hi, lo = _relative_thresholds(c, is_open, params)
+            nxt = _hysteresis(c, hi, lo)
+            if np.array_equal(nxt, is_open):
+                return hi, lo, is_open
+            is_open = nxt
+    return _scan_loop(c, params)
+
+
+SCAN_ROUNDS = 32  # refinements of the open-bin guess before `scan` falls back to the bin-by-bin loop
+
+
+def _relative_thresholds(c: np.ndarray, is_open: np.ndarray, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(hi_k, lo_k) of every bin for a given set of open bins: S_k = the sum of the last B counts of
+    closed bins before k (the closed-bin sequence's cumulative sum at two positions)."""
+    b = params.background_bins
+    closed = ~is_open
+    z = np.concatenate(([0], np.cumsum(c[closed])))          # z[m] = sum of the first m closed-bin counts
+    m = np.cumsum(closed) - closed                            # closed bins before bin k
+    s = np.maximum(z[m] - z[np.maximum(m - b, 0)], b)
+    den = SCALE * b
+    hi = params.upper_16 * s // den + 1
+    lo = np.minimum(-(-params.lower_16 * s // den), hi)
+    return hi, lo
+
+
+def _hysteresis(c: np.ndarray, hi: np.ndarray, lo: np.ndarray) -> np.ndarray:
+    """open_k = c_k >= hi_k if closed at k-1, else c_k >= lo_k (closed before bin 0), for lo <= hi:
+    a bin with c >= hi is open, one with c < lo closed, any other keeps the state of the bin before."""
+    up = c >= hi
+    decided = up | (c < lo)
+    last = np.maximum.accumulate(np.where(decided, np.arange(c.size), -1)) if c.size else np.zeros(0, np.int64)
+    return (last >= 0) & up[np.maximum(last, 0)]
+
+
+def _scan_loop(c: np.ndarray, params: FrontEnd) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The relative counter of `scan`, one bin at a time in Python integers (its definition)."""
+    n = c.size
     b = params.background_bins
     u, low, den = params.upper_16, params.lower_16, SCALE * b
     fifo = [0] * b  # the last B closed-bin counts (ring buffer), all 0 before t0
@@ -233,14 +276,13 @@ def window_bins(counts, params: FrontEnd) -> np.ndarray:
 
 
 def _merge(raw: np.ndarray, params: FrontEnd) -> np.ndarray:
-    merged: list[list[int]] = []
-    for a, b in raw.tolist():
-        if merged and a - merged[-1][1] < params.merge_bins:
-            merged[-1][1] = b
-        else:
-            merged.append([a, b])
-    out = np.asarray(merged, np.int64).reshape(-1, 2)
-    return out[out[:, 1] - out[:, 0] >= params.min_bins]
+    """Merge windows (sorted, disjoint) separated by fewer than merge_bins bins, then drop those
+    shorter than min_bins."""
+    raw = np.asarray(raw, np.int64).reshape(-1, 2)
+    if len(raw):
+        first = np.flatnonzero(np.r_[True, raw[1:, 0] - raw[:-1, 1] >= params.merge_bins])  # a group starts
+        raw = np.stack([raw[first, 0], raw[np.r_[first[1:] - 1, len(raw) - 1], 1]], axis=1)
+    return raw[raw[:, 1] - raw[:, 0] >= params.min_bins]
 
 
 def trace(t, params: FrontEnd, t0: int | None = None) -> dict:
@@ -262,14 +304,18 @@ def windows(t, params: FrontEnd, t0: int | None = None) -> np.ndarray:
 # --- subsample, threshold and gate ------------------------------------------------------------
 
 
+def _check_on_sensor(x: np.ndarray, y: np.ndarray, width: int, height: int) -> None:
+    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
+        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+
+
 def grid_address(x, y, p, width: int, height: int, size: int, polarity: bool) -> np.ndarray:
     """Flat grid address (c*size + i)*size + j, int64, with i = y*size//height, j = x*size//width
     (floor division, by lookup tables) and c = 1 for OFF (p < 0) when `polarity`, else 0.
     Addresses must lie on the width x height sensor (refused otherwise)."""
     x = np.asarray(x)
     y = np.asarray(y)
-    if x.size and (int(x.min()) < 0 or int(x.max()) >= width or int(y.min()) < 0 or int(y.max()) >= height):
-        raise UsageError(f"event addresses must lie on the {width}x{height} sensor of the front end")
+    _check_on_sensor(x, y, width, height)
     # the address of every sensor pixel (row-major; OFF pixels after them), then one gather: the flat
     # sensor index y * width + x (+ width * height for OFF) is built in place in one int64 array and
     # replaced by its address (np.take into itself: each element is read before it is written)
@@ -331,38 +377,121 @@ def columns(events) -> Columns:
     return Columns(*(np.ascontiguousarray(v) for v in (t, x, y, p)))
 
 
-def gate(events, window, params: FrontEnd) -> np.ndarray:
-    """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
-    payload), in emission order (module docstring). events: an EventStream, an array with fields
-    t, x, y, p, or their `columns` (fastest for many windows of one long stream), time-ordered;
-    window: (t_start, t_end), holding t_start <= t < t_end."""
-    t, x, y, p = (events.t, events.x, events.y, events.p) if isinstance(events, Columns) else \
-        (np.asarray(getattr(events, "events", events))[k] for k in ("t", "x", "y", "p"))
-    t1, t2 = int(window[0]), int(window[1])
-    a, b = np.searchsorted(t, [t1, t2], side="left")  # cost O(log E): only the window's events are touched
-    tw = _times(t[a:b])  # checked sorted within the window
-    idx = pixel_index(x[a:b], y[a:b], p[a:b], params)  # (E,) grid address per window event
+def _fields(events) -> tuple:
+    """(t, x, y, p) of Columns, an EventStream or a structured event array (views, not copies)."""
+    if isinstance(events, Columns):
+        return events.t, events.x, events.y, events.p
+    ev = np.asarray(getattr(events, "events", events))
+    return ev["t"], ev["x"], ev["y"], ev["p"]
+
+
+def _grid_keys(x, y, p, params: FrontEnd) -> np.ndarray:
+    """`pixel_index` in the smallest unsigned dtype that holds C*size*size addresses. A side that is a
+    multiple of size divides by side // size (equal to v*size//side); others go through a table."""
+    x, y = np.asarray(x), np.asarray(y)
+    _check_on_sensor(x, y, params.width, params.height)
     plane = params.size * params.size
-    if params.mode == "binary":
-        key = idx.astype(np.uint16) if params.channels * plane <= 1 << 16 else idx  # 16 bits: a radix sort
-        order = np.argsort(key, kind="stable")  # events grouped by pixel, in time order within a pixel
-        grouped = idx[order]
-        start = np.searchsorted(grouped, grouped, side="left")  # first position of each event's pixel
-        rank = np.arange(grouped.size) - start  # 0-based count of earlier events of the same pixel
-        emit = np.sort(order[rank == params.threshold - 1])  # the threshold-th event of each pixel, time order
-        addr, times, payload = idx[emit], tw[emit], np.ones(emit.size, np.int64)
+    dt = np.uint16 if params.channels * plane <= 1 << 16 else np.uint32
+    parts = []
+    for v, side, mult in ((y, params.height, params.size), (x, params.width, 1)):
+        if side % params.size == 0:
+            g = (v // (side // params.size)).astype(dt)
+        else:
+            g = (np.arange(side, dtype=np.int64) * params.size // side).astype(dt)[v]
+        parts.append(g * dt(mult) if mult != 1 else g)
+    key = parts[0] + parts[1]
+    if params.channels == 2:
+        key += (np.asarray(p) < 0).astype(dt) * dt(plane)
+    return key
+
+
+def _window_events(events, windows, params: FrontEnd, check_order: bool = True):
+    """The events of every window, concatenated window after window: (first (K,), lengths (K,),
+    grid keys of the concatenated events, t). check_order refuses times that decrease inside a window."""
+    t, x, y, p = _fields(events)
+    if t.size and t.dtype.kind not in "iu":
+        raise UsageError(f"event times must be a 1-D integer array; got shape {t.shape}, dtype {t.dtype}")
+    w = np.asarray(windows, np.int64).reshape(-1, 2)
+    first = np.searchsorted(t, w[:, 0], side="left")
+    lengths = np.maximum(np.searchsorted(t, w[:, 1], side="left") - first, 0)
+    if check_order and t.size > 1:
+        down = t[1:] < t[:-1]
+        if down.any():  # a decrease at i (t[i+1] < t[i]) matters when both events lie in one window
+            cum = np.r_[0, np.cumsum(down)]
+            inside = lengths > 1
+            if np.any(cum[(first + lengths - 1)[inside]] - cum[first[inside]] > 0):
+                raise UsageError("event times must be sorted (non-decreasing)")
+    if len(w) == 1:
+        sl = slice(int(first[0]), int(first[0] + lengths[0]))
+        keys = _grid_keys(x[sl], y[sl], p[sl], params)
     else:
-        n = np.bincount(idx, minlength=params.channels * plane)
-        addr = np.flatnonzero(n)
-        times = np.full(addr.size, t2, np.int64)
-        payload = pixel_values(n[addr], params)
+        sl = [slice(int(a), int(a + n)) for a, n in zip(first.tolist(), lengths.tolist())]
+        keys = _grid_keys(*(np.concatenate([v[s] for s in sl]) if sl else v[:0] for v in (x, y, p)), params)
+    return first, lengths, keys, t
+
+
+def _counts(keys: np.ndarray, lengths: np.ndarray, params: FrontEnd) -> np.ndarray:
+    """(K, C*size*size) int64: n[k, a] = events of grid address a in window k (one bincount)."""
+    k, plane_all = len(lengths), params.channels * params.size * params.size
+    if k == 1:
+        return np.bincount(keys, minlength=plane_all).reshape(1, plane_all)
+    dt = np.int32 if k * plane_all < 1 << 31 else np.int64
+    wk = np.repeat(np.arange(k, dtype=dt) * dt(plane_all), lengths) + keys
+    return np.bincount(wk, minlength=k * plane_all).reshape(k, plane_all)
+
+
+def window_counts(events, windows, params: FrontEnd) -> np.ndarray:
+    """(K, C, size, size) int64: n[k, c, i, j] = events of grid pixel (c, i, j) in window k, t_start <= t < t_end.
+
+    events: as for `gate` (Columns fastest), time-ordered; windows: (K, 2) [t_start, t_end) in us, any
+    order. pixel_values(n) is each window's training frame, which equals frame(gate(...)) of the window;
+    its nonzero entries are the events the gate emits. One bincount over all windows' events."""
+    _, lengths, keys, _ = _window_events(events, windows, params)
+    return _counts(keys, lengths, params).reshape(-1, params.channels, params.size, params.size)
+
+
+def gate_windows(events, windows, params: FrontEnd) -> tuple[np.ndarray, np.ndarray]:
+    """(gated, offsets): the `gate` of every window at once; gated[offsets[k]:offsets[k + 1]] equals
+    gate(events, windows[k], params). windows: (K, 2) [t_start, t_end) in us, any order.
+
+    binary: the threshold-th event of each (window, pixel) group. The events of all windows are
+    concatenated window after window (time order inside) and stably sorted by pixel, so each pixel's
+    events stand grouped by window in time order; with n[k, a] the group sizes, the group of
+    (k, a) starts at start[a] + sum_{k' < k} n[k', a], and its threshold-th event sits threshold - 1
+    further. Sorting the picked positions restores window order, then time, then arrival order."""
+    first, lengths, keys, t = _window_events(events, windows, params)
+    w = np.asarray(windows, np.int64).reshape(-1, 2)
+    n = _counts(keys, lengths, params)                                     # (K, A)
+    plane, size = params.size * params.size, params.size
+    if params.mode == "binary":
+        order = np.argsort(keys, kind="stable")                            # 16-bit keys: a radix sort
+        start = np.r_[0, np.cumsum(n.sum(axis=0))[:-1]]                    # (A,) first place of each address
+        before = np.cumsum(n, axis=0) - n                                  # (K, A) events in earlier windows
+        k, addr = np.nonzero(n >= params.threshold)
+        pick = np.sort(order[start[addr] + before[k, addr] + params.threshold - 1])
+        cat_first = np.cumsum(lengths) - lengths                           # (K,) window starts, concatenated
+        k = np.searchsorted(cat_first, pick, side="right") - 1  # an empty window shares its start with the next
+        addr = keys[pick].astype(np.int64)
+        times = t[pick - cat_first[k] + first[k]].astype(np.int64)
+        payload = np.ones(pick.size, np.int64)
+    else:
+        k, addr = np.nonzero(n)
+        times, payload = w[k, 1], pixel_values(n[k, addr], params)
     out = np.zeros(addr.size, GATED_DTYPE)
     out["t"] = times
     out["c"] = addr // plane
-    out["y"] = addr % plane // params.size
-    out["x"] = addr % params.size
+    out["y"] = addr % plane // size
+    out["x"] = addr % size
     out["payload"] = payload
-    return out
+    return out, np.r_[0, np.cumsum(np.bincount(k, minlength=len(w)))]
+
+
+def gate(events, window, params: FrontEnd) -> np.ndarray:
+    """The input events of one window, GATED_DTYPE (t, x = grid column, y = grid row, c = channel,
+    payload), in emission order (module docstring). events: an EventStream, an array with fields
+    t, x, y, p, or their `columns`, time-ordered; window: (t_start, t_end), holding t_start <= t < t_end.
+    Many windows of one stream: `gate_windows` (one pass for all)."""
+    return gate_windows(events, [(int(window[0]), int(window[1]))], params)[0]
 
 
 def frame(gated, params: FrontEnd) -> np.ndarray:

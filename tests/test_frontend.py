@@ -211,3 +211,85 @@ def test_bad_inputs_refused():
     with pytest.raises(UsageError, match="one event per grid pixel"):
         g = np.zeros(2, frontend.GATED_DTYPE)
         frontend.frame(g, fe())
+
+
+# --- all windows at once against the per-event rule ------------------------------------------------
+
+
+def _gate_by_event(t, x, y, p, windows, params):
+    """The gate's stated rule, one event at a time (module docstring of frontend): per window, count
+    each grid pixel's events in arrival order; binary emits an event's time when its pixel's count
+    reaches the threshold; count/polarity emit every counted pixel at the window end by address
+    (channel, row, column) with min(n, max_count)."""
+    out = []
+    for t1, t2 in windows:
+        n, emitted = {}, []
+        for ti, xi, yi, pi in zip(t.tolist(), x.tolist(), y.tolist(), p.tolist()):
+            if not t1 <= ti < t2:
+                continue
+            c = 1 if params.mode == "polarity" and pi < 0 else 0
+            a = (c, yi * params.size // params.height, xi * params.size // params.width)
+            n[a] = n.get(a, 0) + 1
+            if params.mode == "binary" and n[a] == params.threshold:
+                emitted.append((ti, a[2], a[1], a[0], 1))
+        if params.mode != "binary":
+            emitted = [(t2, a[2], a[1], a[0], min(k, params.max_count)) for a, k in sorted(n.items())]
+        out.append(emitted)
+    return out
+
+
+@pytest.mark.parametrize("mode", frontend.MODES)
+@pytest.mark.parametrize("threshold", [1, 2, 3])
+@pytest.mark.parametrize("w, h, size, seed", [(10, 7, 4, 0), (8, 8, 4, 1), (6, 9, 3, 2)])
+def test_all_windows_at_once_equal_the_per_event_rule(mode, threshold, w, h, size, seed):
+    rng = np.random.default_rng(seed * 10 + threshold)
+    e = 400
+    t = np.sort(rng.integers(0, 300, e))  # repeated times: arrival order decides
+    x, y, p = rng.integers(0, w, e), rng.integers(0, h, e), rng.choice([-1, 1], e)
+    s = stream(t, x, y, p, w, h)
+    params = fe(width=w, height=h, size=size, mode=mode, threshold=threshold, max_count=2)
+    # adjacent, empty, overlapping, out of order, beyond the stream, and starting before it
+    windows = [(0, 40), (40, 41), (41, 41), (50, 120), (100, 180), (30, 60), (290, 400), (350, 360), (-20, 5)]
+    want = _gate_by_event(t, x, y, p, windows, params)
+    gated, offsets = frontend.gate_windows(frontend.columns(s), windows, params)
+    counts = frontend.window_counts(s, windows, params)
+    assert offsets.tolist() == np.cumsum([0] + [len(g) for g in want]).tolist()
+    for k, win in enumerate(windows):
+        got = gated[offsets[k]:offsets[k + 1]]
+        assert [tuple(v) for v in got.tolist()] == want[k], (k, win)
+        assert np.array_equal(frontend.gate(s, win, params), got)
+        assert np.array_equal(frontend.frame(got, params), frontend.pixel_values(counts[k], params))
+        assert np.count_nonzero(frontend.pixel_values(counts[k], params)) == len(want[k])
+    assert sum(map(len, want)) > 20  # the streams emit
+
+
+def test_gate_refuses_times_that_decrease_inside_a_window_only():
+    s = np.array([(5, 0, 0, 1), (3, 1, 0, 1), (8, 0, 0, 1), (9, 0, 0, 1)],
+                 [("t", "<i8"), ("x", "<u2"), ("y", "<u2"), ("p", "i1")])
+    assert frontend.gate(s, (6, 10), fe(threshold=1)).size == 1  # 5 > 3 lies outside [6, 10)
+    with pytest.raises(UsageError, match="sorted"):
+        frontend.gate(s, (0, 10), fe())
+    with pytest.raises(UsageError, match="sorted"):
+        frontend.gate_windows(s, [(6, 10), (0, 10)], fe())
+
+
+@pytest.mark.parametrize("b, upper, lower, seed", [(4, 128, 32, 0), (1, 40, 40, 1), (8, 64, 8, 2), (32, 128, 32, 3),
+                                                   (3, 16, 200, 4)])
+def test_scan_by_arrays_equals_the_bin_by_bin_loop(b, upper, lower, seed, monkeypatch):
+    # bursts on a noisy background: the whole-array passes must settle on the loop's result (without it)
+    rng = np.random.default_rng(seed)
+    c = rng.poisson(2, 3000)
+    for k in rng.integers(0, 2990, 40):
+        c[k:k + rng.integers(1, 8)] += rng.integers(5, 60)
+    params = fe(relative=True, background_bins=b, upper_16=upper, lower_16=lower)
+    want = frontend._scan_loop(np.asarray(c, np.int64), params)
+    monkeypatch.setattr(frontend, "_scan_loop", None)
+    got = frontend.scan(c, params)
+    assert all(np.array_equal(g, w) for g, w in zip(got, want))
+    assert len(frontend._runs(got[2])) > 10
+    # absolute thresholds: the hysteresis rule bin by bin
+    state, opened = False, []
+    for v in c.tolist():
+        state = v >= 2 if state else v >= 9
+        opened.append(state)
+    assert frontend.scan(c, fe(upper_count=9, lower_count=2))[2].tolist() == opened

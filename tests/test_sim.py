@@ -179,22 +179,27 @@ def test_simulators_reject_bad_inputs(bad, match):
         R.run_sample(net, bad[0])
 
 
-@pytest.mark.parametrize("mbits,vmax", [(16, 2**20), (31, 2**21), (8, 2**40)])
-def test_float_requantize_equals_the_integer_shift(mbits, vmax):
-    rng = np.random.default_rng(mbits)
+@pytest.mark.parametrize("mbits,vmax,significand", [(16, 2**20, 53), (31, 2**21, 53), (8, 2**40, 53),
+                                                     (12, 2**8, 24), (10, 2**9, 24), (8, 127, 24), (16, 2**10, 24)])
+def test_float_requantize_equals_the_integer_shift(mbits, vmax, significand):
+    rng = np.random.default_rng(mbits + vmax)
     v = rng.integers(-vmax, vmax, size=(50, 4, 3))                               # (N, C, S)
     v[0, :, 0] = 0
     m0, n = arith.fixed_point_multiplier(rng.random(4) * 0.01 + 1e-4, bits=mbits)
     v[1] = ((2 * rng.integers(0, 20, size=(4, 3)) + 1) << (n - 1)[:, None]) // np.maximum(m0, 1)[:, None]  # near halves
+    v[1] = np.clip(v[1], -vmax, vmax - 1)
     acc = int(np.ceil(np.log2(vmax + 1))) + 1                                    # magnitude bits plus a sign bit
-    ok = arith.float_requantize_ok(acc, m0, n)
-    # float64 is exact on integers below 2^53 (IEEE 754-2008 binary64, 53-bit significand)
-    assert ok == (vmax * int(m0.max()) + 2 ** (int(n.max()) - 1) < 2**53)
+    ok = arith.float_requantize_ok(acc, m0, n, significand)
+    # float64 is exact on integers below 2^53, float32 below 2^24 (IEEE 754-2008 binary64 and binary32:
+    # 53- and 24-bit significands)
+    assert ok == (vmax * int(m0.max()) + 2 ** (int(n.max()) - 1) < 2**significand)
+    npdt, tdt = (np.float64, torch.float64) if significand == 53 else (np.float32, torch.float32)
+    want = arith.requantize(v, m0, n, 255)
     if ok:
-        want = arith.requantize(v, m0, n, 255)
-        assert np.array_equal(arith.requantize_float(v.astype(np.float64), m0, n, 255), want)
-        got = arith.requantize_float(torch.from_numpy(v).double(), m0, n, 255)
-        assert torch.equal(got.to(torch.int64), torch.from_numpy(want))
+        got = arith.requantize_float(v.astype(npdt), m0, n, 255)
+        assert got.dtype == npdt and np.array_equal(got, want)
+        got = arith.requantize_float(torch.from_numpy(v).to(tdt), m0, n, 255)
+        assert got.dtype == tdt and torch.equal(got.to(torch.int64), torch.from_numpy(want))
 
 
 @pytest.mark.parametrize("kind,coding", [("conv_max", "payload"), ("conv_avg", "ttfs")])

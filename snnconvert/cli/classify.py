@@ -108,8 +108,10 @@ def front_end_of(recipe: dict, stream):
 
 
 def classify_recording(net, recipe: dict, stream, path) -> tuple[Recording, list[np.ndarray]]:
-    """The front end on one stream: windows, gated events and their frames (the network runs later,
-    once over the windows of every recording)."""
+    """The front end on one stream: windows, gated event counts and frames (the network runs later,
+    once over the windows of every recording). All windows at once: the frames are pixel_values of
+    `frontend.window_counts` (equal to frame(gate(...)) of each window), the gated events per window
+    are their nonzero pixels."""
     from snnconvert import frontend
     params = front_end_of(recipe, stream)
     if (params.channels, params.size, params.size) != tuple(net.input_shape):
@@ -119,14 +121,13 @@ def classify_recording(net, recipe: dict, stream, path) -> tuple[Recording, list
     cols = frontend.columns(stream)
     tr = frontend.trace(cols.t, params)
     rec = Recording(Path(path), len(stream), int(cols.t[-1] - cols.t[0]) if len(stream) else 0, tr)
-    frames = []
-    for s, e in tr["windows"].tolist():
-        g = frontend.gate(cols, (s, e), params)
-        n_in = int(np.searchsorted(cols.t, e) - np.searchsorted(cols.t, s))
-        rec.rows.append({"file": str(path), "window": len(rec.rows) + 1, "start_us": s, "end_us": e,
-                         "events_in": n_in, "events_gated": int(g.size)})
-        frames.append(frontend.frame(g, params))
-    return rec, frames
+    win = tr["windows"]
+    frames = frontend.pixel_values(frontend.window_counts(cols, win, params), params)  # (K, C, S, S)
+    n_in = np.diff(np.searchsorted(cols.t, win, side="left"), axis=1)[:, 0]
+    gated = np.count_nonzero(frames, axis=(1, 2, 3))  # the gate emits one event per nonzero pixel
+    rec.rows = [{"file": str(path), "window": k + 1, "start_us": s, "end_us": e, "events_in": a, "events_gated": g}
+                for k, ((s, e), a, g) in enumerate(zip(win.tolist(), n_in.tolist(), gated.tolist()))]
+    return rec, list(frames)
 
 
 def decide(net, frames: list[np.ndarray]) -> dict:
@@ -135,7 +136,7 @@ def decide(net, frames: list[np.ndarray]) -> dict:
     if not frames:
         return {"decision": [], "margin": [], "early": [], "step": []}
     x = np.clip(np.stack(frames), 0, net.input_q)
-    res = simulate(net, x, record=False)
+    res = simulate(net, x, record=False, stats=False)  # decisions, potentials and ttfs early decisions only
     pot = np.sort(res.potentials, axis=1)
     margin = pot[:, -1] - pot[:, -2] if pot.shape[1] > 1 else pot[:, -1]
     return {"decision": res.decisions.tolist(), "margin": margin.tolist(), "early": res.early_decisions.tolist(),

@@ -196,7 +196,9 @@ def _run(net: IntNetwork, a: torch.Tensor, record: bool, limit: bool, kernel: st
                 # requantize is monotone in V, so pooling V first gives the same payloads on 1/n of the values
                 v = max_pool(v, nxt.kernel, nxt.stride, nxt.padding)
                 pooled_early = True
-            if fast:
+            if fast and v.dtype == torch.float32 and arith.float_requantize_ok(acc, L.m0, L.shift, 24):
+                a = arith.requantize_float(v, L.m0, L.shift, L.q_out)  # exact in float32: no float64 round trip
+            elif fast:
                 a = arith.requantize_float(v.to(torch.float64), L.m0, L.shift, L.q_out).to(torch.float32)  # (N, O, ...)
             else:   # the float path is not proven exact here: integers only (v may be a float32 from the kernel)
                 a = arith.requantize(v.to(torch.int64), L.m0, L.shift, L.q_out).to(torch.float32)
