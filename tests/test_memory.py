@@ -92,3 +92,26 @@ def test_simulator_batches_hold_a_bounded_number_of_values(net_and_inputs, monke
     whole = vectorized.simulate(net, x, kernel=kernel, batch=len(x))   # one batch: the same integers
     assert np.array_equal(res.potentials, whole.potentials) and np.array_equal(res.spike_counts, whole.spike_counts)
     assert all(np.array_equal(a, b) for a, b in zip(res.payloads, whole.payloads))
+
+
+def test_points_taken_back_from_a_slow_worker_are_not_handed_out_again(monkeypatch):
+    """A worker that has not started any point when the list runs out: this process takes the queued points
+    back and runs them itself. Each hand-out pickles the task (model and data), so handing them out again
+    while the worker stays slow grew the suite's memory by gigabytes."""
+    from concurrent.futures import Future
+
+    from snnconvert.sweep.executor import LocalPool
+
+    class NeverStarts:
+        submits = 0
+
+        def submit(self, fn, *args):
+            NeverStarts.submits += 1
+            if NeverStarts.submits > 50:
+                raise AssertionError("points are handed out again and again")
+            return Future()                           # pending until cancelled: the worker never takes it
+
+    pool = LocalPool(2)
+    monkeypatch.setattr(pool, "_workers", lambda: NeverStarts())
+    done = sorted(pool.map_points(lambda p: p, list(range(6))))
+    assert done == list(range(6)) and NeverStarts.submits <= 2 * 2

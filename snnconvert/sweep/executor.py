@@ -132,9 +132,10 @@ class LocalPool:
         todo = collections.deque(points)
         finished: queue.Queue = queue.Queue()
         inflight: dict = {}   # future -> point
+        closing = False       # points taken back from the workers' queue are never handed out again
 
         def submit():
-            while todo and len(inflight) < 2 * (self.jobs - 1):
+            while not closing and todo and len(inflight) < 2 * (self.jobs - 1):
                 p = todo.pop()
                 f = ex.submit(task, p)
                 inflight[f] = p
@@ -158,6 +159,10 @@ class LocalPool:
                 if todo:
                     yield task(todo.popleft())
                 elif inflight:
+                    # the list is empty: take back what no worker has started, and run it here. Handing it
+                    # out again would cancel and resubmit in a loop while a worker is slow to start (each
+                    # submit pickles the task: memory grew by gigabytes before this rule)
+                    closing = True
                     for f in [f for f in inflight if f.cancel()]:
                         todo.append(inflight.pop(f))
                     if not todo:
