@@ -115,3 +115,14 @@ def test_points_taken_back_from_a_slow_worker_are_not_handed_out_again(monkeypat
     monkeypatch.setattr(pool, "_workers", lambda: NeverStarts())
     done = sorted(pool.map_points(lambda p: p, list(range(6))))
     assert done == list(range(6)) and NeverStarts.submits <= 2 * 2
+
+
+def _leak_limit():
+    from joblib.externals.loky import process_executor
+    return process_executor._MAX_MEMORY_LEAK_SIZE
+
+
+def test_workers_tolerate_the_growth_of_a_large_point():
+    from snnconvert.sweep.executor import WORKER_GROWTH_BYTES, LocalPool
+    # loky's own limit is 300 MB (joblib's loky process_executor); a sweep worker's is WORKER_GROWTH_BYTES
+    assert LocalPool(2)._workers().submit(_leak_limit).result(timeout=120) == WORKER_GROWTH_BYTES

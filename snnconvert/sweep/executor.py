@@ -41,6 +41,11 @@ WORKER_BYTES = 512 * 2**20
 # workers stay alive a few minutes so a resumed or extended sweep does not pay their start again.
 WORKER_ENV = {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1"}
 WORKER_IDLE_SECONDS = 300
+# loky restarts a worker whose resident memory grew by more than 300 MB since its first task, taking it
+# for a leak. A point of an MNIST-size set legitimately holds a few hundred MB of simulation chunks that
+# the allocator keeps for the next point, so workers were restarted (a torch import each) with a warning
+# on stderr after most points. A worker may grow by this much before it counts as leaking.
+WORKER_GROWTH_BYTES = 2 * 2**30
 
 
 def usable_cpus() -> int:
@@ -95,6 +100,12 @@ class Serial:
             yield task(p)
 
 
+def _worker_start() -> None:
+    """In each worker, before its first task: the growth loky tolerates (WORKER_GROWTH_BYTES)."""
+    from joblib.externals.loky import process_executor
+    process_executor._MAX_MEMORY_LEAK_SIZE = WORKER_GROWTH_BYTES
+
+
 def _warm() -> None:
     """Import what a point needs, so a worker's start overlaps the parent's loading."""
     import sklearn.metrics  # noqa: F401  (about a CPU second on its own)
@@ -116,7 +127,8 @@ class LocalPool:
 
     def _workers(self):
         from joblib.externals.loky import get_reusable_executor
-        return get_reusable_executor(max_workers=self.jobs - 1, timeout=WORKER_IDLE_SECONDS, env=WORKER_ENV)
+        return get_reusable_executor(max_workers=self.jobs - 1, timeout=WORKER_IDLE_SECONDS, env=WORKER_ENV,
+                                     initializer=_worker_start)
 
     def start(self) -> None:
         """Start the workers now, without waiting."""
