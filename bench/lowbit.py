@@ -11,7 +11,9 @@ statistics) side by side at 2/2. Nothing is tuned on the test split.
 Your own held-out IDX files (e.g. handwritten digits in the MNIST layout, which the project does not ship):
 --idx-train IMAGES,LABELS --idx-test IMAGES,LABELS adds the sets "idx" (the idx_files recipe) and
 "idx-tiny" (the tiny budget recipe): the first 8,000 training images train, the next 800 validate, every
-test image tests; pixels at or above half scale are set, as in the recipes.
+test image tests; pixels at or above half scale are set, as in the recipes. --select measures on training
+images 50,000..59,999 instead (disjoint from the 8,800): choose methods and settings there, and report the
+held-out test once per final method.
 Run: .venv/bin/python bench/lowbit.py [--sets digits,digits28,tiny,idx,idx-tiny] [--epochs E]
 """
 
@@ -59,8 +61,14 @@ def run_points(name: str, recipe: dict, ds, points, log) -> dict:
     return out
 
 
-def idx_dataset(train_files: str, test_files: str, n_train: int = 8000, n_val: int = 800):
-    """Binary (N, 1, 28, 28) frames from IDX files: train/val from the training files, test from the test files."""
+# the selection split: training images 50,000..59,999, disjoint from the 8,800 that train and validate
+SELECT = (50000, 60000)
+
+
+def idx_dataset(train_files: str, test_files: str, n_train: int = 8000, n_val: int = 800, select: bool = False):
+    """Binary (N, 1, 28, 28) frames from IDX files: train/val from the training files, test from the test files.
+    With `select`, the "test" split is the selection split (training images 50,000..59,999) instead: methods
+    and settings are chosen on it, and the held-out test files are not read."""
     import hashlib
     from types import SimpleNamespace
     import numpy as np
@@ -71,7 +79,9 @@ def idx_dataset(train_files: str, test_files: str, n_train: int = 8000, n_val: i
         X, y = read_idx(images)[lo:hi], read_idx(labels)[lo:hi].astype(np.int64)
         return (X >= 128)[:, None].astype(np.float32), y       # at or above half of 255: one spike
     tr, va = frames(train_files, 0, n_train), frames(train_files, n_train, n_train + n_val)
-    te = frames(test_files, 0, None)
+    te = frames(train_files, *SELECT) if select else frames(test_files, 0, None)
+    if select and len(te[1]) != SELECT[1] - SELECT[0]:
+        raise SystemExit(f"--select needs {SELECT[1]} training images; {train_files} has {SELECT[0] + len(te[1])}")
     h = hashlib.sha256(b"".join(a.tobytes() for a in (*tr, *va, *te))).hexdigest()[:16]
     return SimpleNamespace(train=tr, val=va, test=te, classes=[str(i) for i in range(10)], input_shape=(1, 28, 28),
                            input_q=1, fingerprint="idx-" + h)
@@ -85,6 +95,9 @@ def main(argv=None):
                     help="recipe overrides for every set (e.g. train.threads=1)")
     ap.add_argument("--idx-train", default="", metavar="IMAGES,LABELS", help="your own training IDX files")
     ap.add_argument("--idx-test", default="", metavar="IMAGES,LABELS", help="your own held-out test IDX files")
+    ap.add_argument("--select", action="store_true",
+                    help="measure the idx sets on the selection split (training images 50,000..59,999) instead of "
+                         "the held-out test files: choose methods and settings with this, never on the test")
     ap.add_argument("--points", default="all", help="'all', or 'goals' for the goal points only (4/4, 3/3, 2/2)")
     args = ap.parse_args(argv)
     import digits28
@@ -114,8 +127,9 @@ def main(argv=None):
     if {"idx", "idx-tiny"} & set(sets):
         if not (args.idx_train and args.idx_test):
             ap.error("the sets idx and idx-tiny need --idx-train and --idx-test")
-        ids = idx_dataset(args.idx_train, args.idx_test)
-        log(f"[idx] {len(ids.train[1])} train, {len(ids.val[1])} validation, {len(ids.test[1])} held-out test images")
+        ids = idx_dataset(args.idx_train, args.idx_test, select=args.select)
+        kind = "selection-split (training 50,000..59,999)" if args.select else "held-out test"
+        log(f"[idx] {len(ids.train[1])} train, {len(ids.val[1])} validation, {len(ids.test[1])} {kind} images")
     if "idx" in sets:
         r = recipe.load(ROOT / "recipes" / "idx_files.toml", [f"train.epochs={args.epochs}", *args.overrides])
         res["idx"] = run_points("idx", r, ids, points, log)
