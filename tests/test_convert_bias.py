@@ -9,16 +9,22 @@ import torch
 from torch import nn
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _convert_helpers import split, trained  # noqa: E402
+from _convert_helpers import split, trained
 
-from snnconvert import arith  # noqa: E402
-from snnconvert.convert import convert_model, fold  # noqa: E402
-from snnconvert.convert.calibrate import (MSE_CANDIDATES, activation_ranges, bias_shift, input_means, mse_range,
-                                          range_statistic)  # noqa: E402
-from snnconvert.errors import UsageError  # noqa: E402
-from snnconvert.settings.convert import parse_range_rule, parse_weight_rule  # noqa: E402
-from snnconvert.sim import simulate  # noqa: E402
-from snnconvert.sim.reference import run_batch  # noqa: E402
+from snnconvert import arith
+from snnconvert.convert import convert_model, fold
+from snnconvert.convert.calibrate import (
+    MSE_CANDIDATES,
+    activation_ranges,
+    bias_shift,
+    input_means,
+    mse_range,
+    range_statistic,
+)
+from snnconvert.errors import UsageError
+from snnconvert.settings.convert import parse_range_rule, parse_weight_rule
+from snnconvert.sim import simulate
+from snnconvert.sim.reference import run_batch
 
 torch.set_num_threads(1)
 
@@ -50,7 +56,7 @@ def test_bias_shift_of_a_dense_layer_by_hand():
 
 def test_converter_stores_the_corrected_bias():
     model = _dense_model(W1, B1, [[1.0], [-1.0]], [0.0, 0.0])
-    kw = dict(weight_bits=2, payload_bits=4, coding="payload", calibration="max")
+    kw = {"weight_bits": 2, "payload_bits": 4, "coding": "payload", "calibration": "max"}
     plain = convert_model(model, CAL, **kw)
     fixed = convert_model(model, CAL, **kw, bias_correction=True)
     l0, c0 = plain.layers[0], fixed.layers[0]

@@ -99,8 +99,8 @@ def activation_ranges(ops: list[FoldedOp], calib_x, rule: str, pct: float, act_m
             if i in collected:
                 collected[i].append(h.reshape(-1).numpy())
     ranges: list[float | None] = [None] * len(ops)
-    for i in collected:
-        allv = np.concatenate(collected[i]) if collected[i] else np.zeros(0)
+    for i, parts in collected.items():
+        allv = np.concatenate(parts) if parts else np.zeros(0)
         ranges[i] = range_statistic(allv, rule, pct, levels)
     for j, i in enumerate(hidden):
         if act_max is not None:
