@@ -29,7 +29,7 @@ def run_dir(tmp_path_factory):
 
 def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
     code = main(["convert", str(run_dir / "train"), "--weight-bits", "3", "--payload-bits", "2", "--coding", "ttfs",
-                 "--per-channel", "--calibration", "max", "--quiet"])
+                 "--per-channel", "--calibration", "max", "--bias-correction", "--quiet"])
     out = capsys.readouterr().out
     assert code == 0
     net_dir = run_dir / "net"
@@ -42,6 +42,7 @@ def test_convert_writes_the_network_metrics_recipe_and_plot(run_dir, capsys):
     assert m["max_spikes_per_neuron"] == 1 and m["energy_is_estimate"] is True and m["coding"] == "ttfs"
     conv = tomllib.loads((net_dir / "recipe.toml").read_text())["convert"]
     assert conv["weight_bits"] == 3 and conv["calibration"] == "max" and conv["per_channel"] is True
+    assert conv["bias_correction"] is True and net.meta["bias_correction"] is True
     assert (net_dir / "confusion.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"   # PNG signature (PNG spec)
 
 
@@ -114,7 +115,7 @@ def test_the_less_common_convert_options_reach_the_network(run_dir, tmp_path, ca
      "payload). Got 4 instead."),
     (["--multiplier-bits", "1"],
      "error: The 'multiplier_bits' parameter of convert must be an int in [2, 31]. Got 1 instead."),
-    (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max' or 'percentile:Q' "
+    (["--calibration", "pct:99"], "error: The 'calibration' parameter of convert must be 'max', 'mse' or 'percentile:Q' "
                                   "with Q in (0, 100]. Got 'pct:99' instead."),
 ])
 def test_convert_usage_errors(run_dir, argv, err, capsys):

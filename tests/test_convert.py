@@ -50,7 +50,7 @@ def test_unsupported_models_are_rejected_before_work(layers, match):
     ({"weight_bits": 17}, "The 'weight_bits' parameter of convert must be an int in [2, 16]. Got 17 instead."),
     ({"coding": "rate"}, "The 'coding' parameter of convert must be one of 'payload', 'ttfs', 'binary'. Got 'rate' instead."),
     ({"calibration": "percentile:0"},
-     "The 'calibration' parameter of convert must be 'max' or 'percentile:Q' with Q in (0, 100]. Got 'percentile:0' instead."),
+     "The 'calibration' parameter of convert must be 'max', 'mse' or 'percentile:Q' with Q in (0, 100]. Got 'percentile:0' instead."),
     ({"overflow": "clip"}, "The 'overflow' parameter of convert must be one of 'saturate', 'wrap'. Got 'clip' instead."),
 ])
 def test_parameters_are_validated_with_the_template(kw, msg):

@@ -15,9 +15,12 @@ def add_arguments(p) -> None:
     p.add_argument("--coding", metavar="CODING", help="payload | ttfs | binary (default: the recipe's); "
                    "binary sends 1-bit spikes, so it sets the payload bits to 1")
     p.add_argument("--per-channel", action="store_true", default=None, help="one weight scale per output channel")
-    p.add_argument("--calibration", metavar="RULE", help="activation range: max or percentile:Q (e.g. percentile:99.9)")
+    p.add_argument("--calibration", metavar="RULE", help="activation range: max, mse or percentile:Q (e.g. percentile:99.9)")
     p.add_argument("--weight-scale", metavar="RULE", help="weight range: max, percentile:Q or mean:C "
                    "(C times the mean |w|, for 2-3-bit grids)")
+    p.add_argument("--bias-correction", action=argparse.BooleanOptionalAction, default=None,
+                   help="shift each bias by the mean weight-grid error on the calibration frames (default: the "
+                        "recipe's, false; aware checkpoints are converted without it)")
     p.add_argument("--calib-samples", type=int, metavar="N", help="training samples used to calibrate the ranges")
     p.add_argument("--multiplier-bits", type=int, metavar="B", help="bits of the fixed-point multiplier M0")
     p.add_argument("--tolerance-pp", type=float, metavar="PP", help="conversion loss within tolerance, in points")

@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from snnconvert import arith
-from snnconvert.convert.calibrate import activation_ranges, calibration_subset
+from snnconvert.convert.calibrate import activation_ranges, calibration_subset, input_means
 from snnconvert.convert.fold import fold, folded_forward
 from snnconvert.convert.quantize import build_network
 from snnconvert.errors import UsageError, check_int
@@ -36,6 +36,9 @@ def convert_model(model, calib_x, settings: ConvertSettings | None = None, *, in
     events carry the frame's counts at their own width (ceil(log2(input_q + 1)) bits, at most 8;
     ttfs: an input window of input_q steps). With input_clip=True, Q_in = min(input_q, 2^p - 1), so
     every event of the network carries p bits, at the price of clipping counts the frame model saw.
+    With bias_correction=True each weighted layer's bias absorbs the mean error of its weight grid over
+    `calib_x` (`calibrate.bias_shift`); a conversion-aware model (ClipQuant activations or `act_max`) trained
+    on its grids already and is converted without it.
     """
     if settings is None:
         missing = [k for k in _REQUIRED if k not in keys]
@@ -53,13 +56,18 @@ def convert_model(model, calib_x, settings: ConvertSettings | None = None, *, in
     if calib_x.ndim != 4 or calib_x.shape[0] == 0:
         raise UsageError(f"calibration frames must have shape (N, C, H, W) with N >= 1; got {calib_x.shape}")
     p = s.payload_bits
-    ranges = activation_ranges(ops, calib_x, *s.calibration_rule, act_max=act_max, quiet=quiet)
+    ranges = activation_ranges(ops, calib_x, *s.calibration_rule, act_max=act_max, quiet=quiet,
+                               levels=arith.payload_max(p))
     q_in = min(int(input_q), arith.payload_max(p)) if s.input_clip else int(input_q)
+    # an aware model trained on its quantized weights: the grid error is part of what it learned
+    aware = act_max is not None or any(op.a_max is not None for op in ops)
+    correct = s.bias_correction and not aware
     net = build_network(ops, ranges, input_shape=calib_x.shape[1:], input_q=q_in,
                         weight_bits=s.weight_bits, payload_bits=p, coding=s.coding, per_channel=s.per_channel,
                         weight_rule=s.weight_rule, multiplier_bits=s.multiplier_bits,
-                        acc_limit_bits=s.accumulator_bits, overflow=s.overflow)
-    net.meta.update(calibration=s.calibration, weight_scale=s.weight_scale, calib_samples=int(calib_x.shape[0]),
+                        acc_limit_bits=s.accumulator_bits, overflow=s.overflow,
+                        input_means=input_means(ops, calib_x) if correct else None)
+    net.meta.update(bias_correction=correct, calibration=s.calibration, weight_scale=s.weight_scale, calib_samples=int(calib_x.shape[0]),
                     calib_fingerprint=fingerprint(calib_x), frame_input_q=int(input_q),
                     act_max=None if act_max is None else [float(a) for a in act_max])
     return net

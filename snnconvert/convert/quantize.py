@@ -5,6 +5,8 @@ Scales (s_0 = 1: frame values are the input payloads):
     s_in' = s_in / n                  after a sum pool of n inputs (the average pool's 1/n)
     W = quantize_weights(w, s_w, k)   B = round(b / (s_w * s_in'))
     M = s_w * s_in' / s_l = M0 * 2^-n (fixed point, Jacob et al. 2018)
+    b <- b - delta                    with bias correction on: delta = the mean weight-grid error of the
+                                      pre-activation over the calibration frames (calibrate.bias_shift)
     a_l = clamp((V * M0 + 2^(n-1)) >> n, 0, Q)      (arith.requantize; exact halves round up)
 
 Edge cases: a layer whose calibrated range is 0 gets M = 0 (it never fires) and s_l = 1 so
@@ -22,6 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from snnconvert import arith
+from snnconvert.convert.calibrate import bias_shift
 from snnconvert.convert.fold import FoldedOp
 from snnconvert.errors import UsageError
 from snnconvert.intnet import IntLayer, IntNetwork
@@ -33,8 +36,10 @@ def _out_hw(h: int, w: int, kernel, stride, padding) -> tuple[int, int]:
 
 def build_network(ops: list[FoldedOp], ranges: list, *, input_shape: tuple, input_q: int, weight_bits: int,
                   payload_bits: int, coding: str, per_channel: bool, weight_rule: tuple[str, float],
-                  multiplier_bits: int, acc_limit_bits: int, overflow: str) -> IntNetwork:
-    """Quantize every folded op; see the module docstring for the formulas."""
+                  multiplier_bits: int, acc_limit_bits: int, overflow: str,
+                  input_means: dict | None = None) -> IntNetwork:
+    """Quantize every folded op; see the module docstring for the formulas. `input_means`
+    (`calibrate.input_means`): correct each weighted op's bias for the mean error of its weight grid."""
     Q = arith.payload_max(payload_bits)
     shape = tuple(int(d) for d in input_shape)
     s_in, q_in, div = 1.0, int(input_q), 1
@@ -49,6 +54,10 @@ def build_network(ops: list[FoldedOp], ranges: list, *, input_shape: tuple, inpu
             w = op.weight
             s_w = arith.weight_scale(w, weight_bits, per_channel, weight_rule[0], weight_rule[1])     # (O,)
             W = arith.quantize_weights(w, s_w, weight_bits)
+            bias, shift = op.bias, None
+            if input_means is not None:
+                shift = bias_shift(op, s_w.reshape((-1,) + (1,) * (w.ndim - 1)) * W - w, input_means[i])
+                bias = op.bias - shift
             s_eff = s_in / div
             r = float(ranges[i])
             s_out = r / Q if r > 0 else 1.0
@@ -60,7 +69,7 @@ def build_network(ops: list[FoldedOp], ranges: list, *, input_shape: tuple, inpu
                 out_shape, kw = (w.shape[0],), {}
                 shape = (int(np.prod(shape)),)
             try:
-                B = arith.quantize_bias(op.bias, s_w, s_eff)
+                B = arith.quantize_bias(bias, s_w, s_eff)
                 acc = arith.accumulator_bits(int(np.prod(W.shape[1:])), int(np.abs(W).max(initial=0)), q_in,
                                              int(np.abs(B).max(initial=0)))
                 m0, n = arith.fixed_point_multiplier(M, multiplier_bits, acc_bits=acc)
@@ -71,6 +80,8 @@ def build_network(ops: list[FoldedOp], ranges: list, *, input_shape: tuple, inpu
                                  f"or 'calibration')") from None
             info = {"range": r, "s_in": s_eff, "s_out": s_out, "s_w": s_w.tolist(), "multiplier": M.tolist(),
                     "source_layers": op.source, "pool_divisor": div}
+            if shift is not None:
+                info["bias_shift"] = shift.tolist()
             layers.append(IntLayer(name=name, kind=op.kind, in_shape=shape, out_shape=out_shape, weight=W, bias=B,
                                    m0=m0, shift=n, q_in=q_in, q_out=Q, is_output=is_out, acc_bits=acc, info=info,
                                    **kw))

@@ -10,12 +10,17 @@ from snnconvert.schema import Key
 from snnconvert.settings import Section
 
 
-def parse_range_rule(value, key: str = "calibration", section: str = "convert") -> tuple[str, float]:
-    """Parse a range statistic: "max" -> ("max", 100.0); "percentile:Q" -> ("percentile", Q), 0 < Q <= 100."""
+def parse_range_rule(value, key: str = "calibration", section: str = "convert",
+                     mse: bool = True) -> tuple[str, float]:
+    """Parse a range statistic: "max" -> ("max", 100.0); "percentile:Q" -> ("percentile", Q), 0 < Q <= 100;
+    "mse" -> ("mse", 100.0), the range whose payload grid fits the calibration activations with the least
+    squared error (`convert.calibrate.range_statistic`; activations only: `mse=False` refuses it)."""
     check_str(value, key, section)
     text = value.strip()
     if text == "max":
         return "max", 100.0
+    if text == "mse" and mse:
+        return "mse", 100.0
     head, sep, tail = text.partition(":")
     if head == "percentile" and sep:
         try:
@@ -24,7 +29,8 @@ def parse_range_rule(value, key: str = "calibration", section: str = "convert") 
             pct = float("nan")
         if 0.0 < pct <= 100.0:
             return "percentile", pct
-    raise UsageError(f"The '{key}' parameter of {section} must be 'max' or 'percentile:Q' with Q in (0, 100]. "
+    also = ", 'mse'" if mse else ""
+    raise UsageError(f"The '{key}' parameter of {section} must be 'max'{also} or 'percentile:Q' with Q in (0, 100]. "
                      f"Got {value!r} instead.")
 
 
@@ -52,7 +58,7 @@ def parse_weight_rule(value, key: str = "weight_scale", section: str = "convert"
             return "mean", c
     elif head != "mean":
         try:
-            return parse_range_rule(value, key, section)
+            return parse_range_rule(value, key, section, mse=False)
         except UsageError:
             pass
     raise UsageError(f"The '{key}' parameter of {section} must be 'max', 'percentile:Q' with Q in (0, 100] or "
@@ -78,11 +84,15 @@ KEYS: dict[str, Key] = {
     "coding": Key("payload", "choice", "a graded single spike needs the fewest time steps per layer",
                   choices=CODINGS),
     "per_channel": Key(False, "bool", "one scale per layer is the simplest hardware; per-channel is opt-in"),
-    "calibration": Key("percentile:99.9", "any", "the 99.9th percentile ignores rare outliers (Rueckauer et al. 2017)",
+    "calibration": Key("percentile:99.9", "any", "the 99.9th percentile ignores rare outliers (Rueckauer et al. 2017); "
+                       "'mse' picks each range by the least squared payload-grid error on the calibration frames",
                        validator=_rule_validator),
     "weight_scale": Key("max", "any", "max-abs keeps every weight representable without clipping; "
                         "'mean:0.7' (ternary threshold from the weight statistics) suits 2-3-bit weights",
                         validator=_weight_rule_validator),
+    "bias_correction": Key(False, "bool", "opt-in: shifting each bias by the mean weight-grid error of its "
+                           "pre-activation on the calibration frames (Nagel et al. 2019) changes post-training "
+                           "figures; aware models are converted without it"),
     "calib_samples": Key(512, "int", "512 training samples give stable percentiles in about a second", lo=1),
     "multiplier_bits": Key(16, "int", "a 16-bit multiplier mantissa keeps requantization error below 2^-16",
                            lo=2, hi=31),
@@ -110,6 +120,7 @@ class ConvertSettings(Section):
     per_channel: bool
     calibration: str
     weight_scale: str
+    bias_correction: bool
     calib_samples: int
     multiplier_bits: int
     accumulator_bits: int
@@ -122,7 +133,7 @@ class ConvertSettings(Section):
 
     @property
     def calibration_rule(self) -> tuple[str, float]:
-        """The activation range statistic, parsed: ("max", 100.0) or ("percentile", Q)."""
+        """The activation range statistic, parsed: ("max", 100.0), ("percentile", Q) or ("mse", 100.0)."""
         return parse_range_rule(self.calibration, "calibration", self.SECTION)
 
     @property
