@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -35,8 +36,9 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--stimulus", choices=("saccade", "flash"), default="saccade", help="large set: the stimulus")
     p.add_argument("--workers", type=int, default=2, help="large set: worker processes (default 2)")
     p.add_argument("--long", type=int, default=0, metavar="K", help="write one long recording of K stimuli instead")
-    p.add_argument("--recipe", default="recipes/default.toml", help="--long: the recipe whose test split gives the "
-                   "stimuli and whose sensor settings they were recorded with (default recipes/default.toml)")
+    p.add_argument("--recipe", default=str(Path(__file__).with_name("default.toml")),
+                   help="--long: the recipe whose test split gives the stimuli and whose sensor settings they were "
+                   "recorded with (default: default.toml beside this script)")
     p.add_argument("--gap-us", type=int, default=200_000, help="--long: background before each stimulus (200000)")
     p.add_argument("--noise-hz", type=float, default=None,
                    help="--long: background noise per pixel in the gaps (default: the recipe's data.noise_hz)")
@@ -69,4 +71,9 @@ def main(argv: list[str] | None = None) -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    from snnconvert.errors import FormatError, UsageError
+    try:
+        sys.exit(main())
+    except (UsageError, FormatError) as exc:     # bad input: one line naming it, exit 2 (as the CLI does)
+        print(f"error: {exc}", file=sys.stderr)
+        sys.exit(2)

@@ -135,7 +135,8 @@ def decide(net, frames: list[np.ndarray]) -> dict:
     from snnconvert.sim import simulate
     if not frames:
         return {"decision": [], "margin": [], "early": [], "step": []}
-    x = np.clip(np.stack(frames), 0, net.input_q)
+    from snnconvert import arith
+    x = arith.quantize_input(np.stack(frames), net.input_q)       # the one input rule: round, clamp to 0..Q_in
     res = simulate(net, x, record=False, stats=False)  # decisions, potentials and ttfs early decisions only
     pot = np.sort(res.potentials, axis=1)
     margin = pot[:, -1] - pot[:, -2] if pot.shape[1] > 1 else pot[:, -1]
